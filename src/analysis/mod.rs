@@ -1,0 +1,15 @@
+//! Pure numerical kernels: transforms, dissimilarities, Gower centring and
+//! PCoA, distance-based linear models, permutation tests, PERMANOVA,
+//! dispersion, the size test, the size/shape partition, ordination, trends.
+//!
+//! Contract: no I/O, no SQLite, no clap, no printing. Kernels take matrices
+//! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
+//! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
+
+pub mod dissimilarity;
+pub mod error;
+pub mod gower;
+pub mod prec;
+
+pub use dissimilarity::DistanceMatrix;
+pub use error::AnalysisError;

@@ -1,0 +1,94 @@
+//! Command-line interface: clap definitions and dispatch. One file per command,
+//! each with `Args` and `run`. No SQL and no maths here: commands call the
+//! store, the matrix assembly and the analysis kernels, then the report writers.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use anyhow::Context;
+use clap::{Parser, Subcommand, ValueEnum};
+
+use crate::report::OutputFormat;
+use crate::store::Store;
+
+pub mod init;
+
+/// tally: size and shape of community change for long-term monitoring programs.
+#[derive(Debug, Parser)]
+#[command(name = "tally", version, about, long_about = None)]
+pub struct Cli {
+    /// The store file.
+    #[arg(long, global = true, env = "TALLY_DB", default_value = "tally.db")]
+    pub db: PathBuf,
+    /// The command.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// Output format flag shared by every command that prints a result.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum, Default)]
+pub enum FormatArg {
+    /// A table for people.
+    #[default]
+    Table,
+    /// CSV for scripts.
+    Csv,
+    /// JSON for scripts.
+    Json,
+}
+
+impl From<FormatArg> for OutputFormat {
+    fn from(f: FormatArg) -> Self {
+        match f {
+            FormatArg::Table => OutputFormat::Table,
+            FormatArg::Csv => OutputFormat::Csv,
+            FormatArg::Json => OutputFormat::Json,
+        }
+    }
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Create an empty store.
+    Init(init::Args),
+}
+
+/// Run a parsed command line.
+///
+/// # Errors
+/// Any runtime error, with context; `main` maps it to exit code 1.
+pub fn run(cli: Cli) -> anyhow::Result<()> {
+    let stdout = std::io::stdout();
+    let mut out = std::io::BufWriter::new(stdout.lock());
+    let result = match cli.command {
+        Command::Init(args) => init::run(args, &cli.db, &mut out),
+    };
+    result?;
+    out.flush()?;
+    Ok(())
+}
+
+/// Open an existing store, with the store path in the error.
+///
+/// # Errors
+/// A missing file or a file that is not a tally store.
+pub fn open_store(path: &Path) -> anyhow::Result<Store> {
+    Store::open(path).with_context(|| format!("opening store {}", path.display()))
+}
+
+/// True when the error chain ends in a broken pipe (the reader went away): a success.
+pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
+    e.chain().any(|c| {
+        c.downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+    })
+}
+
+/// Print a note on stderr (notes and progress are talk, not data).
+pub fn note(msg: &str) {
+    #[allow(clippy::print_stderr)]
+    {
+        eprintln!("tally: {msg}");
+    }
+}

@@ -1,0 +1,21 @@
+//! tally: size and shape of community change for long-term biological monitoring.
+//!
+//! One SQLite file (the *store*) holds a monitoring program's sites, sampling
+//! events, effort, taxa and counts. Selections of the store become count
+//! matrices ([`matrix`]); pure numerical kernels ([`analysis`]) split community
+//! differences into a *size* part (how many organisms) and a *shape* part
+//! (which taxa, in what proportions) and test each; results are stored as runs.
+//!
+//! Module arrows point one way: `cli` → `store`, `matrix`, `analysis`, `report`.
+//! `analysis` and `matrix` know nothing of SQLite, clap or the terminal.
+#![forbid(unsafe_code)]
+#![warn(missing_docs)]
+
+pub mod analysis;
+pub mod cli;
+pub mod matrix;
+pub mod report;
+pub mod store;
+
+/// The tool version recorded with every stored run.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");

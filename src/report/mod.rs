@@ -1,0 +1,6 @@
+//! Output: terminal tables, CSV and JSON writers, SVG plots, the HTML report.
+//! Everything writes to `impl Write`; nothing here computes statistics.
+
+pub mod format;
+
+pub use format::OutputFormat;

@@ -1,0 +1,90 @@
+//! Errors raised by the store: SQLite, migrations, files that are not stores,
+//! and import problems collected row by row.
+use std::path::PathBuf;
+
+/// One problem found while validating an input file.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RowIssue {
+    /// 1-based line number in the file (the header is line 1); 0 when the whole file is at fault.
+    pub line: u64,
+    /// Column name, or empty when the problem concerns the whole row or file.
+    pub column: String,
+    /// What was wrong and what was expected.
+    pub message: String,
+}
+
+impl std::fmt::Display for RowIssue {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match (self.line, self.column.is_empty()) {
+            (0, _) => write!(f, "{}", self.message),
+            (l, true) => write!(f, "line {l}: {}", self.message),
+            (l, false) => write!(f, "line {l}, column {}: {}", self.column, self.message),
+        }
+    }
+}
+
+/// Errors of the store layer.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum StoreError {
+    /// An SQLite error.
+    #[error(transparent)]
+    Sqlite(#[from] rusqlite::Error),
+    /// A migration failed.
+    #[error("migrating the store: {0}")]
+    Migration(#[from] refinery::Error),
+    /// The store file does not exist.
+    #[error("no store at {0} (create one with `tally init`)")]
+    Missing(PathBuf),
+    /// The file exists but is not a tally store.
+    #[error("{0} is not a tally store ({1})")]
+    NotAStore(PathBuf, String),
+    /// `init` was asked to create a store where a file already exists.
+    #[error("{0} already exists")]
+    Exists(PathBuf),
+    /// An input file failed validation; nothing was written.
+    #[error("{file}: {} problem(s); nothing was imported\n{}", .total, format_issues(.issues, *.total))]
+    Invalid {
+        /// The file name as given.
+        file: String,
+        /// The first problems (at most 20).
+        issues: Vec<RowIssue>,
+        /// How many problems there were in all.
+        total: usize,
+    },
+    /// A named thing was not found.
+    #[error("{what} '{name}' not found")]
+    NotFound {
+        /// What kind of thing (batch, selection, run, taxon...).
+        what: &'static str,
+        /// Its name or id.
+        name: String,
+    },
+    /// An operation was refused, with the reason.
+    #[error("{0}")]
+    Refused(String),
+    /// I/O on an input file.
+    #[error("reading {file}: {source}")]
+    Io {
+        /// The file name.
+        file: String,
+        /// The underlying error.
+        #[source]
+        source: std::io::Error,
+    },
+}
+
+fn format_issues(issues: &[RowIssue], total: usize) -> String {
+    let mut s = issues
+        .iter()
+        .map(|i| format!("  {i}"))
+        .collect::<Vec<_>>()
+        .join("\n");
+    if total > issues.len() {
+        s.push_str(&format!("\n  ... and {} more", total - issues.len()));
+    }
+    s
+}
+
+/// Result type of the store layer.
+pub type Result<T> = std::result::Result<T, StoreError>;

@@ -1,0 +1,225 @@
+//! The store: the only code that speaks SQL.
+//!
+//! [`Store::create`] makes a new store file, [`Store::open`] opens an existing
+//! one. Both switch foreign keys on, set WAL journalling, and run the embedded
+//! refinery migrations (append-only files under `migrations/`). A file is
+//! recognised as a tally store by its SQLite `application_id`.
+use std::path::{Path, PathBuf};
+
+use rusqlite::Connection;
+
+pub mod error;
+
+pub use error::{Result, RowIssue, StoreError};
+
+mod embedded {
+    refinery::embed_migrations!("migrations");
+}
+
+/// SQLite `application_id` of tally stores ("TALY" in ASCII).
+pub const APPLICATION_ID: i32 = 0x5441_4C59;
+
+/// An open tally store.
+pub struct Store {
+    conn: Connection,
+    path: Option<PathBuf>,
+}
+
+impl Store {
+    /// Create a new store at `path`; refuses when a file already exists there.
+    ///
+    /// # Errors
+    /// [`StoreError::Exists`] when the file exists; SQLite or migration errors.
+    pub fn create(path: &Path) -> Result<Store> {
+        if path.exists() {
+            return Err(StoreError::Exists(path.to_path_buf()));
+        }
+        let conn = Connection::open(path)?;
+        conn.pragma_update(None, "application_id", APPLICATION_ID)?;
+        let mut store = Store { conn, path: Some(path.to_path_buf()) };
+        store.prepare()?;
+        Ok(store)
+    }
+
+    /// Open an existing store at `path`, applying any pending migrations.
+    ///
+    /// # Errors
+    /// [`StoreError::Missing`] when there is no file; [`StoreError::NotAStore`]
+    /// when the file is not an SQLite database or carries another application id.
+    pub fn open(path: &Path) -> Result<Store> {
+        if !path.exists() {
+            return Err(StoreError::Missing(path.to_path_buf()));
+        }
+        if path.is_dir() {
+            return Err(StoreError::NotAStore(path.to_path_buf(), "it is a directory".into()));
+        }
+        let not_a_store = |why: &str| StoreError::NotAStore(path.to_path_buf(), why.to_string());
+        let conn = Connection::open_with_flags(
+            path,
+            rusqlite::OpenFlags::SQLITE_OPEN_READ_WRITE | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+        )
+        .map_err(|_| not_a_store("cannot be opened as an SQLite database"))?;
+        let id: i32 = conn
+            .pragma_query_value(None, "application_id", |r| r.get(0))
+            .map_err(|_| not_a_store("not an SQLite database"))?;
+        if id != APPLICATION_ID {
+            return Err(not_a_store(&format!("application id {id:#x}, expected {APPLICATION_ID:#x}")));
+        }
+        let mut store = Store { conn, path: Some(path.to_path_buf()) };
+        store.prepare()?;
+        Ok(store)
+    }
+
+    /// An in-memory store with all migrations applied (for tests and scratch work).
+    ///
+    /// # Errors
+    /// SQLite or migration errors.
+    pub fn open_in_memory() -> Result<Store> {
+        let conn = Connection::open_in_memory()?;
+        conn.pragma_update(None, "application_id", APPLICATION_ID)?;
+        let mut store = Store { conn, path: None };
+        store.prepare()?;
+        Ok(store)
+    }
+
+    fn prepare(&mut self) -> Result<()> {
+        self.conn.pragma_update(None, "foreign_keys", true)?;
+        self.conn.busy_timeout(std::time::Duration::from_secs(5))?;
+        if self.path.is_some() {
+            let _mode: String =
+                self.conn.pragma_update_and_check(None, "journal_mode", "WAL", |r| r.get(0))?;
+            self.conn.pragma_update(None, "synchronous", "NORMAL")?;
+        }
+        embedded::migrations::runner().set_grouped(true).run(&mut self.conn)?;
+        Ok(())
+    }
+
+    /// The underlying connection (store submodules only).
+    pub(crate) fn conn(&self) -> &Connection {
+        &self.conn
+    }
+
+    /// The underlying connection, mutable, for transactions (store submodules only).
+    pub(crate) fn conn_mut(&mut self) -> &mut Connection {
+        &mut self.conn
+    }
+
+    /// The file this store lives in, if any.
+    pub fn path(&self) -> Option<&Path> {
+        self.path.as_deref()
+    }
+
+    /// The highest applied migration version.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn schema_version(&self) -> Result<i64> {
+        Ok(self.conn.query_row(
+            "SELECT COALESCE(MAX(version), 0) FROM refinery_schema_history",
+            [],
+            |r| r.get(0),
+        )?)
+    }
+
+    /// A canonical text dump of every table's content, ordered, for comparing
+    /// a store before and after an operation (tests, `check`).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn content_dump(&self) -> Result<String> {
+        let mut names: Vec<String> = Vec::new();
+        {
+            let mut stmt = self.conn.prepare(
+                "SELECT name FROM sqlite_schema WHERE type = 'table' AND name NOT LIKE 'sqlite_%' \
+                 AND name <> 'refinery_schema_history' ORDER BY name",
+            )?;
+            let rows = stmt.query_map([], |r| r.get::<_, String>(0))?;
+            for r in rows {
+                names.push(r?);
+            }
+        }
+        let mut out = String::new();
+        for name in names {
+            out.push_str(&format!("## {name}\n"));
+            // Table names come from sqlite_schema, not from users; quoted as identifiers.
+            let sql = format!("SELECT * FROM \"{}\" ORDER BY 1, 2", name.replace('"', "\"\""));
+            let mut stmt = self.conn.prepare(&sql)?;
+            let ncol = stmt.column_count();
+            let mut rows = stmt.query([])?;
+            while let Some(row) = rows.next()? {
+                let mut cells = Vec::with_capacity(ncol);
+                for c in 0..ncol {
+                    let v: rusqlite::types::Value = row.get(c)?;
+                    cells.push(format!("{v:?}"));
+                }
+                out.push_str(&cells.join("|"));
+                out.push('\n');
+            }
+        }
+        Ok(out)
+    }
+
+    /// Flush the write-ahead log into the main file (called before a writing command exits).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn checkpoint(&self) -> Result<()> {
+        if self.path.is_some() {
+            self.conn.execute_batch("PRAGMA wal_checkpoint(TRUNCATE); PRAGMA optimize;")?;
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn migrations_apply_and_are_idempotent() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("t.db");
+        let s = Store::create(&path).unwrap();
+        let v = s.schema_version().unwrap();
+        assert!(v >= 1);
+        drop(s);
+        let s = Store::open(&path).unwrap();
+        assert_eq!(s.schema_version().unwrap(), v);
+        let fk: i64 = s.conn().pragma_query_value(None, "foreign_keys", |r| r.get(0)).unwrap();
+        assert_eq!(fk, 1);
+    }
+
+    #[test]
+    fn refuses_missing_and_foreign_files() {
+        let dir = tempfile::tempdir().unwrap();
+        let missing = dir.path().join("none.db");
+        assert!(matches!(Store::open(&missing), Err(StoreError::Missing(_))));
+        let text = dir.path().join("notes.txt");
+        std::fs::write(&text, "hello, this is not a database at all, just some text\n").unwrap();
+        assert!(matches!(Store::open(&text), Err(StoreError::NotAStore(..))));
+        let other = dir.path().join("other.db");
+        Connection::open(&other).unwrap().execute_batch("CREATE TABLE x(a)").unwrap();
+        assert!(matches!(Store::open(&other), Err(StoreError::NotAStore(..))));
+    }
+
+    #[test]
+    fn impossible_dates_are_rejected_by_the_schema() {
+        let s = Store::open_in_memory().unwrap();
+        s.conn()
+            .execute_batch(
+                "INSERT INTO site(code) VALUES ('A'); \
+                 INSERT INTO protocol(code, effort_unit) VALUES ('kick', 'minutes');",
+            )
+            .unwrap();
+        let bad = s.conn().execute(
+            "INSERT INTO event(code, site_id, date, protocol_id, effort) VALUES ('e', 1, '2021-02-30', 1, 3)",
+            [],
+        );
+        assert!(bad.is_err());
+        let good = s.conn().execute(
+            "INSERT INTO event(code, site_id, date, protocol_id, effort) VALUES ('e', 1, '2021-02-28', 1, 3)",
+            [],
+        );
+        assert!(good.is_ok());
+    }
+}
