@@ -9,6 +9,7 @@ use std::path::{Path, PathBuf};
 use rusqlite::Connection;
 
 pub mod error;
+pub mod runs;
 
 pub use error::{Result, RowIssue, StoreError};
 
