@@ -11,7 +11,12 @@ use clap::{Parser, Subcommand, ValueEnum};
 use crate::report::OutputFormat;
 use crate::store::Store;
 
+pub mod backup;
+pub mod batches;
+pub mod check;
+pub mod import;
 pub mod init;
+pub mod summary;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -52,6 +57,16 @@ impl From<FormatArg> for OutputFormat {
 pub enum Command {
     /// Create an empty store.
     Init(init::Args),
+    /// Bring a CSV file into the store as one batch (validated first; all or nothing).
+    Import(import::Args),
+    /// List import batches, or remove one with `batches undo ID`.
+    Batches(batches::Args),
+    /// What is stored: totals, years, protocols, events per site and year.
+    Summary(summary::Args),
+    /// Check the store file's integrity and foreign keys.
+    Check(check::Args),
+    /// Copy the store to a new file while it is in use.
+    Backup(backup::Args),
 }
 
 /// Run a parsed command line.
@@ -63,6 +78,13 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
     let mut out = std::io::BufWriter::new(stdout.lock());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &cli.db, &mut out),
+        Command::Import(args) => {
+            import::run(args, &mut open_store(&cli.db)?, &mut std::io::stderr())
+        }
+        Command::Batches(args) => batches::run(args, &mut open_store(&cli.db)?, &mut out),
+        Command::Summary(args) => summary::run(args, &mut open_store(&cli.db)?, &mut out),
+        Command::Check(args) => check::run(args, &mut open_store(&cli.db)?, &mut out),
+        Command::Backup(args) => backup::run(args, &mut open_store(&cli.db)?, &mut out),
     };
     result?;
     out.flush()?;

@@ -1,0 +1,119 @@
+//! `tally import KIND FILE`: bring a CSV file into the store as one batch.
+
+use std::io::Write;
+use std::path::PathBuf;
+
+use anyhow::anyhow;
+use clap::ValueEnum;
+
+use crate::store::import::{ImportKind, ImportOptions, import_path};
+use crate::store::{Store, StoreError};
+
+/// What the file holds (columns in docs/data-model.md).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum KindArg {
+    /// code,name,latitude,longitude + attribute columns
+    Sites,
+    /// code,description,effort_unit
+    Protocols,
+    /// name,rank,parent,accepted
+    Taxa,
+    /// code,site,date,protocol,effort [+ time,replicate,notes]
+    Events,
+    /// event,taxon,count
+    Counts,
+    /// site,date,protocol,effort,taxon,count [+ replicate,time] (field sheets)
+    Records,
+}
+
+impl From<KindArg> for ImportKind {
+    fn from(k: KindArg) -> Self {
+        match k {
+            KindArg::Sites => ImportKind::Sites,
+            KindArg::Protocols => ImportKind::Protocols,
+            KindArg::Taxa => ImportKind::Taxa,
+            KindArg::Events => ImportKind::Events,
+            KindArg::Counts => ImportKind::Counts,
+            KindArg::Records => ImportKind::Records,
+        }
+    }
+}
+
+/// Arguments of `tally import`.
+#[derive(Debug, clap::Args)]
+pub struct Args {
+    /// What the file holds.
+    #[arg(value_enum)]
+    pub kind: KindArg,
+    /// The CSV file (comma, semicolon or tab separated; UTF-8).
+    pub file: PathBuf,
+    /// Create sites and taxa the file names but the store lacks (each is reported).
+    #[arg(long)]
+    pub create_missing: bool,
+    /// Overwrite counts already stored for the same event and taxon.
+    #[arg(long)]
+    pub replace: bool,
+    /// Field delimiter: ',', ';' or 'tab' [default: detected from the header line].
+    #[arg(long, value_parser = parse_delimiter)]
+    pub delimiter: Option<u8>,
+}
+
+fn parse_delimiter(s: &str) -> Result<u8, String> {
+    match s {
+        "tab" | "\\t" | "\t" => Ok(b'\t'),
+        "comma" => Ok(b','),
+        "semicolon" => Ok(b';'),
+        _ if s.len() == 1 && s.is_ascii() && s != "\"" => Ok(s.as_bytes()[0]),
+        _ => Err(format!(
+            "'{s}' is not a delimiter; give one character, or 'tab'"
+        )),
+    }
+}
+
+/// Import the file and print a one-line account (plus one line per creation) on stderr.
+///
+/// # Errors
+/// The file cannot be read or fails validation (nothing is written then).
+pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    let opts = ImportOptions {
+        create_missing: args.create_missing,
+        replace: args.replace,
+        delimiter: args.delimiter,
+    };
+    let kind = ImportKind::from(args.kind);
+    let report = import_path(store, kind, &args.file, &opts).map_err(|e| match e {
+        e @ (StoreError::Invalid { .. } | StoreError::Io { .. }) => anyhow!(e),
+        e => anyhow!(e).context(format!("importing {}", args.file.display())),
+    })?;
+    store.checkpoint()?;
+    let mut parts = Vec::new();
+    match kind {
+        ImportKind::Records => {
+            parts.push(format!("{} new event(s)", report.written));
+            parts.push(format!("{} count(s)", report.counts));
+        }
+        ImportKind::Counts => parts.push(format!("{} count(s)", report.counts)),
+        _ => parts.push(format!("{} new {kind}", report.written)),
+    }
+    if report.unchanged > 0 {
+        parts.push(format!("{} unchanged", report.unchanged));
+    }
+    if report.replaced > 0 {
+        parts.push(format!("{} replaced", report.replaced));
+    }
+    if !report.created.is_empty() {
+        parts.push(format!("{} created", report.created.len()));
+    }
+    writeln!(
+        out,
+        "imported {} row(s) of {kind} from {} as batch {}: {}",
+        report.rows,
+        report.file,
+        report.batch_id,
+        parts.join(", ")
+    )?;
+    for c in &report.created {
+        writeln!(out, "created {c}")?;
+    }
+    Ok(())
+}

@@ -1,0 +1,624 @@
+//! Importing CSV files into the store: validate everything, then write it all
+//! in one transaction, as one batch.
+//!
+//! Six kinds of file are read ([`ImportKind`]); their columns are listed in
+//! `docs/data-model.md`. Each import runs in three steps:
+//!
+//! 1. **parse** (pure, no store): the text is read through [`Sheet`] and each
+//!    field is checked for its own form (dates, numbers, ranges), every problem
+//!    becoming a [`RowIssue`](super::RowIssue) with line, column and what was
+//!    expected;
+//! 2. **resolve** (reads the store inside the write transaction): names are
+//!    looked up, duplicates found, missing sites and taxa created on request;
+//! 3. **write**, only when no problem was found: an `import_batch` row, then
+//!    every row, with prepared statements reused per row.
+//!
+//! Any problem rolls the transaction back, so a failed import writes nothing.
+//! This module owns the rules; the SQL for each kind is in its submodule.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use rusqlite::{Transaction, TransactionBehavior, params};
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+
+use super::sheet::{Issues, Sheet};
+use super::{Result, Store, StoreError};
+
+mod reference;
+mod sampling;
+
+/// How many problems an [`StoreError::Invalid`] carries (the total is counted).
+pub const MAX_REPORTED_ISSUES: usize = 20;
+
+/// What an input file holds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ImportKind {
+    /// `code,name,latitude,longitude` plus attribute columns.
+    Sites,
+    /// `code,description,effort_unit`.
+    Protocols,
+    /// `name,rank,parent,accepted`.
+    Taxa,
+    /// `code,site,date,protocol,effort` plus optional `time,replicate,notes`.
+    Events,
+    /// `event,taxon,count`.
+    Counts,
+    /// The field-sheet long format `site,date,protocol,effort,taxon,count`
+    /// plus optional `replicate,time`.
+    Records,
+}
+
+impl ImportKind {
+    /// Every kind, in the order files are usually imported.
+    pub const ALL: [ImportKind; 6] = [
+        ImportKind::Sites,
+        ImportKind::Protocols,
+        ImportKind::Taxa,
+        ImportKind::Events,
+        ImportKind::Counts,
+        ImportKind::Records,
+    ];
+
+    /// The kind's name as stored in `import_batch.kind` and typed on the command line.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            ImportKind::Sites => "sites",
+            ImportKind::Protocols => "protocols",
+            ImportKind::Taxa => "taxa",
+            ImportKind::Events => "events",
+            ImportKind::Counts => "counts",
+            ImportKind::Records => "records",
+        }
+    }
+
+    /// The kind named `s`, if any.
+    pub fn from_name(s: &str) -> Option<ImportKind> {
+        ImportKind::ALL.into_iter().find(|k| k.as_str() == s)
+    }
+
+    /// Columns the header must name.
+    pub fn required_columns(self) -> &'static [&'static str] {
+        match self {
+            ImportKind::Sites => &["code", "name", "latitude", "longitude"],
+            ImportKind::Protocols => &["code", "description", "effort_unit"],
+            ImportKind::Taxa => &["name", "rank", "parent", "accepted"],
+            ImportKind::Events => &["code", "site", "date", "protocol", "effort"],
+            ImportKind::Counts => &["event", "taxon", "count"],
+            ImportKind::Records => &["site", "date", "protocol", "effort", "taxon", "count"],
+        }
+    }
+
+    /// Columns the header may name as well.
+    pub fn optional_columns(self) -> &'static [&'static str] {
+        match self {
+            ImportKind::Events => &["time", "replicate", "notes"],
+            ImportKind::Records => &["replicate", "time"],
+            _ => &[],
+        }
+    }
+}
+
+impl std::fmt::Display for ImportKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// Choices for one import.
+#[derive(Debug, Clone, Default)]
+pub struct ImportOptions {
+    /// Create sites and taxa that the file names but the store lacks (each
+    /// creation is reported). Protocols are never created this way: they need
+    /// an effort unit.
+    pub create_missing: bool,
+    /// Overwrite counts of an (event, taxon) already stored instead of refusing.
+    pub replace: bool,
+    /// The delimiter; detected from the header line (comma, semicolon, tab) when `None`.
+    pub delimiter: Option<u8>,
+}
+
+/// What an import wrote.
+#[derive(Debug, Clone, Serialize)]
+pub struct ImportReport {
+    /// The batch the rows belong to.
+    pub batch_id: i64,
+    /// The kind of file.
+    pub kind: ImportKind,
+    /// The file name as given.
+    pub file: String,
+    /// Data rows in the file.
+    pub rows: usize,
+    /// Things created on the way because of `create_missing`, e.g. `"site S19"`,
+    /// `"taxon Baetis"` (events formed from a records file are counted in `written`).
+    pub created: Vec<String>,
+    /// Sites, protocols, taxa or events written (new rows of the file's own kind,
+    /// or events formed from a records file).
+    pub written: usize,
+    /// Count rows written (counts and records files).
+    pub counts: usize,
+    /// Stored counts overwritten because of `replace`.
+    pub replaced: usize,
+    /// Rows identical to what is already stored, left as they were.
+    pub unchanged: usize,
+}
+
+/// Import the file at `path`.
+///
+/// # Errors
+/// [`StoreError::Io`] when the file cannot be read; otherwise as [`import_bytes`].
+pub fn import_path(
+    store: &mut Store,
+    kind: ImportKind,
+    path: &Path,
+    opts: &ImportOptions,
+) -> Result<ImportReport> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|source| StoreError::Io {
+        file: file.clone(),
+        source,
+    })?;
+    import_bytes(store, kind, &file, &bytes, opts)
+}
+
+/// Import `bytes`, the content of a file called `file_name`, as one batch.
+///
+/// # Errors
+/// [`StoreError::Invalid`] with the first [`MAX_REPORTED_ISSUES`] problems and
+/// their total when anything is wrong; nothing is written then. SQLite errors.
+pub fn import_bytes(
+    store: &mut Store,
+    kind: ImportKind,
+    file_name: &str,
+    bytes: &[u8],
+    opts: &ImportOptions,
+) -> Result<ImportReport> {
+    let mut issues = Issues::default();
+    let meta = BatchMeta {
+        kind,
+        file: file_name.to_string(),
+        sha256: hex(&Sha256::digest(bytes)),
+        imported_at: chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+    };
+    let tx = store
+        .conn_mut()
+        .transaction_with_behavior(TransactionBehavior::Immediate)?;
+    let report = match kind {
+        ImportKind::Sites => reference::import_sites(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Protocols => reference::import_protocols(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Taxa => reference::import_taxa(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Events => sampling::import_events(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Counts => sampling::import_counts(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Records => sampling::import_records(&tx, &meta, bytes, opts, &mut issues)?,
+    };
+    match report {
+        Some(r) if issues.is_empty() => {
+            tx.commit()?;
+            Ok(r)
+        }
+        _ => {
+            // Dropping the transaction rolls back anything written.
+            drop(tx);
+            let (issues, total) = issues.first(MAX_REPORTED_ISSUES);
+            Err(StoreError::Invalid {
+                file: file_name.to_string(),
+                issues,
+                total,
+            })
+        }
+    }
+}
+
+/// Facts about the file that go into its `import_batch` row.
+pub(crate) struct BatchMeta {
+    kind: ImportKind,
+    file: String,
+    sha256: String,
+    imported_at: String,
+}
+
+/// A stored count overwritten by a `replace` import, kept in the batch's JSON so
+/// that undoing the batch can put it back.
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
+pub(crate) struct Replaced {
+    /// Event id.
+    pub event: i64,
+    /// Taxon id.
+    pub taxon: i64,
+    /// The value before.
+    pub value: f64,
+    /// The batch the value came from.
+    pub batch: Option<i64>,
+}
+
+/// The JSON kept in `import_batch.created`.
+#[derive(Debug, Default, Serialize, serde::Deserialize)]
+pub(crate) struct BatchNotes {
+    /// Things created on the way (`"site S19"`).
+    #[serde(default)]
+    pub created: Vec<String>,
+    /// Counts of earlier batches this batch overwrote.
+    #[serde(default)]
+    pub replaced: Vec<Replaced>,
+}
+
+impl BatchMeta {
+    /// Write the batch row and return its id and the report skeleton.
+    fn insert(
+        &self,
+        tx: &Transaction<'_>,
+        rows: usize,
+        created: Vec<String>,
+        replaced: Vec<Replaced>,
+    ) -> Result<ImportReport> {
+        let notes = BatchNotes { created, replaced };
+        let json = serde_json::to_string(&notes).map_err(|e| StoreError::Refused(e.to_string()))?;
+        tx.execute(
+            "INSERT INTO import_batch(kind, file, content_sha256, imported_at, rows, created) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            params![
+                self.kind.as_str(),
+                self.file,
+                self.sha256,
+                self.imported_at,
+                rows as i64,
+                json
+            ],
+        )?;
+        Ok(ImportReport {
+            batch_id: tx.last_insert_rowid(),
+            kind: self.kind,
+            file: self.file.clone(),
+            rows,
+            replaced: notes.replaced.len(),
+            created: notes.created,
+            written: 0,
+            counts: 0,
+            unchanged: 0,
+        })
+    }
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// Where each known column sits in a row, from the header.
+pub(crate) struct Columns {
+    index: HashMap<&'static str, usize>,
+    /// Columns not named by the format (kept for sites, errors otherwise): (index, name).
+    pub extra: Vec<(usize, String)>,
+}
+
+impl Columns {
+    /// Map the header of `sheet` for `kind`; missing required columns (and, unless
+    /// `allow_extra`, unknown ones) become issues on line 1. `None` when a required
+    /// column is missing.
+    pub fn map(
+        sheet: &Sheet<'_>,
+        kind: ImportKind,
+        allow_extra: bool,
+        issues: &mut Issues,
+    ) -> Option<Columns> {
+        let required = kind.required_columns();
+        let optional = kind.optional_columns();
+        let mut index = HashMap::new();
+        let mut extra = Vec::new();
+        for (i, name) in sheet.header.iter().enumerate() {
+            let lower = name.to_ascii_lowercase();
+            match required.iter().chain(optional).find(|c| **c == lower) {
+                Some(c) => {
+                    index.insert(*c, i);
+                }
+                None if allow_extra => extra.push((i, name.clone())),
+                None => issues.push(
+                    1,
+                    name,
+                    format!(
+                        "unknown column for a {kind} file; expected {}{}",
+                        required.join(","),
+                        if optional.is_empty() {
+                            String::new()
+                        } else {
+                            format!(" (optional: {})", optional.join(","))
+                        }
+                    ),
+                ),
+            }
+        }
+        let mut complete = true;
+        for c in required {
+            if !index.contains_key(c) {
+                complete = false;
+                let hint = if sheet.header.len() == 1 {
+                    format!(
+                        " (the header has a single column; is the delimiter {} right?)",
+                        super::sheet::delimiter_name(sheet.delimiter)
+                    )
+                } else {
+                    String::new()
+                };
+                issues.push(
+                    1,
+                    c,
+                    format!(
+                        "missing column; a {kind} file needs {}{hint}",
+                        required.join(",")
+                    ),
+                );
+            }
+        }
+        complete.then_some(Columns { index, extra })
+    }
+
+    /// The field of column `name` in `rec` ("" when the column is optional and absent).
+    pub fn get<'r>(&self, rec: &'r csv::StringRecord, name: &str) -> &'r str {
+        self.index.get(name).and_then(|&i| rec.get(i)).unwrap_or("")
+    }
+}
+
+/// A calendar date checked to exist, packed as `yyyymmdd`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub(crate) struct IsoDate(u32);
+
+impl IsoDate {
+    /// The `YYYY-MM-DD` text.
+    pub fn text(self) -> String {
+        format!(
+            "{:04}-{:02}-{:02}",
+            self.0 / 10_000,
+            self.0 / 100 % 100,
+            self.0 % 100
+        )
+    }
+}
+
+/// A strict ISO 8601 calendar date `YYYY-MM-DD` that exists.
+pub(crate) fn parse_date(s: &str) -> std::result::Result<IsoDate, String> {
+    let b = s.as_bytes();
+    let digits = |r: std::ops::Range<usize>| b[r].iter().all(u8::is_ascii_digit);
+    if s.is_empty() {
+        return Err("empty; expected a date YYYY-MM-DD".into());
+    }
+    if b.len() != 10
+        || b[4] != b'-'
+        || b[7] != b'-'
+        || !digits(0..4)
+        || !digits(5..7)
+        || !digits(8..10)
+    {
+        return Err(format!(
+            "'{s}' is not a date; expected YYYY-MM-DD (ISO 8601, e.g. 2016-04-21)"
+        ));
+    }
+    let num =
+        |r: std::ops::Range<usize>| b[r].iter().fold(0u32, |a, d| a * 10 + u32::from(d - b'0'));
+    let (y, m, d) = (num(0..4), num(5..7), num(8..10));
+    if !(1..=12).contains(&m) {
+        return Err(format!("'{s}' has month {m}; months run 01 to 12"));
+    }
+    if chrono::NaiveDate::from_ymd_opt(y as i32, m, d).is_none() {
+        return Err(format!(
+            "'{s}' does not exist (day {d} is past the end of the month)"
+        ));
+    }
+    Ok(IsoDate(y * 10_000 + m * 100 + d))
+}
+
+/// An optional time of day `HH:MM` or `HH:MM:SS`, returned as written.
+pub(crate) fn parse_time(s: &str) -> std::result::Result<Option<String>, String> {
+    if s.is_empty() {
+        return Ok(None);
+    }
+    let parts: Vec<&str> = s.split(':').collect();
+    let ok = (parts.len() == 2 || parts.len() == 3)
+        && parts
+            .iter()
+            .all(|p| p.len() == 2 && p.bytes().all(|c| c.is_ascii_digit()))
+        && parts[0].parse::<u32>().is_ok_and(|h| h < 24)
+        && parts[1..]
+            .iter()
+            .all(|p| p.parse::<u32>().is_ok_and(|v| v < 60));
+    if ok {
+        Ok(Some(s.to_string()))
+    } else {
+        Err(format!(
+            "'{s}' is not a time of day; expected HH:MM or HH:MM:SS (24-hour)"
+        ))
+    }
+}
+
+/// The largest value the schema accepts for counts and effort.
+const MAX_VALUE: f64 = 1.0e300;
+
+fn parse_number(s: &str, what: &str) -> std::result::Result<f64, String> {
+    if s.is_empty() {
+        return Err(format!("empty; expected {what}"));
+    }
+    let lower = s.to_ascii_lowercase();
+    if lower.contains("nan") || lower.contains("inf") {
+        return Err(format!("'{s}' is not a finite number; expected {what}"));
+    }
+    let plain = s
+        .bytes()
+        .all(|c| c.is_ascii_digit() || matches!(c, b'.' | b'-' | b'+' | b'e' | b'E'));
+    match s.parse::<f64>() {
+        Ok(v) if plain && v.is_finite() => Ok(v),
+        Ok(_) if plain => Err(format!("'{s}' is too large; expected {what}")),
+        _ if s.contains(',') && s.replace(',', ".").parse::<f64>().is_ok() => Err(format!(
+            "'{s}' is not a number (use '.' as the decimal point); expected {what}"
+        )),
+        _ => Err(format!("'{s}' is not a number; expected {what}")),
+    }
+}
+
+/// A count: finite, ≥ 0.
+pub(crate) fn parse_count(s: &str) -> std::result::Result<f64, String> {
+    const WHAT: &str = "a count ≥ 0";
+    let v = parse_number(s, WHAT)?;
+    if v < 0.0 {
+        Err(format!("'{s}' is negative; counts must be ≥ 0"))
+    } else if v > MAX_VALUE {
+        Err(format!("'{s}' is too large; expected {WHAT}"))
+    } else {
+        Ok(v)
+    }
+}
+
+/// Sampling effort: finite, > 0.
+pub(crate) fn parse_effort(s: &str) -> std::result::Result<f64, String> {
+    const WHAT: &str = "the sampling effort, a number > 0 in the protocol's unit";
+    let v = parse_number(s, WHAT)?;
+    if v <= 0.0 {
+        Err(format!("'{s}' is not positive; effort must be > 0"))
+    } else if v > MAX_VALUE {
+        Err(format!("'{s}' is too large; expected {WHAT}"))
+    } else {
+        Ok(v)
+    }
+}
+
+/// An optional coordinate in decimal degrees within ±`limit`.
+pub(crate) fn parse_coordinate(
+    s: &str,
+    name: &str,
+    limit: f64,
+) -> std::result::Result<Option<f64>, String> {
+    if s.is_empty() {
+        return Ok(None);
+    }
+    let what = format!("{name} in decimal degrees between -{limit} and {limit} (or empty)");
+    let v = parse_number(s, &what)?;
+    if v.abs() > limit {
+        Err(format!("'{s}' is out of range; expected {what}"))
+    } else {
+        Ok(Some(v))
+    }
+}
+
+/// A replicate number ≥ 1 (1 when empty).
+pub(crate) fn parse_replicate(s: &str) -> std::result::Result<i64, String> {
+    if s.is_empty() {
+        return Ok(1);
+    }
+    match s.parse::<i64>() {
+        Ok(v) if v >= 1 => Ok(v),
+        _ => Err(format!(
+            "'{s}' is not a replicate number; expected a whole number ≥ 1 (or empty for 1)"
+        )),
+    }
+}
+
+/// Names mapped to small integers while parsing, so large files hold each name once.
+#[derive(Debug, Default)]
+pub(crate) struct Interner {
+    map: HashMap<String, u32>,
+    /// The names, by index.
+    pub names: Vec<String>,
+    /// The first line naming each.
+    pub first_line: Vec<u64>,
+    /// How many rows name each.
+    pub uses: Vec<u64>,
+}
+
+impl Interner {
+    /// The index of `s`, named on `line`, adding it when new.
+    pub fn intern(&mut self, s: &str, line: u64) -> u32 {
+        if let Some(&i) = self.map.get(s) {
+            self.uses[i as usize] += 1;
+            return i;
+        }
+        let i = u32::try_from(self.names.len())
+            .expect("invariant: fewer than 2^32 distinct names in one file");
+        self.names.push(s.to_string());
+        self.first_line.push(line);
+        self.uses.push(1);
+        self.map.insert(s.to_string(), i);
+        i
+    }
+
+    /// "" or " (and N more rows)" for messages about name `i`.
+    pub fn more_rows(&self, i: u32) -> String {
+        match self.uses[i as usize] {
+            0 | 1 => String::new(),
+            n => format!(" (and {} more row(s))", n - 1),
+        }
+    }
+}
+
+/// Ids of one table's rows by their natural key, with new rows numbered on.
+pub(crate) struct Ids {
+    map: HashMap<String, i64>,
+    next: i64,
+    /// Rows to create: (id, key, first line naming it).
+    pub new: Vec<(i64, String)>,
+}
+
+/// The tables [`Ids`] can load.
+#[derive(Clone, Copy)]
+pub(crate) enum Table {
+    Site,
+    Protocol,
+    Taxon,
+}
+
+impl Ids {
+    /// Load every key of `table`.
+    pub fn load(tx: &Transaction<'_>, table: Table) -> Result<Ids> {
+        let sql = match table {
+            Table::Site => "SELECT id, code FROM site",
+            Table::Protocol => "SELECT id, code FROM protocol",
+            Table::Taxon => "SELECT id, name FROM taxon",
+        };
+        let mut map = HashMap::new();
+        let mut next = 1;
+        let mut stmt = tx.prepare(sql)?;
+        let mut rows = stmt.query([])?;
+        while let Some(r) = rows.next()? {
+            let id: i64 = r.get(0)?;
+            map.insert(r.get(1)?, id);
+            next = next.max(id + 1);
+        }
+        Ok(Ids {
+            map,
+            next,
+            new: Vec::new(),
+        })
+    }
+
+    /// A table with no rows and nothing to create.
+    pub fn empty() -> Ids {
+        Ids {
+            map: HashMap::new(),
+            next: 1,
+            new: Vec::new(),
+        }
+    }
+
+    /// The id of `key`, if stored or already created.
+    pub fn get(&self, key: &str) -> Option<i64> {
+        self.map.get(key).copied()
+    }
+
+    /// True when `key` was created by this import.
+    pub fn is_new(&self, id: i64) -> bool {
+        self.new.first().is_some_and(|(first, _)| id >= *first)
+    }
+
+    /// The id of `key`, created (and returned with `true`) when absent.
+    pub fn get_or_create(&mut self, key: &str) -> (i64, bool) {
+        if let Some(id) = self.get(key) {
+            return (id, false);
+        }
+        let id = self.next;
+        self.next += 1;
+        self.map.insert(key.to_string(), id);
+        self.new.push((id, key.to_string()));
+        (id, true)
+    }
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,530 @@
+//! Importing the reference lists: sites (with attributes), protocols and taxa.
+//!
+//! A row identical to a stored one is left alone (so a growing list can be
+//! imported again); a row whose key is stored with other values is an error,
+//! because changing a site, protocol or taxon in place would alter data of
+//! earlier batches.
+
+use std::collections::{HashMap, HashSet};
+
+use rusqlite::{Transaction, params};
+
+use super::{
+    BatchMeta, Columns, Ids, ImportKind, ImportOptions, ImportReport, Table, parse_coordinate,
+};
+use crate::store::Result;
+use crate::store::sheet::{Issues, Sheet};
+
+/// One parsed row of a sites file.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct SiteRow {
+    pub line: u64,
+    pub code: String,
+    pub name: String,
+    pub latitude: Option<f64>,
+    pub longitude: Option<f64>,
+    /// Attribute (key, value) pairs with a non-empty value, sorted by key.
+    pub attributes: Vec<(String, String)>,
+}
+
+/// Parse a sites file (pure).
+pub(crate) fn parse_sites(
+    bytes: &[u8],
+    delimiter: Option<u8>,
+    issues: &mut Issues,
+) -> Vec<SiteRow> {
+    let mut out = Vec::new();
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return out;
+    };
+    let Some(cols) = Columns::map(&sheet, ImportKind::Sites, true, issues) else {
+        return out;
+    };
+    let mut seen: HashMap<String, u64> = HashMap::new();
+    sheet.rows(issues, |line, rec, issues| {
+        let code = cols.get(rec, "code");
+        let mut ok = true;
+        if code.is_empty() {
+            issues.push(line, "code", "empty; every site needs a code");
+            ok = false;
+        } else if let Some(first) = seen.get(code) {
+            issues.push(
+                line,
+                "code",
+                format!("site '{code}' is listed twice (first on line {first})"),
+            );
+            ok = false;
+        } else {
+            seen.insert(code.to_string(), line);
+        }
+        let latitude = parse_coordinate(cols.get(rec, "latitude"), "latitude", 90.0)
+            .map_err(|m| issues.push(line, "latitude", m));
+        let longitude = parse_coordinate(cols.get(rec, "longitude"), "longitude", 180.0)
+            .map_err(|m| issues.push(line, "longitude", m));
+        let (Ok(latitude), Ok(longitude), true) = (latitude, longitude, ok) else {
+            return;
+        };
+        let mut attributes: Vec<(String, String)> = cols
+            .extra
+            .iter()
+            .filter_map(|(i, key)| {
+                rec.get(*i)
+                    .filter(|v| !v.is_empty())
+                    .map(|v| (key.clone(), v.to_string()))
+            })
+            .collect();
+        attributes.sort();
+        out.push(SiteRow {
+            line,
+            code: code.to_string(),
+            name: cols.get(rec, "name").to_string(),
+            latitude,
+            longitude,
+            attributes,
+        });
+    });
+    out
+}
+
+/// Import a sites file; `None` when problems were found.
+pub(crate) fn import_sites(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let rows = parse_sites(bytes, opts.delimiter, issues);
+    let total = rows.len();
+    let mut fresh = Vec::new();
+    let mut unchanged = 0;
+    {
+        let mut find = tx.prepare(
+            "SELECT id, name, latitude, longitude, import_batch_id FROM site WHERE code = ?1",
+        )?;
+        let mut attrs =
+            tx.prepare("SELECT key, value FROM site_attribute WHERE site_id = ?1 ORDER BY key")?;
+        for row in rows {
+            let stored = find
+                .query_row([&row.code], |r| {
+                    Ok((
+                        r.get::<_, i64>(0)?,
+                        r.get::<_, String>(1)?,
+                        r.get::<_, Option<f64>>(2)?,
+                        r.get::<_, Option<f64>>(3)?,
+                        r.get::<_, Option<i64>>(4)?,
+                    ))
+                })
+                .map(Some)
+                .or_else(|e| {
+                    if e == rusqlite::Error::QueryReturnedNoRows {
+                        Ok(None)
+                    } else {
+                        Err(e)
+                    }
+                })?;
+            let Some((id, name, lat, lon, batch)) = stored else {
+                fresh.push(row);
+                continue;
+            };
+            let stored_attrs: Vec<(String, String)> = attrs
+                .query_map([id], |r| Ok((r.get(0)?, r.get(1)?)))?
+                .collect::<rusqlite::Result<_>>()?;
+            if name == row.name
+                && lat == row.latitude
+                && lon == row.longitude
+                && stored_attrs == row.attributes
+            {
+                unchanged += 1;
+            } else {
+                issues.push(row.line, "code", already_stored("site", &row.code, batch));
+            }
+        }
+    }
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let mut report = meta.insert(tx, total, Vec::new(), Vec::new())?;
+    let next: i64 = tx.query_row("SELECT COALESCE(MAX(id), 0) + 1 FROM site", [], |r| {
+        r.get(0)
+    })?;
+    let mut site = tx.prepare(
+        "INSERT INTO site(id, code, name, latitude, longitude, import_batch_id) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+    )?;
+    let mut attr =
+        tx.prepare("INSERT INTO site_attribute(site_id, key, value) VALUES (?1, ?2, ?3)")?;
+    for (k, row) in fresh.iter().enumerate() {
+        let id = next + k as i64;
+        site.execute(params![
+            id,
+            row.code,
+            row.name,
+            row.latitude,
+            row.longitude,
+            report.batch_id
+        ])?;
+        for (key, value) in &row.attributes {
+            attr.execute(params![id, key, value])?;
+        }
+    }
+    report.written = fresh.len();
+    report.unchanged = unchanged;
+    Ok(Some(report))
+}
+
+pub(super) fn already_stored(what: &str, key: &str, batch: Option<i64>) -> String {
+    let from = batch.map_or(String::new(), |b| format!(" (batch {b})"));
+    format!(
+        "{what} '{key}' is already stored{from} with other values; an import cannot change it \
+         (undo that batch first, or leave the row as stored)"
+    )
+}
+
+/// One parsed row of a protocols file.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct ProtocolRow {
+    pub line: u64,
+    pub code: String,
+    pub description: String,
+    pub effort_unit: String,
+}
+
+/// Parse a protocols file (pure).
+pub(crate) fn parse_protocols(
+    bytes: &[u8],
+    delimiter: Option<u8>,
+    issues: &mut Issues,
+) -> Vec<ProtocolRow> {
+    let mut out = Vec::new();
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return out;
+    };
+    let Some(cols) = Columns::map(&sheet, ImportKind::Protocols, false, issues) else {
+        return out;
+    };
+    let mut seen: HashMap<String, u64> = HashMap::new();
+    sheet.rows(issues, |line, rec, issues| {
+        let code = cols.get(rec, "code");
+        let unit = cols.get(rec, "effort_unit");
+        let mut ok = true;
+        if code.is_empty() {
+            issues.push(line, "code", "empty; every protocol needs a code");
+            ok = false;
+        } else if let Some(first) = seen.get(code) {
+            issues.push(
+                line,
+                "code",
+                format!("protocol '{code}' is listed twice (first on line {first})"),
+            );
+            ok = false;
+        } else {
+            seen.insert(code.to_string(), line);
+        }
+        if unit.is_empty() {
+            issues.push(
+                line,
+                "effort_unit",
+                "empty; every protocol needs an effort unit (minutes, m2, traps...)",
+            );
+            ok = false;
+        }
+        if ok {
+            out.push(ProtocolRow {
+                line,
+                code: code.to_string(),
+                description: cols.get(rec, "description").to_string(),
+                effort_unit: unit.to_string(),
+            });
+        }
+    });
+    out
+}
+
+/// Import a protocols file; `None` when problems were found.
+pub(crate) fn import_protocols(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let rows = parse_protocols(bytes, opts.delimiter, issues);
+    let total = rows.len();
+    let mut fresh = Vec::new();
+    let mut unchanged = 0;
+    {
+        let mut find = tx.prepare(
+            "SELECT description, effort_unit, import_batch_id FROM protocol WHERE code = ?1",
+        )?;
+        for row in rows {
+            let stored = find
+                .query_row([&row.code], |r| {
+                    Ok((
+                        r.get::<_, String>(0)?,
+                        r.get::<_, String>(1)?,
+                        r.get::<_, Option<i64>>(2)?,
+                    ))
+                })
+                .map(Some)
+                .or_else(|e| {
+                    if e == rusqlite::Error::QueryReturnedNoRows {
+                        Ok(None)
+                    } else {
+                        Err(e)
+                    }
+                })?;
+            match stored {
+                None => fresh.push(row),
+                Some((d, u, _)) if d == row.description && u == row.effort_unit => unchanged += 1,
+                Some((_, _, batch)) => issues.push(
+                    row.line,
+                    "code",
+                    already_stored("protocol", &row.code, batch),
+                ),
+            }
+        }
+    }
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let mut report = meta.insert(tx, total, Vec::new(), Vec::new())?;
+    let mut ins = tx.prepare(
+        "INSERT INTO protocol(code, description, effort_unit, import_batch_id) VALUES (?1, ?2, ?3, ?4)",
+    )?;
+    for row in &fresh {
+        ins.execute(params![
+            row.code,
+            row.description,
+            row.effort_unit,
+            report.batch_id
+        ])?;
+    }
+    report.written = fresh.len();
+    report.unchanged = unchanged;
+    Ok(Some(report))
+}
+
+/// One parsed row of a taxa file.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct TaxonRow {
+    pub line: u64,
+    pub name: String,
+    pub rank: String,
+    pub parent: Option<String>,
+    pub accepted: Option<String>,
+}
+
+/// Parse a taxa file (pure): forms only; names are checked against the store later.
+pub(crate) fn parse_taxa(
+    bytes: &[u8],
+    delimiter: Option<u8>,
+    issues: &mut Issues,
+) -> Vec<TaxonRow> {
+    let mut out = Vec::new();
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return out;
+    };
+    let Some(cols) = Columns::map(&sheet, ImportKind::Taxa, false, issues) else {
+        return out;
+    };
+    let mut seen: HashMap<String, u64> = HashMap::new();
+    sheet.rows(issues, |line, rec, issues| {
+        let name = cols.get(rec, "name");
+        if name.is_empty() {
+            issues.push(line, "name", "empty; every taxon needs a name");
+            return;
+        }
+        if let Some(first) = seen.get(name) {
+            issues.push(
+                line,
+                "name",
+                format!("taxon '{name}' is listed twice (first on line {first})"),
+            );
+            return;
+        }
+        seen.insert(name.to_string(), line);
+        let opt = |c: &str| Some(cols.get(rec, c).to_string()).filter(|s| !s.is_empty());
+        let (parent, accepted) = (opt("parent"), opt("accepted"));
+        if parent.as_deref() == Some(name) {
+            issues.push(line, "parent", format!("'{name}' cannot be its own parent"));
+            return;
+        }
+        if accepted.as_deref() == Some(name) {
+            issues.push(
+                line,
+                "accepted",
+                format!("'{name}' cannot be its own accepted name; leave it empty"),
+            );
+            return;
+        }
+        out.push(TaxonRow {
+            line,
+            name: name.to_string(),
+            rank: cols.get(rec, "rank").to_string(),
+            parent,
+            accepted,
+        });
+    });
+    out
+}
+
+/// A taxon as stored, by name.
+struct StoredTaxon {
+    rank: String,
+    parent: Option<String>,
+    accepted: Option<String>,
+    batch: Option<i64>,
+}
+
+/// Import a taxa file; `None` when problems were found.
+pub(crate) fn import_taxa(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let rows = parse_taxa(bytes, opts.delimiter, issues);
+    let total = rows.len();
+    let mut stored: HashMap<String, StoredTaxon> = HashMap::new();
+    {
+        let mut stmt = tx.prepare(
+            "SELECT t.name, t.rank, p.name, a.name, t.import_batch_id FROM taxon t \
+             LEFT JOIN taxon p ON p.id = t.parent_id LEFT JOIN taxon a ON a.id = t.accepted_id",
+        )?;
+        let mut q = stmt.query([])?;
+        while let Some(r) = q.next()? {
+            stored.insert(
+                r.get(0)?,
+                StoredTaxon {
+                    rank: r.get(1)?,
+                    parent: r.get(2)?,
+                    accepted: r.get(3)?,
+                    batch: r.get(4)?,
+                },
+            );
+        }
+    }
+    // Rows already stored identically are dropped; conflicting ones are errors.
+    let mut fresh: Vec<TaxonRow> = Vec::new();
+    let mut unchanged = 0;
+    for row in rows {
+        match stored.get(&row.name) {
+            None => fresh.push(row),
+            Some(s)
+                if s.rank == row.rank && s.parent == row.parent && s.accepted == row.accepted =>
+            {
+                unchanged += 1
+            }
+            Some(s) => issues.push(
+                row.line,
+                "name",
+                already_stored("taxon", &row.name, s.batch),
+            ),
+        }
+    }
+    let in_file: HashMap<&str, &TaxonRow> = fresh.iter().map(|r| (r.name.as_str(), r)).collect();
+    let known = |n: &str| in_file.contains_key(n) || stored.contains_key(n);
+    // Names referred to but unknown: created on request.
+    let mut created_names: Vec<String> = Vec::new();
+    let mut created_set: HashSet<String> = HashSet::new();
+    for row in &fresh {
+        for (col, target) in [("parent", &row.parent), ("accepted", &row.accepted)] {
+            let Some(t) = target else { continue };
+            if known(t) || created_set.contains(t) {
+                continue;
+            }
+            if opts.create_missing {
+                created_set.insert(t.clone());
+                created_names.push(t.clone());
+            } else {
+                issues.push(
+                    row.line,
+                    col,
+                    format!("taxon '{t}' is neither in this file nor in the store (add it, or use --create-missing)"),
+                );
+            }
+        }
+    }
+    // The accepted name of a synonym must itself be accepted.
+    let accepted_of = |n: &str| -> Option<String> {
+        in_file
+            .get(n)
+            .map(|r| r.accepted.clone())
+            .unwrap_or_else(|| stored.get(n).and_then(|s| s.accepted.clone()))
+    };
+    for row in &fresh {
+        if let Some(a) = &row.accepted {
+            if let Some(aa) = accepted_of(a) {
+                issues.push(
+                    row.line,
+                    "accepted",
+                    format!("'{a}' is itself a synonym of '{aa}'; a synonym must point at an accepted name ('{aa}')"),
+                );
+            }
+        }
+    }
+    // Parent chains must end: follow each new row's chain through file and store.
+    let parent_of = |n: &str| -> Option<String> {
+        in_file
+            .get(n)
+            .map(|r| r.parent.clone())
+            .unwrap_or_else(|| stored.get(n).and_then(|s| s.parent.clone()))
+    };
+    let mut in_cycle: HashSet<String> = HashSet::new();
+    for row in &fresh {
+        if in_cycle.contains(&row.name) {
+            continue;
+        }
+        let mut chain = vec![row.name.clone()];
+        let mut cur = row.parent.clone();
+        while let Some(p) = cur {
+            if p == row.name {
+                chain.push(p);
+                issues.push(
+                    row.line,
+                    "parent",
+                    format!("the parent chain loops: {}", chain.join(" → ")),
+                );
+                in_cycle.extend(chain);
+                break;
+            }
+            if chain.contains(&p) || chain.len() > in_file.len() + stored.len() + 1 {
+                break; // a loop not through this row; reported at its own members
+            }
+            chain.push(p.clone());
+            cur = parent_of(&p);
+        }
+    }
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let created: Vec<String> = created_names.iter().map(|n| format!("taxon {n}")).collect();
+    let mut report = meta.insert(tx, total, created, Vec::new())?;
+    let mut ins =
+        tx.prepare("INSERT INTO taxon(name, rank, import_batch_id) VALUES (?1, ?2, ?3)")?;
+    for name in &created_names {
+        ins.execute(params![name, "", report.batch_id])?;
+    }
+    for row in &fresh {
+        ins.execute(params![row.name, row.rank, report.batch_id])?;
+    }
+    let ids = Ids::load(tx, Table::Taxon)?;
+    let id = |n: &str| {
+        ids.get(n)
+            .expect("invariant: every referenced taxon was inserted or stored above")
+    };
+    let mut link = tx.prepare("UPDATE taxon SET parent_id = ?2, accepted_id = ?3 WHERE id = ?1")?;
+    for row in &fresh {
+        if row.parent.is_some() || row.accepted.is_some() {
+            link.execute(params![
+                id(&row.name),
+                row.parent.as_deref().map(id),
+                row.accepted.as_deref().map(id)
+            ])?;
+        }
+    }
+    report.written = fresh.len() + created_names.len();
+    report.unchanged = unchanged;
+    Ok(Some(report))
+}

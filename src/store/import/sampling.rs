@@ -1,0 +1,824 @@
+//! Importing sampling data: events, counts, and the field-sheet long format
+//! (records) that holds both.
+//!
+//! Records rows are grouped into events by (site, date, protocol, replicate).
+//! A new event's code is derived from that key, `SITE-YYYY-MM-DD-PROTOCOL-REPLICATE`
+//! (e.g. `S07-2016-04-21-kick-1`); an event already stored under that key is
+//! reused, and must have the same effort. Large files are parsed into compact rows
+//! (names interned) and counts are written sorted by (event, taxon), the order of
+//! the count table's primary key.
+
+use std::collections::{HashMap, HashSet};
+
+use rusqlite::{OptionalExtension, Transaction, params};
+
+use super::{
+    BatchMeta, Columns, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Replaced,
+    Table, parse_count, parse_date, parse_effort, parse_replicate, parse_time,
+};
+use crate::store::Result;
+use crate::store::sheet::{Issues, Sheet};
+
+/// The message for a protocol the store does not know.
+fn unknown_protocol(code: &str, more: &str) -> String {
+    format!(
+        "protocol '{code}' is not in the store{more}; import it first with `tally import protocols` \
+         (it cannot be created with --create-missing because a protocol needs an effort unit)"
+    )
+}
+
+fn unknown_site(code: &str, more: &str) -> String {
+    format!("site '{code}' is not in the store{more}; import it first, or use --create-missing")
+}
+
+fn unknown_taxon(name: &str, more: &str) -> String {
+    format!("taxon '{name}' is not in the store{more}; import it first, or use --create-missing")
+}
+
+/// Resolve interned site names; unknown ones are created on request or reported once.
+fn resolve_sites(
+    names: &Interner,
+    ids: &mut Ids,
+    opts: &ImportOptions,
+    column: &str,
+    issues: &mut Issues,
+    created: &mut Vec<String>,
+) -> Vec<Option<i64>> {
+    (0..names.names.len() as u32)
+        .map(|i| {
+            let code = &names.names[i as usize];
+            match ids.get(code) {
+                Some(id) => Some(id),
+                None if opts.create_missing => {
+                    created.push(format!("site {code}"));
+                    Some(ids.get_or_create(code).0)
+                }
+                None => {
+                    issues.push(
+                        names.first_line[i as usize],
+                        column,
+                        unknown_site(code, &names.more_rows(i)),
+                    );
+                    None
+                }
+            }
+        })
+        .collect()
+}
+
+fn resolve_taxa(
+    names: &Interner,
+    ids: &mut Ids,
+    opts: &ImportOptions,
+    issues: &mut Issues,
+    created: &mut Vec<String>,
+) -> Vec<Option<i64>> {
+    (0..names.names.len() as u32)
+        .map(|i| {
+            let name = &names.names[i as usize];
+            match ids.get(name) {
+                Some(id) => Some(id),
+                None if opts.create_missing => {
+                    created.push(format!("taxon {name}"));
+                    Some(ids.get_or_create(name).0)
+                }
+                None => {
+                    issues.push(
+                        names.first_line[i as usize],
+                        "taxon",
+                        unknown_taxon(name, &names.more_rows(i)),
+                    );
+                    None
+                }
+            }
+        })
+        .collect()
+}
+
+fn resolve_protocols(names: &Interner, ids: &Ids, issues: &mut Issues) -> Vec<Option<i64>> {
+    (0..names.names.len() as u32)
+        .map(|i| {
+            let code = &names.names[i as usize];
+            let id = ids.get(code);
+            if id.is_none() {
+                issues.push(
+                    names.first_line[i as usize],
+                    "protocol",
+                    unknown_protocol(code, &names.more_rows(i)),
+                );
+            }
+            id
+        })
+        .collect()
+}
+
+/// Write the sites and taxa created on the way.
+fn write_created(tx: &Transaction<'_>, sites: &Ids, taxa: &Ids, batch: i64) -> Result<()> {
+    let mut site = tx.prepare("INSERT INTO site(id, code, import_batch_id) VALUES (?1, ?2, ?3)")?;
+    for (id, code) in &sites.new {
+        site.execute(params![id, code, batch])?;
+    }
+    let mut taxon =
+        tx.prepare("INSERT INTO taxon(id, name, import_batch_id) VALUES (?1, ?2, ?3)")?;
+    for (id, name) in &taxa.new {
+        taxon.execute(params![id, name, batch])?;
+    }
+    Ok(())
+}
+
+/// A count ready to check and write.
+#[derive(Debug, Clone, Copy)]
+struct NewCount {
+    event: i64,
+    taxon: i64,
+    value: f64,
+    line: u64,
+}
+
+/// Sort `counts` by (event, taxon), report pairs listed twice in the file, and
+/// compare with counts already stored for `stored_events`: a conflict is an
+/// issue unless `replace`, in which case the old value is returned for the batch notes.
+fn check_counts(
+    tx: &Transaction<'_>,
+    counts: &mut [NewCount],
+    stored_events: &HashSet<i64>,
+    taxon_name: &dyn Fn(i64) -> String,
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Vec<Replaced>> {
+    counts.sort_unstable_by_key(|c| (c.event, c.taxon, c.line));
+    for w in counts.windows(2) {
+        if w[0].event == w[1].event && w[0].taxon == w[1].taxon {
+            issues.push(
+                w[1].line,
+                "taxon",
+                format!(
+                    "taxon '{}' is listed twice for the same event (first on line {})",
+                    taxon_name(w[1].taxon),
+                    w[0].line
+                ),
+            );
+        }
+    }
+    let mut replaced = Vec::new();
+    if stored_events.is_empty() {
+        return Ok(replaced);
+    }
+    let mut stmt = tx.prepare(
+        "SELECT value, import_batch_id FROM count WHERE event_id = ?1 AND taxon_id = ?2",
+    )?;
+    for c in counts.iter().filter(|c| stored_events.contains(&c.event)) {
+        let old: Option<(f64, Option<i64>)> = stmt
+            .query_row(params![c.event, c.taxon], |r| Ok((r.get(0)?, r.get(1)?)))
+            .optional()?;
+        let Some((value, batch)) = old else { continue };
+        if opts.replace {
+            replaced.push(Replaced {
+                event: c.event,
+                taxon: c.taxon,
+                value,
+                batch,
+            });
+        } else {
+            let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
+            issues.push(
+                c.line,
+                "taxon",
+                format!(
+                    "a count of '{}' for this event is already stored{from} (value {value}); \
+                     use --replace to overwrite it",
+                    taxon_name(c.taxon)
+                ),
+            );
+        }
+    }
+    Ok(replaced)
+}
+
+/// Write counts (sorted by (event, taxon)) with one prepared statement.
+fn write_counts(
+    tx: &Transaction<'_>,
+    counts: &[NewCount],
+    batch: i64,
+    replace: bool,
+) -> Result<()> {
+    let sql = if replace {
+        "INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES (?1, ?2, ?3, ?4) \
+         ON CONFLICT(event_id, taxon_id) DO UPDATE SET value = excluded.value, \
+         import_batch_id = excluded.import_batch_id"
+    } else {
+        "INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES (?1, ?2, ?3, ?4)"
+    };
+    let mut stmt = tx.prepare(sql)?;
+    for c in counts {
+        stmt.execute(params![c.event, c.taxon, c.value, batch])?;
+    }
+    Ok(())
+}
+
+/// One parsed row of an events file.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct EventRow {
+    pub line: u64,
+    pub code: String,
+    pub site: String,
+    pub date: IsoDate,
+    pub protocol: String,
+    pub effort: f64,
+    pub time: Option<String>,
+    pub replicate: i64,
+    pub notes: String,
+}
+
+/// Parse an events file (pure).
+pub(crate) fn parse_events(
+    bytes: &[u8],
+    delimiter: Option<u8>,
+    issues: &mut Issues,
+) -> Vec<EventRow> {
+    let mut out = Vec::new();
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return out;
+    };
+    let Some(cols) = Columns::map(&sheet, ImportKind::Events, false, issues) else {
+        return out;
+    };
+    let mut codes: HashMap<String, u64> = HashMap::new();
+    let mut keys: HashMap<(String, IsoDate, String, i64), u64> = HashMap::new();
+    sheet.rows(issues, |line, rec, issues| {
+        let mut ok = true;
+        let mut need = |col: &str, what: &str, issues: &mut Issues| {
+            let v = cols.get(rec, col);
+            if v.is_empty() {
+                issues.push(line, col, format!("empty; every event needs {what}"));
+                ok = false;
+            }
+            v
+        };
+        let code = need("code", "a code", issues);
+        let site = need("site", "a site code", issues);
+        let protocol = need("protocol", "a protocol code", issues);
+        let date = parse_date(cols.get(rec, "date")).map_err(|m| issues.push(line, "date", m));
+        let effort = parse_effort(cols.get(rec, "effort")).map_err(|m| issues.push(line, "effort", m));
+        let time = parse_time(cols.get(rec, "time")).map_err(|m| issues.push(line, "time", m));
+        let replicate = parse_replicate(cols.get(rec, "replicate")).map_err(|m| issues.push(line, "replicate", m));
+        let (Ok(date), Ok(effort), Ok(time), Ok(replicate), true) = (date, effort, time, replicate, ok) else {
+            return;
+        };
+        if let Some(first) = codes.get(code) {
+            issues.push(line, "code", format!("event '{code}' is listed twice (first on line {first})"));
+            return;
+        }
+        codes.insert(code.to_string(), line);
+        let key = (site.to_string(), date, protocol.to_string(), replicate);
+        if let Some(first) = keys.get(&key) {
+            issues.push(
+                line,
+                "replicate",
+                format!("line {first} has the same site, date, protocol and replicate; give a different replicate"),
+            );
+            return;
+        }
+        keys.insert(key, line);
+        out.push(EventRow {
+            line,
+            code: code.to_string(),
+            site: site.to_string(),
+            date,
+            protocol: protocol.to_string(),
+            effort,
+            time,
+            replicate,
+            notes: cols.get(rec, "notes").to_string(),
+        });
+    });
+    out
+}
+
+/// Import an events file; `None` when problems were found.
+pub(crate) fn import_events(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let rows = parse_events(bytes, opts.delimiter, issues);
+    let total = rows.len();
+    let mut sites = Ids::load(tx, Table::Site)?;
+    let protocols = Ids::load(tx, Table::Protocol)?;
+    let mut created = Vec::new();
+    let mut site_names = Interner::default();
+    let mut protocol_names = Interner::default();
+    let site_idx: Vec<u32> = rows
+        .iter()
+        .map(|r| site_names.intern(&r.site, r.line))
+        .collect();
+    let protocol_idx: Vec<u32> = rows
+        .iter()
+        .map(|r| protocol_names.intern(&r.protocol, r.line))
+        .collect();
+    let site_ids = resolve_sites(&site_names, &mut sites, opts, "site", issues, &mut created);
+    let protocol_ids = resolve_protocols(&protocol_names, &protocols, issues);
+    let mut fresh = Vec::new();
+    let mut unchanged = 0;
+    {
+        let mut by_code = tx.prepare(
+            "SELECT s.code, e.date, p.code, e.effort, e.time, e.replicate, e.notes, e.import_batch_id \
+             FROM event e JOIN site s ON s.id = e.site_id JOIN protocol p ON p.id = e.protocol_id \
+             WHERE e.code = ?1",
+        )?;
+        let mut by_key = tx.prepare(
+            "SELECT code FROM event WHERE site_id = ?1 AND date = ?2 AND protocol_id = ?3 AND replicate = ?4",
+        )?;
+        for (k, row) in rows.into_iter().enumerate() {
+            let (Some(site), Some(protocol)) = (
+                site_ids[site_idx[k] as usize],
+                protocol_ids[protocol_idx[k] as usize],
+            ) else {
+                continue;
+            };
+            type Stored = (
+                String,
+                String,
+                String,
+                f64,
+                Option<String>,
+                i64,
+                String,
+                Option<i64>,
+            );
+            let stored: Option<Stored> = by_code
+                .query_row([&row.code], |r| {
+                    Ok((
+                        r.get(0)?,
+                        r.get(1)?,
+                        r.get(2)?,
+                        r.get(3)?,
+                        r.get(4)?,
+                        r.get(5)?,
+                        r.get(6)?,
+                        r.get(7)?,
+                    ))
+                })
+                .optional()?;
+            if let Some(s) = stored {
+                let same = s.0 == row.site
+                    && s.1 == row.date.text()
+                    && s.2 == row.protocol
+                    && s.3 == row.effort
+                    && s.4 == row.time
+                    && s.5 == row.replicate
+                    && s.6 == row.notes;
+                if same {
+                    unchanged += 1;
+                } else {
+                    issues.push(
+                        row.line,
+                        "code",
+                        super::reference::already_stored("event", &row.code, s.7),
+                    );
+                }
+                continue;
+            }
+            let clash: Option<String> = by_key
+                .query_row(
+                    params![site, row.date.text(), protocol, row.replicate],
+                    |r| r.get(0),
+                )
+                .optional()?;
+            if let Some(other) = clash {
+                issues.push(
+                    row.line,
+                    "replicate",
+                    format!(
+                        "event '{other}' is already stored for this site, date, protocol and replicate; \
+                         give a different replicate"
+                    ),
+                );
+                continue;
+            }
+            fresh.push((row, site, protocol));
+        }
+    }
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let mut report = meta.insert(tx, total, created, Vec::new())?;
+    write_created(tx, &sites, &Ids::empty(), report.batch_id)?;
+    let mut ins = tx.prepare(
+        "INSERT INTO event(code, site_id, date, time, protocol_id, effort, replicate, notes, import_batch_id) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+    )?;
+    for (row, site, protocol) in &fresh {
+        ins.execute(params![
+            row.code,
+            site,
+            row.date.text(),
+            row.time,
+            protocol,
+            row.effort,
+            row.replicate,
+            row.notes,
+            report.batch_id
+        ])?;
+    }
+    report.written = fresh.len();
+    report.unchanged = unchanged;
+    Ok(Some(report))
+}
+
+/// One parsed row of a counts file.
+#[derive(Debug, Clone, Copy)]
+struct CountRow {
+    line: u64,
+    event: u32,
+    taxon: u32,
+    value: f64,
+}
+
+/// Import a counts file; `None` when problems were found.
+pub(crate) fn import_counts(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let mut events = Interner::default();
+    let mut taxa = Interner::default();
+    let mut rows = Vec::new();
+    if let Some(sheet) = Sheet::open(bytes, opts.delimiter, issues)
+        && let Some(cols) = Columns::map(&sheet, ImportKind::Counts, false, issues)
+    {
+        sheet.rows(issues, |line, rec, issues| {
+            let event = cols.get(rec, "event");
+            let taxon = cols.get(rec, "taxon");
+            if event.is_empty() {
+                issues.push(line, "event", "empty; expected an event code");
+            }
+            if taxon.is_empty() {
+                issues.push(line, "taxon", "empty; expected a taxon name");
+            }
+            let value =
+                parse_count(cols.get(rec, "count")).map_err(|m| issues.push(line, "count", m));
+            if let (Ok(value), false, false) = (value, event.is_empty(), taxon.is_empty()) {
+                rows.push(CountRow {
+                    line,
+                    event: events.intern(event, line),
+                    taxon: taxa.intern(taxon, line),
+                    value,
+                });
+            }
+        });
+    }
+    let total = rows.len();
+    let mut created = Vec::new();
+    let mut taxon_ids = Ids::load(tx, Table::Taxon)?;
+    let taxon_of = resolve_taxa(&taxa, &mut taxon_ids, opts, issues, &mut created);
+    let mut event_of = Vec::with_capacity(events.names.len());
+    {
+        let mut find = tx.prepare("SELECT id FROM event WHERE code = ?1")?;
+        for (i, code) in events.names.iter().enumerate() {
+            let id: Option<i64> = find.query_row([code], |r| r.get(0)).optional()?;
+            if id.is_none() {
+                issues.push(
+                    events.first_line[i],
+                    "event",
+                    format!(
+                        "event '{code}' is not in the store{}; import the events file first",
+                        events.more_rows(i as u32)
+                    ),
+                );
+            }
+            event_of.push(id);
+        }
+    }
+    let mut counts: Vec<NewCount> = rows
+        .iter()
+        .filter_map(|r| {
+            Some(NewCount {
+                event: event_of[r.event as usize]?,
+                taxon: taxon_of[r.taxon as usize]?,
+                value: r.value,
+                line: r.line,
+            })
+        })
+        .collect();
+    let stored_events: HashSet<i64> = event_of.iter().flatten().copied().collect();
+    let names: HashMap<i64, &str> = taxon_of
+        .iter()
+        .zip(&taxa.names)
+        .filter_map(|(id, n)| Some(((*id)?, n.as_str())))
+        .collect();
+    let name = |id: i64| {
+        names
+            .get(&id)
+            .map_or_else(|| id.to_string(), |n| n.to_string())
+    };
+    let replaced = check_counts(tx, &mut counts, &stored_events, &name, opts, issues)?;
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let mut report = meta.insert(tx, total, created, replaced)?;
+    write_created(tx, &Ids::empty(), &taxon_ids, report.batch_id)?;
+    write_counts(tx, &counts, report.batch_id, opts.replace)?;
+    report.counts = counts.len();
+    Ok(Some(report))
+}
+
+/// One parsed row of a records file.
+#[derive(Debug, Clone, Copy)]
+struct RecordRow {
+    line: u64,
+    event: u32,
+    taxon: Option<u32>,
+    value: f64,
+}
+
+/// An event formed from records rows.
+#[derive(Debug, Clone)]
+struct RecordEvent {
+    site: u32,
+    date: IsoDate,
+    protocol: u32,
+    replicate: i64,
+    effort: f64,
+    time: Option<String>,
+    first_line: u64,
+    /// The line of a row with empty taxon and count (nothing found).
+    empty_line: Option<u64>,
+    /// The first line listing a taxon.
+    taxon_line: Option<u64>,
+}
+
+/// Everything a records file says, parsed.
+#[derive(Default)]
+struct Records {
+    sites: Interner,
+    protocols: Interner,
+    taxa: Interner,
+    events: Vec<RecordEvent>,
+    rows: Vec<RecordRow>,
+}
+
+/// Parse a records file (pure): fields checked, rows grouped into events.
+fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Records {
+    let mut r = Records::default();
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return r;
+    };
+    let Some(cols) = Columns::map(&sheet, ImportKind::Records, false, issues) else {
+        return r;
+    };
+    let mut keys: HashMap<(u32, IsoDate, u32, i64), u32> = HashMap::new();
+    sheet.rows(issues, |line, rec, issues| {
+        let site = cols.get(rec, "site");
+        let protocol = cols.get(rec, "protocol");
+        let taxon = cols.get(rec, "taxon");
+        let count = cols.get(rec, "count");
+        let mut ok = true;
+        if site.is_empty() {
+            issues.push(line, "site", "empty; expected a site code");
+            ok = false;
+        }
+        if protocol.is_empty() {
+            issues.push(line, "protocol", "empty; expected a protocol code");
+            ok = false;
+        }
+        let date = parse_date(cols.get(rec, "date")).map_err(|m| issues.push(line, "date", m));
+        let effort = parse_effort(cols.get(rec, "effort")).map_err(|m| issues.push(line, "effort", m));
+        let replicate = parse_replicate(cols.get(rec, "replicate")).map_err(|m| issues.push(line, "replicate", m));
+        let time = parse_time(cols.get(rec, "time")).map_err(|m| issues.push(line, "time", m));
+        let value = match (taxon.is_empty(), count.is_empty()) {
+            (true, true) => Ok(None),
+            (true, false) => {
+                issues.push(line, "taxon", "empty but a count is given; name the taxon, or leave both empty when nothing was found");
+                Err(())
+            }
+            (false, true) => {
+                issues.push(line, "count", format!("empty; expected a count ≥ 0 for taxon '{taxon}' (write 0 if none)"));
+                Err(())
+            }
+            (false, false) => parse_count(count).map(Some).map_err(|m| issues.push(line, "count", m)),
+        };
+        let (Ok(date), Ok(effort), Ok(replicate), Ok(time), Ok(value), true) =
+            (date, effort, replicate, time, value, ok)
+        else {
+            return;
+        };
+        let s = r.sites.intern(site, line);
+        let p = r.protocols.intern(protocol, line);
+        let next = r.events.len() as u32;
+        let e = *keys.entry((s, date, p, replicate)).or_insert(next);
+        if e == next {
+            r.events.push(RecordEvent {
+                site: s,
+                date,
+                protocol: p,
+                replicate,
+                effort,
+                time: time.clone(),
+                first_line: line,
+                empty_line: None,
+                taxon_line: None,
+            });
+        }
+        let ev = &mut r.events[e as usize];
+        if ev.effort != effort {
+            issues.push(
+                line,
+                "effort",
+                format!(
+                    "{effort} differs from {} on line {} for the same event (site, date, protocol, replicate); \
+                     one event has one effort",
+                    ev.effort, ev.first_line
+                ),
+            );
+            return;
+        }
+        match (&ev.time, &time) {
+            (Some(a), Some(b)) if a != b => {
+                issues.push(line, "time", format!("'{b}' differs from '{a}' on line {} for the same event", ev.first_line));
+                return;
+            }
+            (None, Some(_)) => ev.time = time,
+            _ => {}
+        }
+        match value {
+            None => {
+                ev.empty_line.get_or_insert(line);
+            }
+            Some(v) => {
+                ev.taxon_line.get_or_insert(line);
+                let t = r.taxa.intern(taxon, line);
+                r.rows.push(RecordRow { line, event: e, taxon: Some(t), value: v });
+            }
+        }
+    });
+    for ev in &r.events {
+        if let (Some(empty), Some(listed)) = (ev.empty_line, ev.taxon_line) {
+            issues.push(
+                empty,
+                "taxon",
+                format!(
+                    "empty taxon and count mean nothing was found, but line {listed} lists a taxon for the same event"
+                ),
+            );
+        }
+    }
+    r
+}
+
+/// The code of a new event formed from a records file.
+fn derived_code(site: &str, date: IsoDate, protocol: &str, replicate: i64) -> String {
+    format!("{site}-{}-{protocol}-{replicate}", date.text())
+}
+
+/// Import a records file; `None` when problems were found.
+pub(crate) fn import_records(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    issues: &mut Issues,
+) -> Result<Option<ImportReport>> {
+    let rec = parse_records(bytes, opts.delimiter, issues);
+    let total = rec.rows.len() + rec.events.iter().filter(|e| e.empty_line.is_some()).count();
+    let mut created = Vec::new();
+    let mut sites = Ids::load(tx, Table::Site)?;
+    let protocols = Ids::load(tx, Table::Protocol)?;
+    let mut taxa = Ids::load(tx, Table::Taxon)?;
+    let site_of = resolve_sites(&rec.sites, &mut sites, opts, "site", issues, &mut created);
+    let protocol_of = resolve_protocols(&rec.protocols, &protocols, issues);
+    let taxon_of = resolve_taxa(&rec.taxa, &mut taxa, opts, issues, &mut created);
+
+    // Events: reuse a stored one with the same key, or number a new one.
+    let mut next_event: i64 =
+        tx.query_row("SELECT COALESCE(MAX(id), 0) + 1 FROM event", [], |r| {
+            r.get(0)
+        })?;
+    let mut event_of: Vec<Option<i64>> = Vec::with_capacity(rec.events.len());
+    let mut new_events: Vec<(i64, String, usize)> = Vec::new();
+    let mut stored_events = HashSet::new();
+    {
+        let mut by_key = tx.prepare(
+            "SELECT id, code, effort, import_batch_id FROM event \
+             WHERE site_id = ?1 AND date = ?2 AND protocol_id = ?3 AND replicate = ?4",
+        )?;
+        let mut by_code = tx.prepare("SELECT 1 FROM event WHERE code = ?1")?;
+        let mut codes: HashMap<String, u64> = HashMap::new();
+        for (k, ev) in rec.events.iter().enumerate() {
+            let (Some(site), Some(protocol)) =
+                (site_of[ev.site as usize], protocol_of[ev.protocol as usize])
+            else {
+                event_of.push(None);
+                continue;
+            };
+            if !sites.is_new(site) {
+                let stored: Option<(i64, String, f64, Option<i64>)> = by_key
+                    .query_row(params![site, ev.date.text(), protocol, ev.replicate], |r| {
+                        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+                    })
+                    .optional()?;
+                if let Some((id, code, effort, batch)) = stored {
+                    if effort != ev.effort {
+                        let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
+                        issues.push(
+                            ev.first_line,
+                            "effort",
+                            format!(
+                                "event '{code}' is already stored{from} with effort {effort}, not {}; \
+                                 one event has one effort",
+                                ev.effort
+                            ),
+                        );
+                        event_of.push(None);
+                    } else {
+                        stored_events.insert(id);
+                        event_of.push(Some(id));
+                    }
+                    continue;
+                }
+            }
+            let code = derived_code(
+                &rec.sites.names[ev.site as usize],
+                ev.date,
+                &rec.protocols.names[ev.protocol as usize],
+                ev.replicate,
+            );
+            let taken = by_code.query_row([&code], |_| Ok(())).optional()?.is_some();
+            if taken || codes.contains_key(&code) {
+                issues.push(
+                    ev.first_line,
+                    "site",
+                    format!("the derived event code '{code}' is already used by another event; rename the site or protocol"),
+                );
+                event_of.push(None);
+                continue;
+            }
+            codes.insert(code.clone(), ev.first_line);
+            new_events.push((next_event, code, k));
+            event_of.push(Some(next_event));
+            next_event += 1;
+        }
+    }
+    let mut counts: Vec<NewCount> = rec
+        .rows
+        .iter()
+        .filter_map(|r| {
+            Some(NewCount {
+                event: event_of[r.event as usize]?,
+                taxon: taxon_of[r.taxon? as usize]?,
+                value: r.value,
+                line: r.line,
+            })
+        })
+        .collect();
+    let names: HashMap<i64, &str> = taxon_of
+        .iter()
+        .zip(&rec.taxa.names)
+        .filter_map(|(id, n)| Some(((*id)?, n.as_str())))
+        .collect();
+    let name = |id: i64| {
+        names
+            .get(&id)
+            .map_or_else(|| id.to_string(), |n| n.to_string())
+    };
+    let replaced = check_counts(tx, &mut counts, &stored_events, &name, opts, issues)?;
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+
+    let mut report = meta.insert(tx, total, created, replaced)?;
+    let batch = report.batch_id;
+    write_created(tx, &sites, &taxa, batch)?;
+    {
+        let mut ins = tx.prepare(
+            "INSERT INTO event(id, code, site_id, date, time, protocol_id, effort, replicate, import_batch_id) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+        )?;
+        for (id, code, k) in &new_events {
+            let ev = &rec.events[*k];
+            let site =
+                site_of[ev.site as usize].expect("invariant: new events have resolved sites");
+            let protocol = protocol_of[ev.protocol as usize]
+                .expect("invariant: new events have resolved protocols");
+            ins.execute(params![
+                id,
+                code,
+                site,
+                ev.date.text(),
+                ev.time,
+                protocol,
+                ev.effort,
+                ev.replicate,
+                batch
+            ])?;
+        }
+    }
+    write_counts(tx, &counts, batch, opts.replace)?;
+    report.written = new_events.len();
+    report.counts = counts.len();
+    Ok(Some(report))
+}
