@@ -13,6 +13,7 @@
 
 pub mod analysis;
 pub mod cli;
+pub mod demo;
 pub mod matrix;
 pub mod report;
 pub mod store;
