@@ -9,7 +9,11 @@
 pub mod dissimilarity;
 pub mod error;
 pub mod gower;
+mod pairwise;
 pub mod prec;
+pub mod transform;
 
-pub use dissimilarity::DistanceMatrix;
+pub use dissimilarity::{Distance, DistanceMatrix};
 pub use error::AnalysisError;
+pub use gower::{Correction, Pcoa, pcoa};
+pub use transform::Transform;

@@ -13,3 +13,28 @@ pub fn close(a: f64, b: f64, rel: f64) -> bool {
     let scale = a.abs().max(b.abs()).max(1.0);
     (a - b).abs() <= rel * scale
 }
+
+/// Small published or documented inputs shared by the kernels' unit tests.
+#[cfg(test)]
+pub(crate) mod test_data {
+    use nalgebra::DMatrix;
+
+    /// Legendre & Legendre (1998) Numerical Ecology, 2nd Engl. ed., p. 457: the
+    /// 3 × 3 input table (sites × species), as cited in METHODS.md §11.2 (A).
+    pub(crate) fn ll457() -> DMatrix<f64> {
+        DMatrix::from_row_slice(3, 3, &[10., 10., 20., 10., 15., 10., 15., 5., 5.])
+    }
+
+    /// The toy community of METHODS.md §11.2 (B) (invented there): 10 samples ×
+    /// 6 taxa, group A = rows 0-4, group B = rows 5-9.
+    pub(crate) fn toy() -> DMatrix<f64> {
+        #[rustfmt::skip]
+        let v = [
+            12., 5., 0., 3., 1., 0.,   20., 8., 1., 5., 0., 2.,   9., 4., 0., 1., 2., 0.,
+            15., 6., 2., 4., 1., 1.,   30., 12., 1., 7., 3., 0.,
+            3., 2., 8., 1., 9., 4.,    1., 4., 12., 0., 6., 7.,   5., 1., 6., 2., 11., 3.,
+            2., 3., 15., 1., 8., 9.,   0., 2., 5., 0., 4., 2.,
+        ];
+        DMatrix::from_row_slice(10, 6, &v)
+    }
+}
