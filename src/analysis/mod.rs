@@ -6,10 +6,15 @@
 //! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
+pub mod dispersion;
 pub mod dissimilarity;
 pub mod error;
 pub mod gower;
+pub mod linear_model;
+pub mod permanova;
+pub mod permutation;
 pub mod prec;
+pub mod size_test;
 
 pub use dissimilarity::DistanceMatrix;
 pub use error::AnalysisError;

@@ -63,6 +63,8 @@ pub struct CountMatrix {
 impl CountMatrix {
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
-        (0..self.values.nrows()).map(|i| self.values.row(i).sum()).collect()
+        (0..self.values.nrows())
+            .map(|i| self.values.row(i).sum())
+            .collect()
     }
 }
