@@ -6,12 +6,18 @@
 //! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
+pub mod dispersion;
 pub mod dissimilarity;
 pub mod error;
 pub mod gower;
 mod pairwise;
 pub mod prec;
 pub mod transform;
+pub mod linear_model;
+pub mod permanova;
+pub mod permutation;
+pub mod prec;
+pub mod size_test;
 
 pub use dissimilarity::{Distance, DistanceMatrix};
 pub use error::AnalysisError;

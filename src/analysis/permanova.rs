@@ -1,0 +1,643 @@
+//! PERMANOVA (Anderson 2001, Austral Ecol. 26:32-46): the one-way fast path, the
+//! general multi-term path through the distance-based linear model with Freedman–Lane
+//! permutation of residuals under the reduced model (METHODS.md §7), and pairwise
+//! comparisons with Holm and Benjamini–Hochberg adjustment.
+//!
+//! Owns: [`permanova_oneway`], [`permanova`], [`pairwise`] and their result types.
+//! The one-way path squares D once into a dense n × n row-major array and, per
+//! permutation, sums only the within-group pairs (`SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²_ik`),
+//! permutations in batches so each row stays in cache across the batch (§10.1).
+
+use nalgebra::DMatrix;
+use serde::Serialize;
+
+use super::gower::gower_centre;
+use super::linear_model::{self, Basis, Design, Grouping, SsRow, SsType};
+use super::permutation::{self, PermutationOptions, PermutationResult, Permuter, Progress, Scheme};
+use super::{AnalysisError, DistanceMatrix};
+
+/// Options of a PERMANOVA.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PermanovaOptions {
+    /// Random permutations requested (exact enumeration when fewer are distinct).
+    pub permutations: usize,
+    /// Generator seed (every term is tested with the same permutation stream).
+    pub seed: u64,
+    /// Exchangeability scheme.
+    pub scheme: Scheme,
+    /// Sequential or marginal sums of squares (multi-term path).
+    pub ss_type: SsType,
+}
+
+/// How permuted statistics were obtained.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PermutationMethod {
+    /// Permutation of group labels (one-way designs).
+    Labels,
+    /// Permutation of residuals under each term's reduced model (Freedman & Lane 1983).
+    FreedmanLane,
+}
+
+/// The test of one term.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TermTest {
+    /// Term name.
+    pub name: String,
+    /// Degrees of freedom.
+    pub df: usize,
+    /// Sum of squares.
+    pub ss: f64,
+    /// `ss / SS_total`.
+    pub r2: f64,
+    /// Pseudo-F against the residual.
+    pub pseudo_f: f64,
+    /// Permutation p-value.
+    pub p_value: f64,
+    /// Permutations evaluated for this term.
+    pub permutations: usize,
+    /// True when enumerated exactly.
+    pub exact: bool,
+    /// Smallest attainable p-value.
+    pub min_p: f64,
+}
+
+/// A PERMANOVA table with permutation p-values.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PermanovaResult {
+    /// One entry per term.
+    pub terms: Vec<TermTest>,
+    /// Residual df and SS.
+    pub residual: SsRow,
+    /// Total df and SS.
+    pub total: SsRow,
+    /// Sequential or marginal.
+    pub ss_type: SsType,
+    /// Label permutation or Freedman–Lane.
+    pub method: PermutationMethod,
+    /// Permutations evaluated (the largest over terms).
+    pub permutations: usize,
+    /// True when every term was enumerated exactly.
+    pub exact: bool,
+    /// Generator seed.
+    pub seed: u64,
+    /// Exchangeability scheme, described.
+    pub scheme: String,
+}
+
+/// Batches within a block: rows stay in cache across this many permutations.
+const SUB_BATCH: usize = 64;
+
+/// Precomputed state of the one-way statistic.
+struct OneWay {
+    n: usize,
+    a: usize,
+    d2: Vec<f64>,
+    codes: Vec<usize>,
+    offsets: Vec<usize>,
+    inv_size: Vec<f64>,
+    ss_total: f64,
+}
+
+impl OneWay {
+    fn new(d: &DistanceMatrix, g: &Grouping) -> Self {
+        let n = d.n();
+        let mut d2 = vec![0.0; n * n];
+        let mut ss = 0.0;
+        for i in 0..n {
+            for k in (i + 1)..n {
+                let v = d.get(i, k).powi(2);
+                d2[i * n + k] = v;
+                d2[k * n + i] = v;
+                ss += v;
+            }
+        }
+        let sizes = g.sizes();
+        let mut offsets = vec![0; sizes.len() + 1];
+        for (j, s) in sizes.iter().enumerate() {
+            offsets[j + 1] = offsets[j] + s;
+        }
+        OneWay {
+            n,
+            a: sizes.len(),
+            d2,
+            codes: g.codes().to_vec(),
+            offsets,
+            inv_size: sizes.iter().map(|&s| 1.0 / s as f64).collect(),
+            ss_total: ss / n as f64,
+        }
+    }
+
+    fn f_of(&self, ssw: f64) -> f64 {
+        ((self.ss_total - ssw) / (self.a - 1) as f64) / (ssw / (self.n - self.a) as f64)
+    }
+
+    /// SS_W of each permutation in `perms` (k × n).
+    fn ss_within(&self, perms: &[usize], out: &mut [f64]) {
+        let (n, a) = (self.n, self.a);
+        let k = out.len();
+        // members[p*n ..]: the positions of each group in ascending order, group by group;
+        // slot[i*k + p]: where position i sits in that list.
+        let mut members = vec![0u32; k * n];
+        let mut slot = vec![0u32; k * n];
+        let mut group = vec![0u32; k * n];
+        let mut next = vec![0usize; a];
+        for p in 0..k {
+            next.copy_from_slice(&self.offsets[..a]);
+            let perm = &perms[p * n..(p + 1) * n];
+            for (i, &src) in perm.iter().enumerate() {
+                let g = self.codes[src];
+                members[p * n + next[g]] = i as u32;
+                slot[i * k + p] = next[g] as u32;
+                group[i * k + p] = g as u32;
+                next[g] += 1;
+            }
+        }
+        let mut acc = vec![0.0; k * a];
+        for i in 0..n {
+            let row = &self.d2[i * n..(i + 1) * n];
+            for p in 0..k {
+                let g = group[i * k + p] as usize;
+                let start = slot[i * k + p] as usize + 1;
+                let end = self.offsets[g + 1];
+                let list = &members[p * n + start..p * n + end];
+                let mut s0 = 0.0;
+                let mut s1 = 0.0;
+                let mut chunks = list.chunks_exact(2);
+                for c in &mut chunks {
+                    s0 += row[c[0] as usize];
+                    s1 += row[c[1] as usize];
+                }
+                for &m in chunks.remainder() {
+                    s0 += row[m as usize];
+                }
+                acc[p * a + g] += s0 + s1;
+            }
+        }
+        for p in 0..k {
+            out[p] = (0..a).map(|g| acc[p * a + g] * self.inv_size[g]).sum();
+        }
+    }
+
+    fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
+        let n = self.n;
+        for (pc, oc) in perms.chunks(SUB_BATCH * n).zip(out.chunks_mut(SUB_BATCH)) {
+            self.ss_within(pc, oc);
+            for o in oc.iter_mut() {
+                *o = self.f_of(*o);
+            }
+        }
+    }
+}
+
+fn check_groups(g: &Grouping, n: usize) -> Result<(), AnalysisError> {
+    if g.n() != n {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: g.n(),
+        });
+    }
+    if g.n_groups() < 2 {
+        return Err(AnalysisError::TooFewGroups {
+            found: g.n_groups(),
+            min: 2,
+        });
+    }
+    if n <= g.n_groups() {
+        return Err(AnalysisError::Saturated {
+            rank: g.n_groups(),
+            n,
+        });
+    }
+    Ok(())
+}
+
+/// One-way PERMANOVA by label permutation (Anderson 2001): `SS_T = (1/N) Σ_{i<k} d²`,
+/// `SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²`, `F = (SS_A/(a-1)) / (SS_W/(N-a))`.
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`], [`AnalysisError::TooFewGroups`] (fewer than 2),
+/// [`AnalysisError::Saturated`] (no residual df), and the errors of the permuter
+/// (strata/blocks) and of [`permutation::permutation_test`].
+pub fn permanova_oneway(
+    d: &DistanceMatrix,
+    groups: &Grouping,
+    opts: &PermanovaOptions,
+    progress: Option<Progress<'_>>,
+) -> Result<PermanovaResult, AnalysisError> {
+    let n = d.n();
+    check_groups(groups, n)?;
+    let k = OneWay::new(d, groups);
+    let identity: Vec<usize> = (0..n).collect();
+    let mut ssw = [0.0];
+    k.ss_within(&identity, &mut ssw);
+    let ssw = ssw[0];
+    let observed = k.f_of(ssw);
+    let permuter = Permuter::new(n, &opts.scheme, Some(groups.codes()))?;
+    let popts = PermutationOptions {
+        permutations: opts.permutations,
+        seed: opts.seed,
+    };
+    let stat = |perms: &[usize], out: &mut [f64]| k.f_batch(perms, out);
+    let res = permutation::permutation_test(&permuter, observed, &popts, &stat, progress)?;
+    let a = groups.n_groups();
+    let term = TermTest {
+        name: "groups".to_string(),
+        df: a - 1,
+        ss: k.ss_total - ssw,
+        r2: (k.ss_total - ssw) / k.ss_total,
+        pseudo_f: observed,
+        p_value: res.p_value,
+        permutations: res.permutations,
+        exact: res.exact,
+        min_p: res.min_p,
+    };
+    Ok(PermanovaResult {
+        terms: vec![term],
+        residual: SsRow { df: n - a, ss: ssw },
+        total: SsRow {
+            df: n - 1,
+            ss: k.ss_total,
+        },
+        ss_type: SsType::Sequential,
+        method: PermutationMethod::Labels,
+        permutations: res.permutations,
+        exact: res.exact,
+        seed: res.seed,
+        scheme: res.scheme,
+    })
+}
+
+/// `R G R` with `R = I - Q Q'` (the centred matrix of residuals under a reduced model).
+fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
+    let gq = g * q;
+    let qgq = q.transpose() * &gq;
+    let mut out = g - q * gq.transpose() - &gq * q.transpose();
+    out += q * qgq * q.transpose();
+    out
+}
+
+/// Freedman–Lane statistic of one term: G_R, bases, df.
+struct PartialTerm<'a> {
+    gr: DMatrix<f64>,
+    full: &'a Basis,
+    k_reduced: usize,
+    df_term: usize,
+    df_resid: usize,
+}
+
+impl PartialTerm<'_> {
+    fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
+        let n = self.gr.nrows();
+        let q = self.full.q();
+        let kf = q.ncols();
+        let tr = self.gr.trace();
+        let sub = 32;
+        for (pc, oc) in perms.chunks(sub * n).zip(out.chunks_mut(sub)) {
+            let m = oc.len();
+            // w_c[perm[i]] = q_c[i]: tr(H P G_R P') = Σ_c w_c' G_R w_c.
+            let mut w = DMatrix::<f64>::zeros(n, kf * m);
+            for p in 0..m {
+                let perm = &pc[p * n..(p + 1) * n];
+                for c in 0..kf {
+                    let mut col = w.column_mut(p * kf + c);
+                    for (i, &src) in perm.iter().enumerate() {
+                        col[src] = q[(i, c)];
+                    }
+                }
+            }
+            let gw = &self.gr * &w;
+            for (p, o) in oc.iter_mut().enumerate() {
+                let mut s_all = 0.0;
+                let mut s_term = 0.0;
+                for c in 0..kf {
+                    let v = w.column(p * kf + c).dot(&gw.column(p * kf + c));
+                    s_all += v;
+                    if c >= self.k_reduced {
+                        s_term += v;
+                    }
+                }
+                *o = (s_term / self.df_term as f64) / ((tr - s_all) / self.df_resid as f64);
+            }
+        }
+    }
+}
+
+/// Multi-term PERMANOVA through the distance-based linear model (McArdle & Anderson
+/// 2001; METHODS.md §5.2, §7.2-7.3). Each term is tested against its reduced model
+/// (terms before it, or all others when marginal) by permuting residuals under that
+/// reduced model: `G_R = R_r G R_r`, `F* = [tr((H_f - H_r) G*)/df] / [tr((I - H_f) G*)/df_res]`
+/// with `G* = P G_R P'`, permutations restricted by `opts.scheme`.
+///
+/// # Errors
+/// As [`linear_model::anova_table`], the permuter and [`permutation::permutation_test`].
+pub fn permanova(
+    d: &DistanceMatrix,
+    design: &Design,
+    opts: &PermanovaOptions,
+    progress: Option<Progress<'_>>,
+) -> Result<PermanovaResult, AnalysisError> {
+    let n = d.n();
+    if design.n() != n {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: design.n(),
+        });
+    }
+    let g = gower_centre(d);
+    let table = linear_model::anova_table(&g, design, opts.ss_type)?;
+    let bases = linear_model::term_bases(design, opts.ss_type)?;
+    let permuter = Permuter::new(n, &opts.scheme, None)?;
+    let popts = PermutationOptions {
+        permutations: opts.permutations,
+        seed: opts.seed,
+    };
+    let mut terms = Vec::with_capacity(bases.len());
+    let mut results: Vec<PermutationResult> = Vec::new();
+    for (row, (red, full)) in table.terms.iter().zip(&bases) {
+        let pt = PartialTerm {
+            gr: residualise(&g, red.q()),
+            full,
+            k_reduced: red.rank(),
+            df_term: full.rank() - red.rank(),
+            df_resid: table.residual.df,
+        };
+        let identity: Vec<usize> = (0..n).collect();
+        let mut obs = [0.0];
+        pt.f_batch(&identity, &mut obs);
+        let stat = |perms: &[usize], out: &mut [f64]| pt.f_batch(perms, out);
+        let res = permutation::permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
+        terms.push(TermTest {
+            name: row.name.clone(),
+            df: row.df,
+            ss: row.ss,
+            r2: row.r2,
+            pseudo_f: row.pseudo_f,
+            p_value: res.p_value,
+            permutations: res.permutations,
+            exact: res.exact,
+            min_p: res.min_p,
+        });
+        results.push(res);
+    }
+    Ok(PermanovaResult {
+        terms,
+        residual: table.residual,
+        total: table.total,
+        ss_type: opts.ss_type,
+        method: PermutationMethod::FreedmanLane,
+        permutations: results.iter().map(|r| r.permutations).max().unwrap_or(0),
+        exact: results.iter().all(|r| r.exact),
+        seed: opts.seed,
+        scheme: permuter.scheme().describe(),
+    })
+}
+
+/// One pairwise comparison.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PairTest {
+    /// First group.
+    pub a: String,
+    /// Second group.
+    pub b: String,
+    /// Samples in a and in b.
+    pub n: (usize, usize),
+    /// Pseudo-F of the two-group PERMANOVA.
+    pub pseudo_f: f64,
+    /// R² of the two-group PERMANOVA.
+    pub r2: f64,
+    /// Unadjusted permutation p-value.
+    pub p_value: f64,
+    /// Holm-adjusted p-value over all pairs.
+    pub p_holm: f64,
+    /// Benjamini–Hochberg-adjusted p-value over all pairs.
+    pub p_bh: f64,
+    /// Permutations evaluated.
+    pub permutations: usize,
+    /// Exactly enumerated.
+    pub exact: bool,
+    /// Smallest attainable p-value for this pair.
+    pub min_p: f64,
+}
+
+/// PERMANOVA for every pair of groups on the sub-matrix of D (D is computed once on the
+/// full data and subset, METHODS.md §2, §7.6), with Holm and BH adjustment.
+///
+/// # Errors
+/// As [`permanova_oneway`] for each pair (e.g. a pair with only 2 samples is saturated).
+pub fn pairwise(
+    d: &DistanceMatrix,
+    groups: &Grouping,
+    opts: &PermanovaOptions,
+    progress: Option<Progress<'_>>,
+) -> Result<Vec<PairTest>, AnalysisError> {
+    check_groups(groups, d.n())?;
+    let a = groups.n_groups();
+    let mut out = Vec::new();
+    for x in 0..a {
+        for y in (x + 1)..a {
+            let idx: Vec<usize> = (0..d.n())
+                .filter(|&i| groups.codes()[i] == x || groups.codes()[i] == y)
+                .collect();
+            let sub = d.subset(&idx);
+            let sg = groups.subset(&idx);
+            let sopts = PermanovaOptions {
+                scheme: opts.scheme.subset(&idx),
+                ..opts.clone()
+            };
+            let r = permanova_oneway(&sub, &sg, &sopts, progress)?;
+            let sizes = sg.sizes();
+            let t = &r.terms[0];
+            out.push(PairTest {
+                a: groups.levels()[x].clone(),
+                b: groups.levels()[y].clone(),
+                n: (sizes[0], sizes[1]),
+                pseudo_f: t.pseudo_f,
+                r2: t.r2,
+                p_value: t.p_value,
+                p_holm: 0.0,
+                p_bh: 0.0,
+                permutations: t.permutations,
+                exact: t.exact,
+                min_p: t.min_p,
+            });
+        }
+    }
+    let p: Vec<f64> = out.iter().map(|t| t.p_value).collect();
+    for ((t, h), b) in out
+        .iter_mut()
+        .zip(permutation::holm(&p))
+        .zip(permutation::benjamini_hochberg(&p))
+    {
+        t.p_holm = h;
+        t.p_bh = b;
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::linear_model::{Term, TermSpec};
+
+    /// The toy community of METHODS.md §11.2 (B).
+    const TOY: [[f64; 6]; 10] = [
+        [12., 5., 0., 3., 1., 0.],
+        [20., 8., 1., 5., 0., 2.],
+        [9., 4., 0., 1., 2., 0.],
+        [15., 6., 2., 4., 1., 1.],
+        [30., 12., 1., 7., 3., 0.],
+        [3., 2., 8., 1., 9., 4.],
+        [1., 4., 12., 0., 6., 7.],
+        [5., 1., 6., 2., 11., 3.],
+        [2., 3., 15., 1., 8., 9.],
+        [0., 2., 5., 0., 4., 2.],
+    ];
+
+    /// Bray-Curtis, `Σ|y_i - y_k| / Σ(y_i + y_k)` (Bray & Curtis 1957), local to the tests.
+    pub(crate) fn bray_curtis(rows: &[Vec<f64>]) -> DistanceMatrix {
+        DistanceMatrix::from_fn(rows.len(), |i, k| {
+            let num: f64 = rows[i]
+                .iter()
+                .zip(&rows[k])
+                .map(|(a, b)| (a - b).abs())
+                .sum();
+            let den: f64 = rows[i].iter().zip(&rows[k]).map(|(a, b)| a + b).sum();
+            num / den
+        })
+        .unwrap()
+    }
+
+    fn toy() -> (DistanceMatrix, Grouping) {
+        let rows: Vec<Vec<f64>> = TOY.iter().map(|r| r.to_vec()).collect();
+        let labels: Vec<&str> = (0..10).map(|i| if i < 5 { "A" } else { "B" }).collect();
+        (bray_curtis(&rows), Grouping::from_labels(&labels))
+    }
+
+    fn opts(permutations: usize, scheme: Scheme) -> PermanovaOptions {
+        PermanovaOptions {
+            permutations,
+            seed: 1,
+            scheme,
+            ss_type: SsType::Sequential,
+        }
+    }
+
+    #[test]
+    fn toy_community_worked_example() {
+        // METHODS.md §11.2 (B): SS_T = 1.521270838, SS_W = 0.463061118, F = 18.281987915,
+        // R² = 0.695609022; exact enumeration over C(10,5) = 252 labelings gives 2
+        // statistics >= F, p = 2/252 = 0.0079365.
+        let (d, g) = toy();
+        let r = permanova_oneway(&d, &g, &opts(999, Scheme::Free), None).unwrap();
+        assert!((r.total.ss - 1.521270838).abs() < 1e-8);
+        assert!((r.residual.ss - 0.463061118).abs() < 1e-8);
+        assert!((r.terms[0].pseudo_f - 18.281987915).abs() < 1e-8);
+        assert!((r.terms[0].r2 - 0.695609022).abs() < 1e-8);
+        assert!(r.exact);
+        assert_eq!(r.permutations, 252);
+        assert!((r.terms[0].p_value - 2.0 / 252.0).abs() < 1e-12);
+        // Same F by the trace route of the linear model (METHODS.md §7.1).
+        let design =
+            Design::new(10, vec![Term::new("groups", TermSpec::Factor(g.clone()))]).unwrap();
+        let r2 = permanova(&d, &design, &opts(999, Scheme::Free), None).unwrap();
+        assert!((r2.terms[0].pseudo_f - 18.281987915).abs() < 1e-8);
+        // The general path permutes samples (10! > 999 arrangements), so it is random:
+        // b ~ Binomial(999, 2/252), mean 7.9, and P(b >= 24) < 1e-5 (scipy.stats.binom.sf(23,
+        // 999, 2/252) = 2.8e-6), so p = (b+1)/1000 < 0.025 unless the test is wrong.
+        assert!(!r2.exact);
+        assert!(r2.terms[0].p_value < 0.025);
+    }
+
+    /// Brute force: every assignment of 3 samples to group A among 6, F computed from
+    /// the formulas directly, compared with the engine's exact mode.
+    #[test]
+    fn exact_three_plus_three_matches_brute_force() {
+        let rows: Vec<Vec<f64>> = TOY[2..8].iter().map(|r| r.to_vec()).collect();
+        let d = bray_curtis(&rows);
+        let f = |ina: &[bool]| {
+            let n = 6.0;
+            let mut sst = 0.0;
+            let mut ssw = 0.0;
+            for i in 0..6 {
+                for k in (i + 1)..6 {
+                    let v = d.get(i, k).powi(2);
+                    sst += v / n;
+                    if ina[i] == ina[k] {
+                        ssw += v / 3.0;
+                    }
+                }
+            }
+            (sst - ssw) / (ssw / 4.0)
+        };
+        let obs_lab = [true, true, true, false, false, false];
+        let obs = f(&obs_lab);
+        let mut count = 0;
+        let mut total = 0;
+        for mask in 0u32..64 {
+            if mask.count_ones() != 3 {
+                continue;
+            }
+            let lab: Vec<bool> = (0..6).map(|i| mask & (1 << i) != 0).collect();
+            total += 1;
+            if f(&lab) >= obs * (1.0 - 1e-9) {
+                count += 1;
+            }
+        }
+        assert_eq!(total, 20);
+        let g = Grouping::from_labels(&["a", "a", "a", "b", "b", "b"]);
+        let r = permanova_oneway(&d, &g, &opts(99, Scheme::Free), None).unwrap();
+        assert!(r.exact);
+        assert_eq!(r.permutations, 20);
+        assert!((r.terms[0].pseudo_f - obs).abs() < 1e-10);
+        assert!((r.terms[0].p_value - count as f64 / 20.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn random_permutations_give_plus_one_p_and_agree_between_paths() {
+        let (d, g) = toy();
+        let o = opts(99, Scheme::Free);
+        let r = permanova_oneway(&d, &g, &o, None).unwrap();
+        // 252 distinct > 99 requested: random, p = (b+1)/(P+1) >= 1/100.
+        assert!(!r.exact);
+        assert_eq!(r.permutations, 99);
+        assert!(r.terms[0].p_value >= 0.01 && r.terms[0].p_value <= 0.2);
+        let design = Design::new(10, vec![Term::new("g", TermSpec::Factor(g))]).unwrap();
+        let r2 = permanova(&d, &design, &o, None).unwrap();
+        // Same seed, same permutations, same F for each: the two paths give the same p.
+        assert_eq!(r.terms[0].p_value, r2.terms[0].p_value);
+    }
+
+    #[test]
+    fn pairwise_reports_adjusted_p_values() {
+        let rows: Vec<Vec<f64>> = TOY
+            .iter()
+            .chain(TOY[..5].iter())
+            .map(|r| r.to_vec())
+            .collect();
+        let labels: Vec<&str> = (0..15).map(|i| ["A", "B", "C"][i / 5]).collect();
+        let d = bray_curtis(&rows);
+        let g = Grouping::from_labels(&labels);
+        let p = pairwise(&d, &g, &opts(99, Scheme::Free), None).unwrap();
+        assert_eq!(p.len(), 3);
+        let raw: Vec<f64> = p.iter().map(|t| t.p_value).collect();
+        let holm = permutation::holm(&raw);
+        for (t, h) in p.iter().zip(holm) {
+            assert_eq!(t.p_holm, h);
+            assert!(t.p_bh <= t.p_holm + 1e-15);
+        }
+        // A vs C are identical samples: F = 0.
+        assert!(p[1].pseudo_f.abs() < 1e-12);
+        assert_eq!((p[0].a.as_str(), p[0].b.as_str()), ("A", "B"));
+    }
+
+    #[test]
+    fn errors() {
+        let (d, _) = toy();
+        let one = Grouping::from_labels(&["a"; 10]);
+        assert_eq!(
+            permanova_oneway(&d, &one, &opts(9, Scheme::Free), None).err(),
+            Some(AnalysisError::TooFewGroups { found: 1, min: 2 })
+        );
+    }
+}
