@@ -20,7 +20,10 @@ impl DistanceMatrix {
     pub fn from_condensed(n: usize, data: Vec<f64>) -> Result<Self, AnalysisError> {
         let expected = n * n.saturating_sub(1) / 2;
         if data.len() != expected {
-            return Err(AnalysisError::DimensionMismatch { expected, found: data.len() });
+            return Err(AnalysisError::DimensionMismatch {
+                expected,
+                found: data.len(),
+            });
         }
         let dm = DistanceMatrix { n, data };
         for i in 0..n {
@@ -41,7 +44,10 @@ impl DistanceMatrix {
     ///
     /// # Errors
     /// As [`DistanceMatrix::from_condensed`].
-    pub fn from_fn(n: usize, mut f: impl FnMut(usize, usize) -> f64) -> Result<Self, AnalysisError> {
+    pub fn from_fn(
+        n: usize,
+        mut f: impl FnMut(usize, usize) -> f64,
+    ) -> Result<Self, AnalysisError> {
         let mut data = Vec::with_capacity(n * n.saturating_sub(1) / 2);
         for i in 0..n {
             for j in (i + 1)..n {
@@ -93,7 +99,9 @@ impl DistanceMatrix {
 
     /// The full square matrix, row by row.
     pub fn to_square(&self) -> Vec<Vec<f64>> {
-        (0..self.n).map(|i| (0..self.n).map(|j| self.get(i, j)).collect()).collect()
+        (0..self.n)
+            .map(|i| (0..self.n).map(|j| self.get(i, j)).collect())
+            .collect()
     }
 }
 

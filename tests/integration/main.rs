@@ -1,3 +1,3 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
-mod util;
 mod store_cli;
+mod util;
