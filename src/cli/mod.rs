@@ -12,6 +12,9 @@ use crate::report::OutputFormat;
 use crate::store::Store;
 
 pub mod init;
+pub mod matrix;
+pub mod selection;
+pub mod selections;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -52,6 +55,10 @@ impl From<FormatArg> for OutputFormat {
 pub enum Command {
     /// Create an empty store.
     Init(init::Args),
+    /// The assembled count matrix of a selection.
+    Matrix(matrix::Args),
+    /// Saved selections: save, list, show, delete.
+    Selections(selections::Args),
 }
 
 /// Run a parsed command line.
@@ -63,6 +70,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
     let mut out = std::io::BufWriter::new(stdout.lock());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &cli.db, &mut out),
+        Command::Matrix(args) => matrix::run(args, &open_store(&cli.db)?, &mut out),
+        Command::Selections(args) => selections::run(args, &mut open_store(&cli.db)?, &mut out),
     };
     result?;
     out.flush()?;
