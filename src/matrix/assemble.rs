@@ -547,3 +547,101 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         notes,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ev(id: i64, site: &str, date: &str) -> EventRecord {
+        EventRecord {
+            id,
+            code: format!("e{id}"),
+            site: site.into(),
+            date: date.into(),
+            protocol: "kick".into(),
+            effort: 1.0,
+            effort_unit: "minutes".into(),
+        }
+    }
+
+    fn taxon(id: i64, name: &str, parent: Option<i64>, accepted: Option<i64>) -> TaxonRecord {
+        TaxonRecord {
+            id,
+            name: name.into(),
+            rank: "genus".into(),
+            parent_id: parent,
+            accepted_id: accepted,
+        }
+    }
+
+    #[test]
+    fn seasons_follow_the_documented_calendar() {
+        // Meteorological seasons: Dec-Feb winter, belonging to the December's year.
+        assert_eq!(season_of(2016, 1, None), (2015, "winter".into(), 3));
+        assert_eq!(season_of(2016, 12, None), (2016, "winter".into(), 3));
+        assert_eq!(season_of(2016, 3, None), (2016, "spring".into(), 0));
+        assert_eq!(season_of(2016, 11, None), (2016, "autumn".into(), 2));
+        // A window 11..2 wraps: February 2017 belongs to the season begun in November 2016.
+        assert_eq!(season_of(2017, 2, Some((11, 2))).0, 2016);
+        assert_eq!(season_of(2016, 11, Some((11, 2))).0, 2016);
+        assert_eq!(season_of(2016, 5, Some((4, 5))), (2016, "04..05".into(), 0));
+    }
+
+    #[test]
+    fn synonym_chains_are_followed_and_cycles_refused() {
+        // C is a synonym of B, itself a synonym of A: counts of C and B land on A.
+        let records = Records {
+            events: vec![ev(1, "S", "2020-05-01")],
+            counts: vec![
+                CountRecord {
+                    event_id: 1,
+                    taxon_id: 3,
+                    value: 2.0,
+                },
+                CountRecord {
+                    event_id: 1,
+                    taxon_id: 2,
+                    value: 1.0,
+                },
+                CountRecord {
+                    event_id: 1,
+                    taxon_id: 1,
+                    value: 4.0,
+                },
+            ],
+            taxa: vec![
+                taxon(1, "A", None, None),
+                taxon(2, "B", None, Some(1)),
+                taxon(3, "C", None, Some(2)),
+            ],
+            site_attributes: BTreeMap::new(),
+        };
+        let m = assemble(&records, &AssemblyOptions::default()).unwrap();
+        assert_eq!(m.taxa.len(), 1);
+        assert_eq!(m.values[(0, 0)], 7.0);
+
+        let mut looped = records.clone();
+        looped.taxa[0].accepted_id = Some(3);
+        assert!(matches!(
+            assemble(&looped, &AssemblyOptions::default()),
+            Err(MatrixError::TaxonCycle { .. })
+        ));
+    }
+
+    #[test]
+    fn bad_dates_and_no_events_are_errors() {
+        let mut r = Records {
+            events: vec![ev(1, "S", "2020-5-01")],
+            ..Default::default()
+        };
+        assert!(matches!(
+            assemble(&r, &AssemblyOptions::default()),
+            Err(MatrixError::BadDate { .. })
+        ));
+        r.events.clear();
+        assert!(matches!(
+            assemble(&r, &AssemblyOptions::default()),
+            Err(MatrixError::Empty { .. })
+        ));
+    }
+}

@@ -279,3 +279,90 @@ impl CountMatrix {
         h.finalize().iter().map(|b| format!("{b:02x}")).collect()
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn matrix(labels: &[String], taxa: &[String], values: &[Vec<f64>]) -> CountMatrix {
+        let samples = labels
+            .iter()
+            .map(|l| SampleMeta {
+                label: l.clone(),
+                site: String::new(),
+                attributes: BTreeMap::new(),
+                year: 2000,
+                last_year: 2000,
+                season: None,
+                first_date: String::new(),
+                last_date: String::new(),
+                events_pooled: 1,
+                effort: 1.0,
+                effort_unit: String::new(),
+                protocol: String::new(),
+            })
+            .collect();
+        let taxa = taxa
+            .iter()
+            .map(|t| TaxonMeta {
+                name: t.clone(),
+                rank: String::new(),
+            })
+            .collect();
+        let values = DMatrix::from_fn(values.len(), values[0].len(), |i, j| values[i][j]);
+        CountMatrix {
+            samples,
+            taxa,
+            values,
+            notes: vec![],
+        }
+    }
+
+    #[test]
+    fn fingerprint_matches_independent_implementation() {
+        // Expected digests written by tests/reference/matrix_fingerprint.py
+        // (Python hashlib + struct, following the layout documented in docs/matrices.md).
+        let fixture: serde_json::Value = serde_json::from_str(include_str!(
+            "../../tests/reference/matrix_fingerprint.json"
+        ))
+        .unwrap();
+        let cases = fixture["cases"].as_array().unwrap();
+        assert!(!cases.is_empty());
+        for c in cases {
+            let strings = |k: &str| -> Vec<String> {
+                c[k].as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_str().unwrap().to_string())
+                    .collect()
+            };
+            let values: Vec<Vec<f64>> = c["values"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|r| {
+                    r.as_array()
+                        .unwrap()
+                        .iter()
+                        .map(|v| v.as_f64().unwrap())
+                        .collect()
+                })
+                .collect();
+            let m = matrix(&strings("labels"), &strings("taxa"), &values);
+            assert_eq!(m.fingerprint(), c["fingerprint"].as_str().unwrap());
+        }
+    }
+
+    #[test]
+    fn fingerprint_separates_labels_taxa_and_signed_zero() {
+        let s = |v: &[&str]| v.iter().map(|x| x.to_string()).collect::<Vec<_>>();
+        let base = matrix(&s(&["a", "b"]), &s(&["x"]), &[vec![1.0], vec![0.0]]);
+        let neg_zero = matrix(&s(&["a", "b"]), &s(&["x"]), &[vec![1.0], vec![-0.0]]);
+        assert_eq!(base.fingerprint(), neg_zero.fingerprint());
+        // Length prefixes keep "ab"+"" apart from "a"+"b".
+        let shifted = matrix(&s(&["ab", ""]), &s(&["x"]), &[vec![1.0], vec![0.0]]);
+        assert_ne!(base.fingerprint(), shifted.fingerprint());
+        let renamed = matrix(&s(&["a", "b"]), &s(&["y"]), &[vec![1.0], vec![0.0]]);
+        assert_ne!(base.fingerprint(), renamed.fingerprint());
+    }
+}
