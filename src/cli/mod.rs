@@ -17,6 +17,9 @@ pub mod check;
 pub mod import;
 pub mod init;
 pub mod summary;
+pub mod matrix;
+pub mod selection;
+pub mod selections;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -67,6 +70,10 @@ pub enum Command {
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
     Backup(backup::Args),
+    /// The assembled count matrix of a selection.
+    Matrix(matrix::Args),
+    /// Saved selections: save, list, show, delete.
+    Selections(selections::Args),
 }
 
 /// Run a parsed command line.
@@ -85,6 +92,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Summary(args) => summary::run(args, &mut open_store(&cli.db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&cli.db)?, &mut out),
         Command::Backup(args) => backup::run(args, &mut open_store(&cli.db)?, &mut out),
+        Command::Matrix(args) => matrix::run(args, &open_store(&cli.db)?, &mut out),
+        Command::Selections(args) => selections::run(args, &mut open_store(&cli.db)?, &mut out),
     };
     result?;
     out.flush()?;

@@ -3,26 +3,72 @@
 //! A [`CountMatrix`] is what every analysis starts from: one row per sample
 //! (an event, or events pooled per site and period), one column per taxon,
 //! plus the metadata that `--by`, `--strata` and `--covariate` fields name.
-//! Nothing here speaks SQL: the store hands over plain rows.
+//! Nothing here speaks SQL: the store hands over plain rows
+//! ([`assemble::Records`]) and [`assemble::assemble`] builds the matrix.
+//!
+//! This module owns the matrix types, the unit of a row ([`Unit`]), the one
+//! place where a field name resolves to per-row values
+//! ([`CountMatrix::field_values`], [`CountMatrix::field_numeric`]) and the
+//! matrix fingerprint ([`CountMatrix::fingerprint`]).
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, BTreeSet};
 
 use nalgebra::DMatrix;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+pub mod assemble;
+pub mod error;
+
+pub use error::MatrixError;
+
+/// What one row of a matrix is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Unit {
+    /// One sampling event per row.
+    #[default]
+    Event,
+    /// Events pooled per site and (season) year.
+    SiteYear,
+    /// Events pooled per site, season year and season.
+    SiteSeason,
+    /// Events pooled per site over the whole selection.
+    Site,
+}
+
+impl Unit {
+    /// The name used on the command line and in JSON (`event`, `site-year`, …).
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Unit::Event => "event",
+            Unit::SiteYear => "site-year",
+            Unit::SiteSeason => "site-season",
+            Unit::Site => "site",
+        }
+    }
+}
 
 /// Metadata carried with every row of a count matrix.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SampleMeta {
-    /// Row label: the event code with `--unit event`, otherwise site and period (`S07/2016`).
+    /// Row label: the event code with `--unit event`, otherwise site and period
+    /// (`S07/2016`, `S07/2016-spring`, `S07/2016-04..05`, or `S07` for `--unit site`).
     pub label: String,
     /// Site code.
     pub site: String,
     /// Site attributes (habitat, reach, …), key → value.
     pub attributes: BTreeMap<String, String>,
-    /// Calendar year of the sample (for season windows that wrap the year end:
-    /// the year in which the season began).
+    /// Year of the sample: the calendar year, except that with a `--months`
+    /// window wrapping the year end (and for meteorological winter in
+    /// `site-season` rows) it is the year in which the season began. For rows
+    /// pooling several years (`--unit site`) the first of them.
     pub year: i32,
-    /// Season label, for season units (e.g. `2016-04..05`), else `None`.
+    /// Last year pooled into the row (equal to `year` except for `--unit site`).
+    pub last_year: i32,
+    /// Season name without the year: `spring`, `summer`, `autumn`, `winter`
+    /// (meteorological seasons) or the `--months` window (`04..05`). `None` for
+    /// rows that pool several seasons (`site-year` or `site` without a window).
     pub season: Option<String>,
     /// First event date (ISO 8601).
     pub first_date: String,
@@ -30,9 +76,9 @@ pub struct SampleMeta {
     pub last_date: String,
     /// Number of events pooled into this row.
     pub events_pooled: usize,
-    /// Total effort of the pooled events.
+    /// Total effort of the pooled events (NaN when units differ within the row).
     pub effort: f64,
-    /// Effort unit.
+    /// Effort unit (units joined by `+` when several were pooled).
     pub effort_unit: String,
     /// Protocol code (or codes joined by `+` when several were pooled).
     pub protocol: String,
@@ -60,11 +106,263 @@ pub struct CountMatrix {
     pub notes: Vec<String>,
 }
 
+/// Built-in field names, resolved before site attribute keys of the same name.
+pub const BUILTIN_FIELDS: &[&str] = &[
+    "label",
+    "site",
+    "year",
+    "season",
+    "protocol",
+    "effort_unit",
+    "effort",
+    "events_pooled",
+];
+
 impl CountMatrix {
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
         (0..self.values.nrows())
             .map(|i| self.values.row(i).sum())
             .collect()
+    }
+
+    /// Every field name that [`CountMatrix::field_values`] accepts for this
+    /// matrix: the built-in fields, then site attribute keys in byte order.
+    pub fn field_names(&self) -> Vec<String> {
+        let mut names: Vec<String> = BUILTIN_FIELDS.iter().map(|s| s.to_string()).collect();
+        let keys: BTreeSet<&String> = self
+            .samples
+            .iter()
+            .flat_map(|s| s.attributes.keys())
+            .collect();
+        for k in keys {
+            if !BUILTIN_FIELDS.contains(&k.as_str()) {
+                names.push(k.clone());
+            }
+        }
+        names
+    }
+
+    /// Per-row values of a field, as text: `label`, `site`, `year`, `season`,
+    /// `protocol`, `effort_unit`, `effort`, `events_pooled`, or a site
+    /// attribute key (built-in names win over attribute keys of the same name).
+    /// This is the one place where `--by`, `--strata` and `--covariate` names
+    /// are resolved.
+    ///
+    /// # Errors
+    /// [`MatrixError::UnknownField`] (listing the available fields) for an
+    /// unknown name; [`MatrixError::FieldUnavailable`] when the field is not
+    /// defined for some row (a season on rows pooling seasons, a year on rows
+    /// pooling years, a site attribute missing for a site).
+    pub fn field_values(&self, name: &str) -> Result<Vec<String>, MatrixError> {
+        let unavailable = |label: &str, why: &str| MatrixError::FieldUnavailable {
+            field: name.to_string(),
+            label: label.to_string(),
+            why: why.to_string(),
+        };
+        let mut out = Vec::with_capacity(self.samples.len());
+        for s in &self.samples {
+            let v = match name {
+                "label" => s.label.clone(),
+                "site" => s.site.clone(),
+                "year" => {
+                    if s.year != s.last_year {
+                        return Err(unavailable(
+                            &s.label,
+                            "the row pools several years (choose a unit with one year per row)",
+                        ));
+                    }
+                    s.year.to_string()
+                }
+                "season" => match &s.season {
+                    Some(v) => v.clone(),
+                    None => {
+                        return Err(unavailable(
+                            &s.label,
+                            "the row pools several seasons (use --unit event or site-season, or a --months window)",
+                        ));
+                    }
+                },
+                "protocol" => s.protocol.clone(),
+                "effort_unit" => s.effort_unit.clone(),
+                "effort" => s.effort.to_string(),
+                "events_pooled" => s.events_pooled.to_string(),
+                key => match s.attributes.get(key) {
+                    Some(v) => v.clone(),
+                    None if self.field_names().iter().any(|n| n == key) => {
+                        return Err(unavailable(
+                            &s.label,
+                            &format!("site {} has no attribute '{key}'", s.site),
+                        ));
+                    }
+                    None => {
+                        return Err(MatrixError::UnknownField {
+                            name: key.to_string(),
+                            available: self.field_names(),
+                        });
+                    }
+                },
+            };
+            out.push(v);
+        }
+        if self.samples.is_empty() && !self.field_names().iter().any(|n| n == name) {
+            return Err(MatrixError::UnknownField {
+                name: name.to_string(),
+                available: self.field_names(),
+            });
+        }
+        Ok(out)
+    }
+
+    /// Per-row values of a field as numbers (for covariates): `year`, `effort`,
+    /// `events_pooled`, or a site attribute whose every value parses as a
+    /// finite number.
+    ///
+    /// # Errors
+    /// Those of [`CountMatrix::field_values`], and
+    /// [`MatrixError::NotNumeric`] naming the first row whose value is not a
+    /// finite number.
+    pub fn field_numeric(&self, name: &str) -> Result<Vec<f64>, MatrixError> {
+        let text = self.field_values(name)?;
+        text.iter()
+            .zip(&self.samples)
+            .map(|(v, s)| match v.trim().parse::<f64>() {
+                Ok(x) if x.is_finite() => Ok(x),
+                _ => Err(MatrixError::NotNumeric {
+                    field: name.to_string(),
+                    label: s.label.clone(),
+                    value: v.clone(),
+                }),
+            })
+            .collect()
+    }
+
+    /// SHA-256 (lowercase hex) of a canonical serialisation of the row labels,
+    /// the taxon names and the values, equal for equal matrices on any machine.
+    ///
+    /// The bytes hashed are, in order: the ASCII tag `tally-matrix-v1`; the
+    /// number of rows and of columns as u64 little-endian; each row label and
+    /// then each taxon name as its UTF-8 byte length (u64 little-endian)
+    /// followed by its bytes; every value in row-major order as the IEEE-754
+    /// bit pattern of the f64 (u64 little-endian), with `-0.0` written as
+    /// `0.0` and every NaN as the bit pattern `0x7ff8000000000000`. Metadata
+    /// other than labels (dates, effort, attributes) and the notes are not
+    /// hashed. Documented in `docs/matrices.md`.
+    pub fn fingerprint(&self) -> String {
+        let mut h = Sha256::new();
+        h.update(b"tally-matrix-v1");
+        h.update((self.values.nrows() as u64).to_le_bytes());
+        h.update((self.values.ncols() as u64).to_le_bytes());
+        let mut text = |s: &str| {
+            h.update((s.len() as u64).to_le_bytes());
+            h.update(s.as_bytes());
+        };
+        for s in &self.samples {
+            text(&s.label);
+        }
+        for t in &self.taxa {
+            text(&t.name);
+        }
+        for i in 0..self.values.nrows() {
+            for j in 0..self.values.ncols() {
+                let v = self.values[(i, j)];
+                let bits = if v.is_nan() {
+                    0x7ff8_0000_0000_0000_u64
+                } else if v == 0.0 {
+                    0
+                } else {
+                    v.to_bits()
+                };
+                h.update(bits.to_le_bytes());
+            }
+        }
+        h.finalize().iter().map(|b| format!("{b:02x}")).collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn matrix(labels: &[String], taxa: &[String], values: &[Vec<f64>]) -> CountMatrix {
+        let samples = labels
+            .iter()
+            .map(|l| SampleMeta {
+                label: l.clone(),
+                site: String::new(),
+                attributes: BTreeMap::new(),
+                year: 2000,
+                last_year: 2000,
+                season: None,
+                first_date: String::new(),
+                last_date: String::new(),
+                events_pooled: 1,
+                effort: 1.0,
+                effort_unit: String::new(),
+                protocol: String::new(),
+            })
+            .collect();
+        let taxa = taxa
+            .iter()
+            .map(|t| TaxonMeta {
+                name: t.clone(),
+                rank: String::new(),
+            })
+            .collect();
+        let values = DMatrix::from_fn(values.len(), values[0].len(), |i, j| values[i][j]);
+        CountMatrix {
+            samples,
+            taxa,
+            values,
+            notes: vec![],
+        }
+    }
+
+    #[test]
+    fn fingerprint_matches_independent_implementation() {
+        // Expected digests written by tests/reference/matrix_fingerprint.py
+        // (Python hashlib + struct, following the layout documented in docs/matrices.md).
+        let fixture: serde_json::Value = serde_json::from_str(include_str!(
+            "../../tests/reference/matrix_fingerprint.json"
+        ))
+        .unwrap();
+        let cases = fixture["cases"].as_array().unwrap();
+        assert!(!cases.is_empty());
+        for c in cases {
+            let strings = |k: &str| -> Vec<String> {
+                c[k].as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_str().unwrap().to_string())
+                    .collect()
+            };
+            let values: Vec<Vec<f64>> = c["values"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|r| {
+                    r.as_array()
+                        .unwrap()
+                        .iter()
+                        .map(|v| v.as_f64().unwrap())
+                        .collect()
+                })
+                .collect();
+            let m = matrix(&strings("labels"), &strings("taxa"), &values);
+            assert_eq!(m.fingerprint(), c["fingerprint"].as_str().unwrap());
+        }
+    }
+
+    #[test]
+    fn fingerprint_separates_labels_taxa_and_signed_zero() {
+        let s = |v: &[&str]| v.iter().map(|x| x.to_string()).collect::<Vec<_>>();
+        let base = matrix(&s(&["a", "b"]), &s(&["x"]), &[vec![1.0], vec![0.0]]);
+        let neg_zero = matrix(&s(&["a", "b"]), &s(&["x"]), &[vec![1.0], vec![-0.0]]);
+        assert_eq!(base.fingerprint(), neg_zero.fingerprint());
+        // Length prefixes keep "ab"+"" apart from "a"+"b".
+        let shifted = matrix(&s(&["ab", ""]), &s(&["x"]), &[vec![1.0], vec![0.0]]);
+        assert_ne!(base.fingerprint(), shifted.fingerprint());
+        let renamed = matrix(&s(&["a", "b"]), &s(&["y"]), &[vec![1.0], vec![0.0]]);
+        assert_ne!(base.fingerprint(), renamed.fingerprint());
     }
 }

@@ -63,6 +63,16 @@ pub enum StoreError {
     /// An operation was refused, with the reason.
     #[error("{0}")]
     Refused(String),
+    /// A selection matched no event; names the filter after which none was left.
+    #[error(
+        "the selection is empty: no events left after {filter} ({matched_before} event(s) matched before it)"
+    )]
+    EmptySelection {
+        /// The flag as written (`--site-where reach=lower`), or `(none)` when the store has no events.
+        filter: String,
+        /// Events matching the filters before this one (all events for the first filter).
+        matched_before: usize,
+    },
     /// I/O on an input file.
     #[error("reading {file}: {source}")]
     Io {

@@ -15,8 +15,13 @@ pub mod import;
 pub mod maintenance;
 pub(crate) mod sheet;
 pub mod summary;
+pub mod query;
+pub mod selections;
+#[doc(hidden)]
+pub mod testing;
 
 pub use error::{Result, RowIssue, StoreError};
+pub use query::Selection;
 
 mod embedded {
     refinery::embed_migrations!("migrations");

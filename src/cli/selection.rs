@@ -1,0 +1,217 @@
+//! The SELECTION flags shared by every analysis command, their resolution
+//! against saved selections, and the one helper that turns a selection into a
+//! count matrix (printing the assembly notes on stderr).
+
+use anyhow::Context;
+use clap::ValueEnum;
+
+use crate::matrix::assemble::assemble;
+use crate::matrix::{CountMatrix, Unit};
+use crate::store::{Selection, Store};
+
+/// What one row of the matrix is (command-line spelling of [`Unit`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum UnitArg {
+    /// One sampling event per row.
+    Event,
+    /// Events pooled per site and (season) year.
+    SiteYear,
+    /// Events pooled per site and season.
+    SiteSeason,
+    /// Events pooled per site.
+    Site,
+}
+
+impl From<UnitArg> for Unit {
+    fn from(u: UnitArg) -> Self {
+        match u {
+            UnitArg::Event => Unit::Event,
+            UnitArg::SiteYear => Unit::SiteYear,
+            UnitArg::SiteSeason => Unit::SiteSeason,
+            UnitArg::Site => Unit::Site,
+        }
+    }
+}
+
+/// SELECTION flags: which events, and what one row of the matrix is.
+/// Flatten into a command with `#[command(flatten)]`.
+#[derive(Debug, Clone, Default, clap::Args)]
+#[command(next_help_heading = "Selection")]
+pub struct SelectionArgs {
+    /// Only this site (repeatable, or comma-separated).
+    #[arg(long = "site", value_name = "CODE", value_delimiter = ',')]
+    pub sites: Vec<String>,
+    /// Only sites with this attribute value (repeatable; the same key
+    /// repeated means either value, different keys must all match).
+    #[arg(long = "site-where", value_name = "KEY=VALUE", value_parser = parse_key_value)]
+    pub site_where: Vec<(String, String)>,
+    /// First date, inclusive (YYYY-MM-DD).
+    #[arg(long, value_name = "DATE")]
+    pub from: Option<String>,
+    /// Last date, inclusive (YYYY-MM-DD).
+    #[arg(long, value_name = "DATE")]
+    pub to: Option<String>,
+    /// Season years A..B, inclusive (a single year A also works).
+    #[arg(long, value_name = "A..B", value_parser = parse_year_range)]
+    pub years: Option<(i32, i32)>,
+    /// Season window: months A..B, inclusive; 11..2 wraps the year end and a
+    /// January sample belongs to the season that began in November.
+    #[arg(long, value_name = "A..B", value_parser = parse_month_range)]
+    pub months: Option<(u32, u32)>,
+    /// Only events of this protocol.
+    #[arg(long, value_name = "CODE")]
+    pub protocol: Option<String>,
+    /// Roll taxa up the parent chain to this rank.
+    #[arg(long, value_name = "RANK")]
+    pub rank: Option<String>,
+    /// Drop taxa present in fewer than N rows.
+    #[arg(long, value_name = "N")]
+    pub min_occurrences: Option<usize>,
+    /// What one row of the matrix is [default: event].
+    #[arg(long, value_enum)]
+    pub unit: Option<UnitArg>,
+    /// Divide pooled counts by pooled effort.
+    #[arg(long)]
+    pub per_effort: bool,
+    /// Keep rows with no organisms (dropped with a warning otherwise).
+    #[arg(long)]
+    pub keep_empty: bool,
+    /// Start from a saved selection; flags given here replace its values.
+    #[arg(long, value_name = "NAME")]
+    pub selection: Option<String>,
+}
+
+fn parse_key_value(s: &str) -> Result<(String, String), String> {
+    match s.split_once('=') {
+        Some((k, v)) if !k.trim().is_empty() => Ok((k.trim().to_string(), v.trim().to_string())),
+        _ => Err(format!("expected KEY=VALUE, got '{s}'")),
+    }
+}
+
+fn parse_range<T: std::str::FromStr + Copy>(s: &str) -> Result<(T, T), String> {
+    let num = |t: &str| {
+        t.trim()
+            .parse::<T>()
+            .map_err(|_| format!("expected A..B with whole numbers, got '{s}'"))
+    };
+    match s.split_once("..") {
+        Some((a, b)) => Ok((num(a)?, num(b)?)),
+        None => {
+            let a = num(s)?;
+            Ok((a, a))
+        }
+    }
+}
+
+fn parse_year_range(s: &str) -> Result<(i32, i32), String> {
+    let (a, b) = parse_range::<i32>(s)?;
+    if a > b {
+        return Err(format!("the first year is after the last in '{s}'"));
+    }
+    Ok((a, b))
+}
+
+fn parse_month_range(s: &str) -> Result<(u32, u32), String> {
+    let (a, b) = parse_range::<u32>(s)?;
+    if !(1..=12).contains(&a) || !(1..=12).contains(&b) {
+        return Err(format!("months are 1 to 12, got '{s}'"));
+    }
+    Ok((a, b))
+}
+
+impl SelectionArgs {
+    /// The flags given on the command line, without any saved selection.
+    pub fn explicit(&self) -> Selection {
+        Selection {
+            sites: self.sites.clone(),
+            site_where: self.site_where.clone(),
+            from: self.from.clone(),
+            to: self.to.clone(),
+            years: self.years,
+            months: self.months,
+            protocol: self.protocol.clone(),
+            rank: self.rank.clone(),
+            min_occurrences: self.min_occurrences,
+            unit: self.unit.map(Unit::from),
+            per_effort: self.per_effort,
+            keep_empty: self.keep_empty,
+        }
+    }
+
+    /// The effective selection: the saved one named by `--selection` (if
+    /// any) with the explicit flags applied over it ([`Selection::merge`]),
+    /// validated, with the unit filled in.
+    ///
+    /// # Errors
+    /// An unknown saved selection; an invalid flag value.
+    pub fn resolve(&self, store: &Store) -> anyhow::Result<Selection> {
+        let explicit = self.explicit();
+        let mut sel = match &self.selection {
+            Some(name) => {
+                let saved = store
+                    .selection(name)
+                    .with_context(|| format!("loading saved selection '{name}'"))?;
+                Selection::merge(&saved, &explicit)
+            }
+            None => explicit,
+        };
+        sel.validate()?;
+        sel.unit.get_or_insert(Unit::Event);
+        Ok(sel)
+    }
+}
+
+/// Assemble the count matrix of a resolved selection, printing its notes on stderr.
+///
+/// # Errors
+/// An empty selection (naming the filter), unknown codes, assembly errors.
+pub fn load_matrix(store: &Store, selection: &Selection) -> anyhow::Result<CountMatrix> {
+    let records = store.select_records(selection)?;
+    let matrix = assemble(&records, &selection.assembly_options())?;
+    for n in &matrix.notes {
+        super::note(n);
+    }
+    Ok(matrix)
+}
+
+/// A selection written back as command-line flags (for listings).
+pub fn flags_of(sel: &Selection) -> String {
+    let mut f: Vec<String> = Vec::new();
+    for s in &sel.sites {
+        f.push(format!("--site {s}"));
+    }
+    for (k, v) in &sel.site_where {
+        f.push(format!("--site-where {k}={v}"));
+    }
+    if let Some(d) = &sel.from {
+        f.push(format!("--from {d}"));
+    }
+    if let Some(d) = &sel.to {
+        f.push(format!("--to {d}"));
+    }
+    if let Some((a, b)) = sel.years {
+        f.push(format!("--years {a}..{b}"));
+    }
+    if let Some((a, b)) = sel.months {
+        f.push(format!("--months {a}..{b}"));
+    }
+    if let Some(p) = &sel.protocol {
+        f.push(format!("--protocol {p}"));
+    }
+    if let Some(r) = &sel.rank {
+        f.push(format!("--rank {r}"));
+    }
+    if let Some(n) = sel.min_occurrences {
+        f.push(format!("--min-occurrences {n}"));
+    }
+    if let Some(u) = sel.unit {
+        f.push(format!("--unit {}", u.as_str()));
+    }
+    if sel.per_effort {
+        f.push("--per-effort".into());
+    }
+    if sel.keep_empty {
+        f.push("--keep-empty".into());
+    }
+    f.join(" ")
+}

@@ -1,0 +1,163 @@
+//! `tally matrix` and `tally selections`, end to end, on a small store written
+//! with direct inserts. Expected matrices are worked out by hand from the rows
+//! inserted in `fixture`.
+use tally::store::Store;
+use tally::store::testing::{add_count, add_event, add_protocol, add_site, add_taxon};
+
+use crate::util::TestEnv;
+
+fn fixture() -> TestEnv {
+    let env = TestEnv::new();
+    let s = Store::create(&env.db).unwrap();
+    add_protocol(&s, "kick", "minutes").unwrap();
+    add_site(&s, "S1", &[("reach", "lower")]).unwrap();
+    add_site(&s, "S2", &[("reach", "upper")]).unwrap();
+    add_taxon(&s, "Baetis", "genus", None, None).unwrap();
+    add_taxon(&s, "Ecdyonurus", "genus", None, None).unwrap();
+    add_taxon(&s, "Oldname", "genus", None, Some("Ecdyonurus")).unwrap();
+    add_event(&s, "A1", "S1", "2019-04-02", "kick", 2.0).unwrap();
+    add_count(&s, "A1", "Baetis", 3.0).unwrap();
+    add_count(&s, "A1", "Oldname", 1.0).unwrap();
+    add_event(&s, "A2", "S1", "2019-09-10", "kick", 3.0).unwrap();
+    add_count(&s, "A2", "Ecdyonurus", 2.0).unwrap();
+    add_event(&s, "A3", "S2", "2019-04-05", "kick", 2.0).unwrap();
+    add_count(&s, "A3", "Baetis", 5.0).unwrap();
+    add_event(&s, "A4", "S2", "2020-04-06", "kick", 4.0).unwrap();
+    add_count(&s, "A4", "Baetis", 4.0).unwrap();
+    add_count(&s, "A4", "Ecdyonurus", 4.0).unwrap();
+    s.checkpoint().unwrap();
+    env
+}
+
+fn json(env: &TestEnv, args: &[&str]) -> serde_json::Value {
+    serde_json::from_str(&env.stdout(args)).expect("valid JSON")
+}
+
+#[test]
+fn matrix_json_per_site_year_per_effort() {
+    let env = fixture();
+    let args = [
+        "matrix",
+        "--unit",
+        "site-year",
+        "--per-effort",
+        "--format",
+        "json",
+    ];
+    let v = json(&env, &args);
+    let labels: Vec<&str> = v["samples"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| s["label"].as_str().unwrap())
+        .collect();
+    assert_eq!(labels, ["S1/2019", "S2/2019", "S2/2020"]);
+    assert_eq!(v["taxa"], serde_json::json!(["Baetis", "Ecdyonurus"]));
+    // S1/2019 = A1 + A2: Baetis 3, Ecdyonurus 1 (as Oldname) + 2, effort 2 + 3 = 5 minutes.
+    assert_eq!(
+        v["values"],
+        serde_json::json!([[0.6, 0.6], [2.5, 0.0], [1.0, 1.0]])
+    );
+    let s1 = &v["samples"][0];
+    assert_eq!(
+        (s1["site"].as_str(), s1["year"].as_i64()),
+        (Some("S1"), Some(2019))
+    );
+    assert_eq!(
+        (s1["events_pooled"].as_i64(), s1["effort"].as_f64()),
+        (Some(2), Some(5.0))
+    );
+    assert_eq!(s1["attributes"]["reach"], "lower");
+    let fp = v["fingerprint"].as_str().unwrap();
+    assert_eq!(fp.len(), 64);
+    assert!(
+        v["notes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|n| n.as_str().unwrap().contains("Oldname -> Ecdyonurus"))
+    );
+    // The same command on the same store gives the same fingerprint.
+    assert_eq!(json(&env, &args)["fingerprint"], fp);
+}
+
+#[test]
+fn matrix_csv_with_metadata() {
+    let env = fixture();
+    let out = env.stdout(["matrix", "--site", "S1", "--meta", "--format", "csv"]);
+    let lines: Vec<&str> = out.lines().collect();
+    assert_eq!(
+        lines,
+        [
+            "sample,site,year,last_year,season,first_date,last_date,events_pooled,effort,effort_unit,protocol,reach,Baetis,Ecdyonurus",
+            "A1,S1,2019,2019,spring,2019-04-02,2019-04-02,1,2,minutes,kick,lower,3,1",
+            "A2,S1,2019,2019,autumn,2019-09-10,2019-09-10,1,3,minutes,kick,lower,0,2",
+        ]
+    );
+    let plain = env.stdout(["matrix", "--years", "2020", "--format", "csv"]);
+    assert_eq!(plain, "sample,Baetis,Ecdyonurus\nA4,4,4\n");
+}
+
+#[test]
+fn empty_selection_exits_1_naming_the_filter() {
+    let env = fixture();
+    let o = env
+        .cmd(["matrix", "--site", "S2", "--years", "2030..2031"])
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("--years 2030..2031"), "{err}");
+    // A malformed range is a usage error.
+    env.cmd(["matrix", "--months", "13..2"]).assert().code(2);
+}
+
+#[test]
+fn saved_selections_with_explicit_overrides() {
+    let env = fixture();
+    env.stdout([
+        "selections",
+        "save",
+        "lower",
+        "--site-where",
+        "reach=lower",
+        "--unit",
+        "site-year",
+    ]);
+    env.cmd(["selections", "save", "lower", "--site", "S2"])
+        .assert()
+        .code(1);
+    let list = json(&env, &["selections", "list", "--format", "json"]);
+    assert_eq!(list["selections"][0]["name"], "lower");
+    assert_eq!(
+        list["selections"][0]["flags"],
+        "--site-where reach=lower --unit site-year"
+    );
+    let shown = json(&env, &["selections", "show", "lower", "--format", "json"]);
+    assert_eq!(
+        shown["selection"]["site_where"],
+        serde_json::json!([["reach", "lower"]])
+    );
+
+    // S1/2019 pools A1 and A2: Baetis 3, Ecdyonurus 1 + 2.
+    let saved = env.stdout(["matrix", "--selection", "lower", "--format", "csv"]);
+    assert_eq!(saved, "sample,Baetis,Ecdyonurus\nS1/2019,3,3\n");
+    // An explicit --unit replaces the saved one; the saved site filter stays.
+    let events = env.stdout([
+        "matrix",
+        "--selection",
+        "lower",
+        "--unit",
+        "event",
+        "--format",
+        "csv",
+    ]);
+    assert_eq!(events, "sample,Baetis,Ecdyonurus\nA1,3,1\nA2,0,2\n");
+
+    env.stdout(["selections", "save", "lower", "--site", "S2", "--replace"]);
+    let replaced = env.stdout(["matrix", "--selection", "lower", "--format", "csv"]);
+    assert_eq!(replaced, "sample,Baetis,Ecdyonurus\nA3,5,0\nA4,4,4\n");
+    env.stdout(["selections", "delete", "lower"]);
+    env.cmd(["selections", "show", "lower"]).assert().code(1);
+    env.cmd(["matrix", "--selection", "lower"]).assert().code(1);
+}
