@@ -7,8 +7,10 @@
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
 pub mod dissimilarity;
+pub mod ellipse;
 pub mod error;
 pub mod gower;
+pub mod ordination;
 pub mod prec;
 
 pub use dissimilarity::DistanceMatrix;
