@@ -8,9 +8,11 @@
 
 pub mod dispersion;
 pub mod dissimilarity;
+pub mod ellipse;
 pub mod error;
 pub mod gower;
 mod pairwise;
+pub mod ordination;
 pub mod prec;
 pub mod transform;
 pub mod linear_model;
