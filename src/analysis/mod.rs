@@ -11,15 +11,14 @@ pub mod dissimilarity;
 pub mod ellipse;
 pub mod error;
 pub mod gower;
-mod pairwise;
-pub mod ordination;
-pub mod prec;
-pub mod transform;
 pub mod linear_model;
+pub mod ordination;
+mod pairwise;
 pub mod permanova;
 pub mod permutation;
 pub mod prec;
 pub mod size_test;
+pub mod transform;
 
 pub use dissimilarity::{Distance, DistanceMatrix};
 pub use error::AnalysisError;
