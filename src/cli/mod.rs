@@ -16,10 +16,10 @@ pub mod batches;
 pub mod check;
 pub mod import;
 pub mod init;
-pub mod summary;
 pub mod matrix;
 pub mod selection;
 pub mod selections;
+pub mod summary;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]

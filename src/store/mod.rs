@@ -10,13 +10,13 @@ use rusqlite::Connection;
 
 pub mod batches;
 pub mod error;
-pub mod runs;
 pub mod import;
 pub mod maintenance;
+pub mod query;
+pub mod runs;
+pub mod selections;
 pub(crate) mod sheet;
 pub mod summary;
-pub mod query;
-pub mod selections;
 #[doc(hidden)]
 pub mod testing;
 

@@ -150,13 +150,18 @@ impl Store {
                 },
             )
             .optional()?
-            .ok_or_else(|| StoreError::NotFound { what: "run", name: id.to_string() })?;
+            .ok_or_else(|| StoreError::NotFound {
+                what: "run",
+                name: id.to_string(),
+            })?;
         let json = |s: &str| serde_json::from_str(s).unwrap_or(serde_json::Value::Null);
         let mut stmt = self
             .conn()
             .prepare("SELECT name, value FROM run_value WHERE run_id = ?1 ORDER BY name")?;
         let values = stmt
-            .query_map(params![id], |r| Ok((r.get::<_, String>(0)?, r.get::<_, Option<f64>>(1)?)))?
+            .query_map(params![id], |r| {
+                Ok((r.get::<_, String>(0)?, r.get::<_, Option<f64>>(1)?))
+            })?
             .collect::<std::result::Result<Vec<_>, _>>()?;
         Ok(RunRecord {
             id: row.0,
@@ -179,9 +184,9 @@ impl Store {
     /// # Errors
     /// SQLite errors.
     pub fn runs(&self, kind: Option<&str>) -> Result<Vec<RunRecord>> {
-        let mut stmt = self.conn().prepare(
-            "SELECT id FROM run WHERE (?1 IS NULL OR kind = ?1) ORDER BY id DESC",
-        )?;
+        let mut stmt = self
+            .conn()
+            .prepare("SELECT id FROM run WHERE (?1 IS NULL OR kind = ?1) ORDER BY id DESC")?;
         let ids = stmt
             .query_map(params![kind], |r| r.get::<_, i64>(0))?
             .collect::<std::result::Result<Vec<_>, _>>()?;
@@ -236,7 +241,10 @@ mod tests {
             period_start: Some("2010-01-01".into()),
             period_end: Some(end.into()),
             result: serde_json::json!({"p_value": 0.01}),
-            values: vec![("p_value".into(), Some(v)), ("undefined".into(), Some(f64::NAN))],
+            values: vec![
+                ("p_value".into(), Some(v)),
+                ("undefined".into(), Some(f64::NAN)),
+            ],
         }
     }
 
@@ -250,7 +258,10 @@ mod tests {
         assert_eq!(r.result["p_value"], 0.01);
         assert!(r.values.contains(&("undefined".to_string(), None)));
         let series = s.series("permanova", "p_value", None).unwrap();
-        assert_eq!(series.iter().map(|p| p.run_id).collect::<Vec<_>>(), vec![b, a]);
+        assert_eq!(
+            series.iter().map(|p| p.run_id).collect::<Vec<_>>(),
+            vec![b, a]
+        );
         assert_eq!(s.runs(Some("permanova")).unwrap().len(), 2);
         assert!(s.runs(Some("trend")).unwrap().is_empty());
         assert!(matches!(s.run(99), Err(StoreError::NotFound { .. })));

@@ -1,6 +1,6 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
 mod distance_properties;
-mod reference_distances;
 mod matrix_cli;
+mod reference_distances;
 mod store_cli;
 mod util;
