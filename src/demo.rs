@@ -108,8 +108,10 @@ impl DemoFiles {
 // Deterministic arithmetic and samplers
 // ---------------------------------------------------------------------------
 
-const LN2_HI: f64 = 6.931_471_803_691_238_164_90e-01;
-const LN2_LO: f64 = 1.908_214_929_270_587_700_02e-10;
+/// ln 2 split into a high part with 32 trailing zero bits (so k·LN2_HI is
+/// exact for |k| < 2^20) and the remainder (the fdlibm constants).
+const LN2_HI: f64 = f64::from_bits(0x3fe6_2e42_fee0_0000);
+const LN2_LO: f64 = f64::from_bits(0x3dea_39ef_3579_3c76);
 
 /// exp(x) from basic IEEE operations: x = k·ln 2 + r, |r| ≤ ln 2 / 2, Taylor
 /// series of degree 14 for exp(r) (truncation error below 1e-17), then 2^k.

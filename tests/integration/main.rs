@@ -4,3 +4,4 @@ mod matrix_cli;
 mod reference_distances;
 mod store_cli;
 mod util;
+mod demo_data;
