@@ -481,6 +481,591 @@ pub fn ordination_svg(plot: &OrdinationPlot) -> Result<String, SvgError> {
     wrap_markers(out, &marks)
 }
 
+// ------------------------------------------------------------------ partition
+
+/// One bar of the size/shape partition: adjusted fractions of one
+/// dissimilarity or transform, as computed (negative values allowed).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PartitionBar {
+    /// Dissimilarity or transform name, e.g. `Bray-Curtis`.
+    pub label: String,
+    /// Fraction explained by size alone ([a]).
+    pub size_only: f64,
+    /// Fraction shared by size and shape ([b]).
+    pub shared: f64,
+    /// Fraction explained by shape alone ([c]).
+    pub shape_only: f64,
+    /// Unexplained fraction ([d]).
+    pub unexplained: f64,
+}
+
+/// Input of [`partition_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct PartitionPlot {
+    /// Plot title.
+    pub title: String,
+    /// The selection the plot came from, in plain words.
+    pub subtitle: String,
+    /// One bar per dissimilarity or transform.
+    pub bars: Vec<PartitionBar>,
+}
+
+const SEGMENTS: [&str; 4] = ["size only", "shared", "shape only", "unexplained"];
+
+fn segment_colour(k: usize) -> RGBColor {
+    match k {
+        0 => PALETTE[1],
+        1 => PALETTE[2],
+        2 => PALETTE[0],
+        _ => MIST,
+    }
+}
+
+/// Stacked bars of the size/shape partition, one bar per dissimilarity or
+/// transform, segments bottom to top: size only, shared, shape only,
+/// unexplained. A negative adjusted fraction is a legitimate estimate
+/// (docs/methods.md §5.4) but cannot be drawn as a length: it is drawn as zero,
+/// its bar gets an asterisk, and a footnote gives the value.
+///
+/// # Errors
+/// [`SvgError::Empty`] without bars, [`SvgError::NonFinite`] for a NaN or
+/// infinite fraction, [`SvgError::Draw`] if plotters fails.
+pub fn partition_svg(plot: &PartitionPlot) -> Result<String, SvgError> {
+    if plot.bars.is_empty() {
+        return Err(SvgError::Empty("partition has no bars"));
+    }
+    let parts = |b: &PartitionBar| [b.size_only, b.shared, b.shape_only, b.unexplained];
+    check_finite(plot.bars.iter().flat_map(parts), "partition fractions")?;
+    let top = plot
+        .bars
+        .iter()
+        .map(|b| parts(b).iter().map(|v| v.max(0.0)).sum::<f64>())
+        .fold(1.0_f64, f64::max);
+    let n = plot.bars.len();
+    let mut notes = Vec::new();
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let clipped: Vec<String> = plot
+            .bars
+            .iter()
+            .flat_map(|b| {
+                parts(b)
+                    .into_iter()
+                    .zip(SEGMENTS)
+                    .filter(|(v, _)| *v < 0.0)
+                    .map(|(v, name)| format!("{}: {name} {v:.3}", b.label))
+                    .collect::<Vec<_>>()
+            })
+            .collect();
+        if !clipped.is_empty() {
+            notes.push(format!(
+                "* Negative adjusted fractions are drawn as zero: {}.",
+                clipped.join("; ")
+            ));
+        }
+        notes.push(
+            "Fractions are adjusted R² of the size/shape partition; a bar may exceed 1 when a fraction is negative."
+                .to_string(),
+        );
+        let (main, foot) = body.split_vertically(HEIGHT - 58 - 20 - 16 * notes.len() as u32);
+        let (chart_area, legend_area) = main.split_horizontally(WIDTH - 150);
+        let mut chart = ChartBuilder::on(&chart_area)
+            .margin(10)
+            .x_label_area_size(40)
+            .y_label_area_size(56)
+            .build_cartesian_2d(-0.5..(n as f64 - 0.5), 0.0..top * 1.08)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .disable_x_mesh()
+            .x_labels(0)
+            .light_line_style(WHITE)
+            .bold_line_style(MIST.mix(0.6))
+            .y_desc("Share of variation (adjusted R²)")
+            .axis_desc_style((FONT, 14))
+            .label_style((FONT, 12))
+            .draw()
+            .map_err(draw_err)?;
+        for (i, b) in plot.bars.iter().enumerate() {
+            marks.open(&root, "bar", &b.label)?;
+            let x = i as f64;
+            let mut y = 0.0;
+            for (k, v) in parts(b).into_iter().enumerate() {
+                let h = v.max(0.0);
+                if h > 0.0 {
+                    let mut r = Rectangle::new(
+                        [(x - 0.32, y), (x + 0.32, y + h)],
+                        segment_colour(k).filled(),
+                    );
+                    r.set_margin(0, 0, 0, 0);
+                    chart.draw_series(std::iter::once(r)).map_err(draw_err)?;
+                }
+                y += h;
+            }
+            if parts(b).iter().any(|v| *v < 0.0) {
+                chart
+                    .draw_series(std::iter::once(
+                        EmptyElement::at((x, y))
+                            + Text::new("*", (-4, -20), (FONT, 20).into_font().color(&INK)),
+                    ))
+                    .map_err(draw_err)?;
+            }
+            chart
+                .draw_series(std::iter::once(
+                    EmptyElement::at((x, 0.0))
+                        + Text::new(
+                            b.label.clone(),
+                            (-(b.label.chars().count() as i32) * 3, 8),
+                            (FONT, 13).into_font().color(&INK),
+                        ),
+                ))
+                .map_err(draw_err)?;
+            marks.close(&root)?;
+        }
+        let entries: Vec<LegendEntry> = (0..4)
+            .rev()
+            .map(|k| LegendEntry {
+                label: SEGMENTS[k].to_string(),
+                colour: segment_colour(k),
+                marker: None,
+            })
+            .collect();
+        legend(&legend_area, (8, 20), &entries)?;
+        footnotes(&foot, &notes)?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
+// ------------------------------------------------------------------ totals
+
+/// Five-number summary of a box plot.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BoxStats {
+    /// Number of values.
+    pub n: usize,
+    /// Lower quartile.
+    pub q1: f64,
+    /// Median.
+    pub median: f64,
+    /// Upper quartile.
+    pub q3: f64,
+    /// Smallest value within `q1 − 1.5 IQR`.
+    pub whisker_low: f64,
+    /// Largest value within `q3 + 1.5 IQR`.
+    pub whisker_high: f64,
+    /// Values beyond the whiskers.
+    pub outliers: Vec<f64>,
+}
+
+/// Quantile by linear interpolation between order statistics
+/// (`h = (n − 1) p`; Hyndman & Fan 1996, Am. Stat. 50:361-365, their type 7).
+fn quantile(sorted: &[f64], p: f64) -> f64 {
+    let h = (sorted.len() - 1) as f64 * p;
+    let lo = h.floor() as usize;
+    let hi = h.ceil() as usize;
+    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+}
+
+/// Box-plot summary of `values`: quartiles by linear interpolation (type 7),
+/// whiskers at the most extreme values within 1.5 IQR of the box (Tukey's
+/// rule), the rest as outliers. `None` for an empty or non-finite input.
+pub fn box_stats(values: &[f64]) -> Option<BoxStats> {
+    if values.is_empty() || !values.iter().all(|v| v.is_finite()) {
+        return None;
+    }
+    let mut v = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    let (q1, median, q3) = (quantile(&v, 0.25), quantile(&v, 0.5), quantile(&v, 0.75));
+    let iqr = q3 - q1;
+    let (lo, hi) = (q1 - 1.5 * iqr, q3 + 1.5 * iqr);
+    let inside: Vec<f64> = v.iter().copied().filter(|x| *x >= lo && *x <= hi).collect();
+    Some(BoxStats {
+        n: v.len(),
+        q1,
+        median,
+        q3,
+        whisker_low: inside.first().copied().unwrap_or(q1),
+        whisker_high: inside.last().copied().unwrap_or(q3),
+        outliers: v.iter().copied().filter(|x| *x < lo || *x > hi).collect(),
+    })
+}
+
+/// What the totals are.
+#[derive(Debug, Clone, PartialEq)]
+pub enum TotalsMeasure {
+    /// Organisms counted per sample.
+    Counts,
+    /// Organisms per unit of sampling effort (the caller divided by effort).
+    PerEffort {
+        /// Effort unit, e.g. `trap-night`.
+        unit: String,
+    },
+}
+
+/// One group of sample totals.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TotalsGroup {
+    /// Group name.
+    pub name: String,
+    /// Sample totals (≥ 0).
+    pub values: Vec<f64>,
+}
+
+/// Input of [`totals_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TotalsPlot {
+    /// Plot title.
+    pub title: String,
+    /// The selection the plot came from, in plain words.
+    pub subtitle: String,
+    /// Raw counts or counts per unit effort.
+    pub measure: TotalsMeasure,
+    /// Groups, left to right.
+    pub groups: Vec<TotalsGroup>,
+}
+
+/// Box plots of sample totals per group on a logarithmic axis: median,
+/// quartiles, whiskers at 1.5 IQR, points beyond. Statistics use every value;
+/// zero totals, which a log axis cannot show, are drawn on the bottom edge and
+/// counted in a footnote.
+///
+/// # Errors
+/// [`SvgError::Empty`] without any value or when every value is zero,
+/// [`SvgError::NonFinite`] for a NaN, infinite or negative value,
+/// [`SvgError::Draw`] if plotters fails.
+pub fn totals_svg(plot: &TotalsPlot) -> Result<String, SvgError> {
+    let all: Vec<f64> = plot
+        .groups
+        .iter()
+        .flat_map(|g| g.values.iter().copied())
+        .collect();
+    if all.is_empty() {
+        return Err(SvgError::Empty("no totals"));
+    }
+    if all.iter().any(|v| !v.is_finite() || *v < 0.0) {
+        return Err(SvgError::NonFinite("totals (or negative)"));
+    }
+    let lo = all
+        .iter()
+        .copied()
+        .filter(|v| *v > 0.0)
+        .fold(f64::INFINITY, f64::min);
+    if !lo.is_finite() {
+        return Err(SvgError::Empty("every total is zero"));
+    }
+    let hi = all.iter().copied().fold(0.0_f64, f64::max);
+    let (floor, ceil) = (lo / 1.6, hi * 1.6);
+    let shown = |v: f64| v.max(floor);
+    let zeros = all.iter().filter(|v| **v == 0.0).count();
+    let y_desc = match &plot.measure {
+        TotalsMeasure::Counts => "Organisms per sample (log scale)".to_string(),
+        TotalsMeasure::PerEffort { unit } => format!("Organisms per {unit} (log scale)"),
+    };
+    let n = plot.groups.len();
+    let mut notes = vec![
+        "Boxes: quartiles and median; whiskers reach the furthest values within 1.5 box lengths; dots lie beyond."
+            .to_string(),
+    ];
+    if zeros > 0 {
+        notes.push(format!(
+            "{zeros} sample(s) with no organisms are drawn on the bottom edge."
+        ));
+    }
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let (main, foot) = body.split_vertically(HEIGHT - 58 - 20 - 16 * notes.len() as u32);
+        let mut chart = ChartBuilder::on(&main)
+            .margin(10)
+            .x_label_area_size(40)
+            .y_label_area_size(64)
+            .build_cartesian_2d(-0.5..(n as f64 - 0.5), (floor..ceil).log_scale())
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .disable_x_mesh()
+            .x_labels(0)
+            .light_line_style(WHITE)
+            .bold_line_style(MIST.mix(0.6))
+            .y_desc(y_desc)
+            .y_labels(6)
+            .y_label_formatter(&|v| short_number(*v))
+            .axis_desc_style((FONT, 14))
+            .label_style((FONT, 12))
+            .draw()
+            .map_err(draw_err)?;
+        for (i, g) in plot.groups.iter().enumerate() {
+            let x = i as f64;
+            let colour = group_colour(i);
+            let label = format!("{} ({})", g.name, g.values.len());
+            chart
+                .draw_series(std::iter::once(
+                    EmptyElement::at((x, floor))
+                        + Text::new(
+                            label.clone(),
+                            (-(label.chars().count() as i32) * 3, 8),
+                            (FONT, 13).into_font().color(&INK),
+                        ),
+                ))
+                .map_err(draw_err)?;
+            let Some(b) = box_stats(&g.values) else {
+                continue;
+            };
+            marks.open(&root, "box", &g.name)?;
+            let line = INK.stroke_width(1);
+            let w = 0.28;
+            chart
+                .draw_series([
+                    PathElement::new(vec![(x, shown(b.whisker_low)), (x, shown(b.q1))], line),
+                    PathElement::new(vec![(x, shown(b.q3)), (x, shown(b.whisker_high))], line),
+                    PathElement::new(
+                        vec![
+                            (x - w / 2.0, shown(b.whisker_low)),
+                            (x + w / 2.0, shown(b.whisker_low)),
+                        ],
+                        line,
+                    ),
+                    PathElement::new(
+                        vec![
+                            (x - w / 2.0, shown(b.whisker_high)),
+                            (x + w / 2.0, shown(b.whisker_high)),
+                        ],
+                        line,
+                    ),
+                ])
+                .map_err(draw_err)?;
+            chart
+                .draw_series([
+                    Rectangle::new(
+                        [(x - w, shown(b.q1)), (x + w, shown(b.q3))],
+                        colour.mix(0.85).filled(),
+                    ),
+                    Rectangle::new([(x - w, shown(b.q1)), (x + w, shown(b.q3))], line),
+                ])
+                .map_err(draw_err)?;
+            chart
+                .draw_series(std::iter::once(PathElement::new(
+                    vec![(x - w, shown(b.median)), (x + w, shown(b.median))],
+                    INK.stroke_width(3),
+                )))
+                .map_err(draw_err)?;
+            chart
+                .draw_series(
+                    b.outliers
+                        .iter()
+                        .map(|v| Circle::new((x, shown(*v)), 3, INK.stroke_width(1))),
+                )
+                .map_err(draw_err)?;
+            marks.close(&root)?;
+        }
+        footnotes(&foot, &notes)?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
+/// Axis number without trailing zeros (`100`, `2.5`, `0.03`).
+fn short_number(v: f64) -> String {
+    let s = if v.abs() >= 10.0 {
+        format!("{v:.0}")
+    } else {
+        format!("{v:.3}")
+    };
+    if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
+}
+
+// ------------------------------------------------------------------ trends
+
+/// One period of a trend panel.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrendPoint {
+    /// Position on the time axis (e.g. the year).
+    pub period: f64,
+    /// Abundance per unit effort.
+    pub abundance: f64,
+    /// Lower end of its interval.
+    pub lower: f64,
+    /// Upper end of its interval.
+    pub upper: f64,
+    /// Shape distance to the baseline composition, if computed for this period.
+    pub shape_distance: Option<f64>,
+}
+
+/// Input of [`trend_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrendPlot {
+    /// Plot title.
+    pub title: String,
+    /// The selection the plot came from, in plain words.
+    pub subtitle: String,
+    /// Vertical label of the top panel, e.g. `Organisms per trap-night`.
+    pub abundance_label: String,
+    /// What the interval is, for the footnote, e.g. `95% bootstrap interval`.
+    pub interval_label: String,
+    /// Vertical label of the bottom panel, e.g. `Shape distance to baseline (Hellinger)`.
+    pub distance_label: String,
+    /// Periods in time order.
+    pub points: Vec<TrendPoint>,
+    /// First and last period of the baseline (shaded).
+    pub baseline: (f64, f64),
+    /// Breakpoint positions on the time axis (vertical lines).
+    pub breakpoints: Vec<f64>,
+}
+
+/// Two stacked panels sharing the time axis: abundance per unit effort with
+/// its interval (top) and shape distance to the baseline (bottom); the
+/// baseline period shaded, breakpoints as vertical dashed lines.
+///
+/// # Errors
+/// [`SvgError::Empty`] without points, [`SvgError::NonFinite`] for a NaN or
+/// infinite value, [`SvgError::Draw`] if plotters fails.
+pub fn trend_svg(plot: &TrendPlot) -> Result<String, SvgError> {
+    if plot.points.is_empty() {
+        return Err(SvgError::Empty("trend has no periods"));
+    }
+    check_finite(
+        plot.points
+            .iter()
+            .flat_map(|p| {
+                [
+                    p.period,
+                    p.abundance,
+                    p.lower,
+                    p.upper,
+                    p.shape_distance.unwrap_or(0.0),
+                ]
+            })
+            .chain([plot.baseline.0, plot.baseline.1])
+            .chain(plot.breakpoints.iter().copied()),
+        "trend values",
+    )?;
+    let periods = plot.points.iter().map(|p| p.period);
+    let (t0, t1) = padded(
+        periods
+            .clone()
+            .fold(f64::INFINITY, f64::min)
+            .min(plot.baseline.0),
+        periods
+            .fold(f64::NEG_INFINITY, f64::max)
+            .max(plot.baseline.1),
+        0.04,
+    );
+    let amax = plot
+        .points
+        .iter()
+        .map(|p| p.upper.max(p.abundance))
+        .fold(0.0_f64, f64::max);
+    let amin = plot
+        .points
+        .iter()
+        .map(|p| p.lower.min(p.abundance))
+        .fold(0.0_f64, f64::min);
+    let dmax = plot
+        .points
+        .iter()
+        .filter_map(|p| p.shape_distance)
+        .fold(0.0_f64, f64::max);
+    let (a0, a1) = (amin, if amax > amin { amax * 1.08 } else { amin + 1.0 });
+    let d1 = if dmax > 0.0 { dmax * 1.1 } else { 1.0 };
+    let notes = vec![format!(
+        "Shaded: baseline period. Dashed lines: breakpoints. Bars: {}.",
+        plot.interval_label
+    )];
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT + 120)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let (main, foot) = body.split_vertically(HEIGHT + 120 - 58 - 36);
+        let (top, bottom) = main.split_vertically((HEIGHT + 120 - 58 - 36) / 2);
+        let panels: [(&DrawingArea<_, _>, f64, f64, &str); 2] = [
+            (&top, a0, a1, plot.abundance_label.as_str()),
+            (&bottom, 0.0, d1, plot.distance_label.as_str()),
+        ];
+        for (k, (area, lo, hi, label)) in panels.into_iter().enumerate() {
+            let mut chart = ChartBuilder::on(area)
+                .margin(10)
+                .x_label_area_size(34)
+                .y_label_area_size(64)
+                .build_cartesian_2d(t0..t1, lo..hi)
+                .map_err(draw_err)?;
+            chart
+                .configure_mesh()
+                .light_line_style(WHITE)
+                .bold_line_style(MIST.mix(0.6))
+                .x_label_formatter(&|v| format!("{v:.0}"))
+                .y_desc(label)
+                .x_desc(if k == 1 { "Period" } else { "" })
+                .axis_desc_style((FONT, 14))
+                .label_style((FONT, 12))
+                .draw()
+                .map_err(draw_err)?;
+            marks.open(&root, "baseline", "baseline")?;
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(plot.baseline.0 - 0.5, lo), (plot.baseline.1 + 0.5, hi)],
+                    MIST.mix(0.6).filled(),
+                )))
+                .map_err(draw_err)?;
+            marks.close(&root)?;
+            for b in &plot.breakpoints {
+                marks.open(&root, "breakpoint", &format!("{b}"))?;
+                chart
+                    .draw_series(DashedLineSeries::new(
+                        vec![(*b, lo), (*b, hi)],
+                        6,
+                        4,
+                        PALETTE[3].stroke_width(2),
+                    ))
+                    .map_err(draw_err)?;
+                marks.close(&root)?;
+            }
+            let colour = if k == 0 { PALETTE[0] } else { PALETTE[4] };
+            let series: Vec<(f64, f64)> = if k == 0 {
+                plot.points
+                    .iter()
+                    .map(|p| (p.period, p.abundance))
+                    .collect()
+            } else {
+                plot.points
+                    .iter()
+                    .filter_map(|p| p.shape_distance.map(|d| (p.period, d)))
+                    .collect()
+            };
+            if k == 0 {
+                chart
+                    .draw_series(plot.points.iter().map(|p| {
+                        PathElement::new(
+                            vec![(p.period, p.lower), (p.period, p.upper)],
+                            INK.stroke_width(1),
+                        )
+                    }))
+                    .map_err(draw_err)?;
+            }
+            chart
+                .draw_series(LineSeries::new(series.clone(), colour.stroke_width(2)))
+                .map_err(draw_err)?;
+            for (x, y) in series {
+                let px = chart.backend_coord(&(x, y));
+                marker_at(&root, px, if k == 0 { 0 } else { 2 }, colour)?;
+            }
+        }
+        footnotes(&foot, &notes)?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -552,7 +1137,6 @@ mod tests {
     fn ordination_svg_structure() {
         let svg = ordination_svg(&ordination_input()).map_err(|e| e.to_string());
         let svg = svg.unwrap_or_else(|e| panic!("{e}"));
-        std::fs::write("/tmp/ordi_dbg/ord.svg", &svg).ok();
         let doc = parse(&svg);
         let groups = groups_of(&doc, "group");
         assert_eq!(groups.len(), 3);
@@ -579,5 +1163,176 @@ mod tests {
         assert!(has_text(&doc, "Axis 1 (41.2% of inertia)"));
         assert!(has_text(&doc, "No ellipse (fewer than 3 samples): upper."));
         assert!(!svg.contains("TALLYMARK"));
+    }
+
+    #[test]
+    fn partition_svg_marks_clipped_fractions() {
+        let plot = PartitionPlot {
+            title: "Size and shape".into(),
+            subtitle: "All sites, 2010-2020, by reach".into(),
+            bars: vec![
+                PartitionBar {
+                    label: "Bray-Curtis".into(),
+                    size_only: 0.131,
+                    shared: -0.116,
+                    shape_only: 0.885,
+                    unexplained: 0.099,
+                },
+                PartitionBar {
+                    label: "Hellinger".into(),
+                    size_only: -0.011,
+                    shared: -0.053,
+                    shape_only: 1.008,
+                    unexplained: 0.056,
+                },
+                PartitionBar {
+                    label: "Euclidean".into(),
+                    size_only: 0.2,
+                    shared: 0.1,
+                    shape_only: 0.3,
+                    unexplained: 0.4,
+                },
+            ],
+        };
+        let svg = partition_svg(&plot).unwrap();
+        let doc = parse(&svg);
+        let bars = groups_of(&doc, "bar");
+        assert_eq!(bars.len(), 3);
+        // Only positive segments are drawn: 3, 2 and 4 rectangles.
+        let rects: Vec<usize> = bars
+            .iter()
+            .map(|b| b.descendants().filter(|n| n.has_tag_name("rect")).count())
+            .collect();
+        assert_eq!(rects, vec![3, 2, 4]);
+        // The two bars with a negative fraction carry the asterisk, the third does not.
+        let starred: Vec<bool> = bars
+            .iter()
+            .map(|b| {
+                b.descendants()
+                    .any(|n| n.has_tag_name("text") && n.text().is_some_and(|t| t.trim() == "*"))
+            })
+            .collect();
+        assert_eq!(starred, vec![true, true, false]);
+        assert!(has_text(&doc, "Hellinger: size only -0.011"));
+        assert!(has_text(&doc, "All sites, 2010-2020, by reach"));
+        assert!(
+            partition_svg(&PartitionPlot {
+                bars: vec![],
+                ..plot.clone()
+            })
+            .is_err()
+        );
+    }
+
+    #[test]
+    fn box_stats_match_numpy_percentile() {
+        let fx: serde_json::Value =
+            serde_json::from_str(include_str!("../../tests/reference/ordination.json")).unwrap();
+        let b = &fx["box_quartiles"];
+        let values: Vec<f64> = serde_json::from_value(b["values"].clone()).unwrap();
+        let q: Vec<f64> = serde_json::from_value(b["numpy_percentile_25_50_75"].clone()).unwrap();
+        let s = box_stats(&values).unwrap();
+        // numpy.percentile(values, [25, 50, 75]) with its default linear method.
+        assert!(
+            (s.q1 - q[0]).abs() < 1e-9
+                && (s.median - q[1]).abs() < 1e-9
+                && (s.q3 - q[2]).abs() < 1e-9
+        );
+        // Tukey's rule: 250 lies beyond q3 + 1.5 IQR, everything else inside.
+        let fence = s.q3 + 1.5 * (s.q3 - s.q1);
+        assert!(250.0 > fence);
+        assert_eq!(s.outliers, vec![250.0]);
+        assert_eq!(s.whisker_low, 0.0);
+        assert_eq!(s.whisker_high, 40.14);
+        assert!(box_stats(&[]).is_none());
+    }
+
+    #[test]
+    fn totals_svg_structure() {
+        let plot = TotalsPlot {
+            title: "Totals".into(),
+            subtitle: "Reaches L, M, U; 2019".into(),
+            measure: TotalsMeasure::PerEffort {
+                unit: "trap-night".into(),
+            },
+            groups: vec![
+                TotalsGroup {
+                    name: "lower".into(),
+                    values: vec![3.0, 5.0, 8.0, 0.0, 4.0, 90.0],
+                },
+                TotalsGroup {
+                    name: "middle".into(),
+                    values: vec![30.0, 50.0, 42.0],
+                },
+                TotalsGroup {
+                    name: "upper".into(),
+                    values: vec![],
+                },
+            ],
+        };
+        let svg = totals_svg(&plot).unwrap();
+        let doc = parse(&svg);
+        let boxes = groups_of(&doc, "box");
+        assert_eq!(boxes.len(), 2);
+        assert_eq!(boxes[1].attribute("data-label"), Some("middle"));
+        assert!(has_text(&doc, "Organisms per trap-night (log scale)"));
+        assert!(has_text(
+            &doc,
+            "1 sample(s) with no organisms are drawn on the bottom edge."
+        ));
+        assert!(has_text(&doc, "Reaches L, M, U; 2019"));
+        let bad = TotalsPlot {
+            groups: vec![TotalsGroup {
+                name: "x".into(),
+                values: vec![-1.0],
+            }],
+            ..plot
+        };
+        assert_eq!(
+            totals_svg(&bad).unwrap_err(),
+            SvgError::NonFinite("totals (or negative)")
+        );
+    }
+
+    #[test]
+    fn trend_svg_structure() {
+        let points = (2010..2020)
+            .map(|y| TrendPoint {
+                period: y as f64,
+                abundance: 10.0 + (y - 2010) as f64,
+                lower: 8.0 + (y - 2010) as f64,
+                upper: 12.0 + (y - 2010) as f64,
+                shape_distance: if y < 2011 {
+                    None
+                } else {
+                    Some(0.05 * (y - 2010) as f64)
+                },
+            })
+            .collect();
+        let plot = TrendPlot {
+            title: "Middle reach".into(),
+            subtitle: "Middle reach sites, spring samples 2010-2019".into(),
+            abundance_label: "Organisms per trap-night".into(),
+            interval_label: "95% interval".into(),
+            distance_label: "Shape distance to baseline".into(),
+            points,
+            baseline: (2010.0, 2012.0),
+            breakpoints: vec![2015.5],
+        };
+        let svg = trend_svg(&plot).unwrap();
+        let doc = parse(&svg);
+        // Two panels, each with one baseline band and one breakpoint line.
+        assert_eq!(groups_of(&doc, "baseline").len(), 2);
+        let bps = groups_of(&doc, "breakpoint");
+        assert_eq!(bps.len(), 2);
+        assert!(
+            bps.iter()
+                .all(|g| g.descendants().any(|n| n.has_tag_name("polyline")))
+        );
+        assert!(has_text(
+            &doc,
+            "Middle reach sites, spring samples 2010-2019"
+        ));
+        assert!(has_text(&doc, "Organisms per trap-night"));
     }
 }
