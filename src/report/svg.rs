@@ -13,7 +13,7 @@
 //! (one per partition bar), `box` (one per box plot), `baseline` and
 //! `breakpoint` (trend panels). plotters has no grouping element of its own,
 //! so the renderer draws a sentinel text at each group boundary and replaces
-//! it afterwards ([`wrap_markers`]).
+//! it afterwards.
 //!
 //! # Palette
 //! [`PALETTE`] is this project's own set of eight colours, chosen to stay
@@ -489,13 +489,13 @@ pub fn ordination_svg(plot: &OrdinationPlot) -> Result<String, SvgError> {
 pub struct PartitionBar {
     /// Dissimilarity or transform name, e.g. `Bray-Curtis`.
     pub label: String,
-    /// Fraction explained by size alone ([a]).
+    /// Fraction explained by size alone (fraction `[a]`).
     pub size_only: f64,
-    /// Fraction shared by size and shape ([b]).
+    /// Fraction shared by size and shape (fraction `[b]`).
     pub shared: f64,
-    /// Fraction explained by shape alone ([c]).
+    /// Fraction explained by shape alone (fraction `[c]`).
     pub shape_only: f64,
-    /// Unexplained fraction ([d]).
+    /// Unexplained fraction (fraction `[d]`).
     pub unexplained: f64,
 }
 
