@@ -2,5 +2,6 @@
 //! Everything writes to `impl Write`; nothing here computes statistics.
 
 pub mod format;
+pub mod svg;
 
 pub use format::OutputFormat;

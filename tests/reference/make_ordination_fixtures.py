@@ -1,4 +1,5 @@
-"""Reference values for tally's correspondence analysis, CCA and confidence ellipses.
+"""Reference values for tally's correspondence analysis, CCA, confidence ellipses
+and box-plot quartiles (numpy.percentile, linear method).
 
 Writes tests/reference/ordination.json. Uses only numpy and scipy (general-purpose
 libraries); run from the repository root:
@@ -94,7 +95,13 @@ def main():
     for level in (0.9, 0.95, 0.99):
         for df2 in (1, 2, 3, 5, 8, 20, 100):
             f_quantiles.append({"level": level, "df1": 2, "df2": df2, "ppf": float(stats.f.ppf(level, 2, df2))})
+    box_values = [float(v) for v in rng.lognormal(3.0, 1.0, size=13).round(2)] + [0.0, 250.0]
+    box = {
+        "values": box_values,
+        "numpy_percentile_25_50_75": [float(v) for v in np.percentile(box_values, [25, 50, 75])],
+    }
     out = {
+        "box_quartiles": box,
         "generator": "tests/reference/make_ordination_fixtures.py",
         "versions": {"python": platform.python_version(), "numpy": np.__version__, "scipy": scipy.__version__},
         "toy": table_entry(TOY, toy_z),
