@@ -53,13 +53,13 @@ pub fn run(args: Args, store: &Store, out: &mut dyn Write) -> anyhow::Result<()>
         }
         FormatArg::Csv => {
             let mut w = csv::Writer::from_writer(out);
-            for row in text_rows(&m, args.meta) {
+            for row in text_rows(&m, args.meta, fmt_num) {
                 w.write_record(&row)?;
             }
             w.flush()?;
         }
         FormatArg::Table => {
-            let rows = text_rows(&m, args.meta);
+            let rows = text_rows(&m, args.meta, fmt_short);
             let header: Vec<&str> = rows[0].iter().map(String::as_str).collect();
             let mut t = new_table(&header);
             for r in &rows[1..] {
@@ -98,8 +98,20 @@ fn fmt_num(v: f64) -> String {
     }
 }
 
-/// Header and rows as text, for CSV and the table.
-fn text_rows(m: &CountMatrix, meta: bool) -> Vec<Vec<String>> {
+/// A number for people: whole numbers as they are, others to 4 decimals.
+fn fmt_short(v: f64) -> String {
+    if !v.is_finite() {
+        String::new()
+    } else if v.fract() == 0.0 {
+        format!("{v}")
+    } else {
+        let s = format!("{v:.4}");
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    }
+}
+
+/// Header and rows as text, for CSV (`fmt_num`) and the table (`fmt_short`).
+fn text_rows(m: &CountMatrix, meta: bool, fmt: fn(f64) -> String) -> Vec<Vec<String>> {
     let attr_keys: Vec<String> = m
         .samples
         .iter()
@@ -138,7 +150,7 @@ fn text_rows(m: &CountMatrix, meta: bool) -> Vec<Vec<String>> {
                 s.first_date.clone(),
                 s.last_date.clone(),
                 s.events_pooled.to_string(),
-                fmt_num(s.effort),
+                fmt(s.effort),
                 s.effort_unit.clone(),
                 s.protocol.clone(),
             ]);
@@ -148,7 +160,7 @@ fn text_rows(m: &CountMatrix, meta: bool) -> Vec<Vec<String>> {
                     .map(|k| s.attributes.get(k).cloned().unwrap_or_default()),
             );
         }
-        r.extend((0..m.values.ncols()).map(|j| fmt_num(m.values[(i, j)])));
+        r.extend((0..m.values.ncols()).map(|j| fmt(m.values[(i, j)])));
         rows.push(r);
     }
     rows

@@ -68,7 +68,7 @@ pub enum StoreError {
         "the selection is empty: no events left after {filter} ({matched_before} event(s) matched before it)"
     )]
     EmptySelection {
-        /// The flag as written (`--site-where reach=lower`), or `(none)` when the store has no events.
+        /// The flag as written (`--site-where reach=lower`).
         filter: String,
         /// Events matching the filters before this one (all events for the first filter).
         matched_before: usize,

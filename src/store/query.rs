@@ -401,10 +401,10 @@ impl Store {
             .conn()
             .query_row("SELECT count(*) FROM event", [], |r| r.get(0))?;
         if total == 0 {
-            return Ok(StoreError::EmptySelection {
-                filter: "(none)".into(),
-                matched_before: 0,
-            });
+            return Ok(StoreError::Refused(
+                "the selection is empty: the store holds no events yet (import events first)"
+                    .into(),
+            ));
         }
         let mut before = total;
         for k in 0..filters.len() {
