@@ -14,9 +14,12 @@ use crate::store::Store;
 pub mod backup;
 pub mod batches;
 pub mod check;
+pub mod common;
+pub mod demo;
 pub mod import;
 pub mod init;
 pub mod matrix;
+pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
@@ -25,9 +28,9 @@ pub mod summary;
 #[derive(Debug, Parser)]
 #[command(name = "tally", version, about, long_about = None)]
 pub struct Cli {
-    /// The store file.
-    #[arg(long, global = true, env = "TALLY_DB", default_value = "tally.db")]
-    pub db: PathBuf,
+    /// The store file [default: $TALLY_DB, else ./tally.db; for `demo`: ./tally-demo.db].
+    #[arg(long, global = true)]
+    pub db: Option<PathBuf>,
     /// The command.
     #[command(subcommand)]
     pub command: Command,
@@ -74,6 +77,10 @@ pub enum Command {
     Matrix(matrix::Args),
     /// Saved selections: save, list, show, delete.
     Selections(selections::Args),
+    /// Stored results: list, show, follow a number across runs.
+    Runs(runs::Args),
+    /// Build the invented Wren Valley demo store and analyse it.
+    Demo(demo::Args),
 }
 
 /// Run a parsed command line.
@@ -83,21 +90,35 @@ pub enum Command {
 pub fn run(cli: Cli) -> anyhow::Result<()> {
     let stdout = std::io::stdout();
     let mut out = std::io::BufWriter::new(stdout.lock());
+    let db = store_path(cli.db.as_deref());
     let result = match cli.command {
-        Command::Init(args) => init::run(args, &cli.db, &mut out),
+        Command::Init(args) => init::run(args, &db, &mut out),
         Command::Import(args) => {
-            import::run(args, &mut open_store(&cli.db)?, &mut std::io::stderr())
+            import::run(args, &mut open_store(&db)?, &mut std::io::stderr())
         }
-        Command::Batches(args) => batches::run(args, &mut open_store(&cli.db)?, &mut out),
-        Command::Summary(args) => summary::run(args, &mut open_store(&cli.db)?, &mut out),
-        Command::Check(args) => check::run(args, &mut open_store(&cli.db)?, &mut out),
-        Command::Backup(args) => backup::run(args, &mut open_store(&cli.db)?, &mut out),
-        Command::Matrix(args) => matrix::run(args, &open_store(&cli.db)?, &mut out),
-        Command::Selections(args) => selections::run(args, &mut open_store(&cli.db)?, &mut out),
+        Command::Batches(args) => batches::run(args, &mut open_store(&db)?, &mut out),
+        Command::Summary(args) => summary::run(args, &mut open_store(&db)?, &mut out),
+        Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),
+        Command::Backup(args) => backup::run(args, &mut open_store(&db)?, &mut out),
+        Command::Matrix(args) => matrix::run(args, &open_store(&db)?, &mut out),
+        Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
+        Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
+        Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
     };
     result?;
     out.flush()?;
     Ok(())
+}
+
+/// The store path: `--db`, else `$TALLY_DB`, else `./tally.db`.
+pub fn store_path(flag: Option<&Path>) -> PathBuf {
+    match flag {
+        Some(p) => p.to_path_buf(),
+        None => std::env::var_os("TALLY_DB")
+            .filter(|v| !v.is_empty())
+            .map(PathBuf::from)
+            .unwrap_or_else(|| PathBuf::from("tally.db")),
+    }
 }
 
 /// Open an existing store, with the store path in the error.

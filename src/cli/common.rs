@@ -1,0 +1,196 @@
+//! Flags and plumbing shared by every analysis command: permutations, seed,
+//! storage of the run, dissimilarity and transform choices, progress on stderr.
+
+use std::io::IsTerminal;
+
+use anyhow::Context;
+use clap::{Args, ValueEnum};
+
+use crate::analysis::dissimilarity::Distance;
+use crate::analysis::transform::Transform;
+use crate::matrix::CountMatrix;
+use crate::store::Store;
+use crate::store::query::Selection;
+use crate::store::runs::NewRun;
+
+use super::FormatArg;
+
+/// Flags every analysis command takes besides the selection.
+#[derive(Debug, Clone, Args)]
+pub struct RunArgs {
+    /// Number of random permutations for each test.
+    #[arg(long, default_value_t = 9999)]
+    pub permutations: usize,
+    /// Seed of the random streams (a random seed is drawn, printed and stored when absent).
+    #[arg(long)]
+    pub seed: Option<u64>,
+    /// Do not store the result as a run.
+    #[arg(long)]
+    pub no_store: bool,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = FormatArg::Table)]
+    pub format: FormatArg,
+}
+
+impl RunArgs {
+    /// The seed to use: the given one, or a fresh random one (announced on stderr).
+    pub fn seed(&self) -> u64 {
+        match self.seed {
+            Some(s) => s,
+            None => {
+                let s: u64 = rand::random();
+                super::note(&format!("seed {s} (give --seed {s} to repeat this run)"));
+                s
+            }
+        }
+    }
+}
+
+/// Dissimilarity choice on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum DistanceArg {
+    /// Bray-Curtis (carries size and shape).
+    BrayCurtis,
+    /// Euclidean distance on the transformed data.
+    Euclidean,
+    /// Chi-square distance (correspondence-analysis definition; shape).
+    ChiSquare,
+    /// Hellinger distance (shape only).
+    Hellinger,
+    /// Jaccard, on presence/absence.
+    Jaccard,
+    /// Quantitative Kulczynski.
+    Kulczynski,
+    /// Manhattan (city-block) distance.
+    Manhattan,
+}
+
+impl From<DistanceArg> for Distance {
+    fn from(d: DistanceArg) -> Self {
+        match d {
+            DistanceArg::BrayCurtis => Distance::BrayCurtis,
+            DistanceArg::Euclidean => Distance::Euclidean,
+            DistanceArg::ChiSquare => Distance::ChiSquare,
+            DistanceArg::Hellinger => Distance::Hellinger,
+            DistanceArg::Jaccard => Distance::Jaccard,
+            DistanceArg::Kulczynski => Distance::Kulczynski,
+            DistanceArg::Manhattan => Distance::Manhattan,
+        }
+    }
+}
+
+/// Transform choice on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum TransformArg {
+    /// No transform.
+    None,
+    /// Square root.
+    Sqrt,
+    /// Fourth root.
+    FourthRoot,
+    /// ln(x + 1).
+    Log1p,
+    /// Presence/absence.
+    Presence,
+    /// Relative abundances (row profiles).
+    Profile,
+    /// Square roots of row profiles.
+    Hellinger,
+}
+
+impl From<TransformArg> for Transform {
+    fn from(t: TransformArg) -> Self {
+        match t {
+            TransformArg::None => Transform::None,
+            TransformArg::Sqrt => Transform::Sqrt,
+            TransformArg::FourthRoot => Transform::FourthRoot,
+            TransformArg::Log1p => Transform::Log1p,
+            TransformArg::Presence => Transform::Presence,
+            TransformArg::Profile => Transform::Profile,
+            TransformArg::Hellinger => Transform::Hellinger,
+        }
+    }
+}
+
+/// `--distance` and `--transform`.
+#[derive(Debug, Clone, Args)]
+pub struct DistanceArgs {
+    /// Dissimilarity.
+    #[arg(long, value_enum, default_value_t = DistanceArg::BrayCurtis)]
+    pub distance: DistanceArg,
+    /// Transform applied to the counts before the dissimilarity.
+    #[arg(long, value_enum, default_value_t = TransformArg::None)]
+    pub transform: TransformArg,
+}
+
+/// Store a run unless `--no-store`; prints the run id on stderr and returns it.
+///
+/// # Errors
+/// SQLite errors.
+#[allow(clippy::too_many_arguments)]
+pub fn store_run(
+    store: &mut Store,
+    run: &RunArgs,
+    kind: &str,
+    selection: &Selection,
+    matrix: &CountMatrix,
+    parameters: serde_json::Value,
+    seed: Option<u64>,
+    result: &serde_json::Value,
+    values: Vec<(String, Option<f64>)>,
+) -> anyhow::Result<Option<i64>> {
+    if run.no_store {
+        return Ok(None);
+    }
+    let period_start = matrix.samples.iter().map(|s| s.first_date.clone()).min();
+    let period_end = matrix.samples.iter().map(|s| s.last_date.clone()).max();
+    let id = store
+        .save_run(&NewRun {
+            kind: kind.to_string(),
+            selection: serde_json::to_value(selection)?,
+            parameters,
+            seed,
+            fingerprint: matrix.fingerprint(),
+            period_start,
+            period_end,
+            result: result.clone(),
+            values,
+        })
+        .context("storing the run")?;
+    store.checkpoint()?;
+    super::note(&format!("stored as run {id}"));
+    Ok(Some(id))
+}
+
+/// A progress reporter for long permutation runs: a bar on stderr when stderr
+/// is a terminal, nothing otherwise.
+pub struct Progress {
+    bar: Option<indicatif::ProgressBar>,
+}
+
+impl Progress {
+    /// A reporter labelled `what`.
+    pub fn new(what: &str) -> Progress {
+        let bar = std::io::stderr().is_terminal().then(|| {
+            let b = indicatif::ProgressBar::new(0);
+            b.set_message(what.to_string());
+            b
+        });
+        Progress { bar }
+    }
+
+    /// Update with (done, total).
+    pub fn update(&self, done: usize, total: usize) {
+        if let Some(b) = &self.bar {
+            b.set_length(total as u64);
+            b.set_position(done as u64);
+        }
+    }
+
+    /// Remove the bar.
+    pub fn finish(&self) {
+        if let Some(b) = &self.bar {
+            b.finish_and_clear();
+        }
+    }
+}
