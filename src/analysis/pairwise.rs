@@ -1,6 +1,6 @@
 //! Low-level pairwise kernels behind [`super::dissimilarity::Distance`]: a
-//! row-major padded copy of the data, vectorisable inner loops (several
-//! independent accumulators over `chunks_exact`), and a tiled parallel driver
+//! row-major padded copy of the data, vectorisable inner loops (eight
+//! independent accumulators over fixed-size chunks, `as_chunks::<8>`), and a tiled parallel driver
 //! that fills a condensed matrix.
 //!
 //! Determinism: each pair is computed by one sequential call of the same inner
@@ -99,7 +99,7 @@ where
 #[inline]
 pub(crate) fn sum(a: &[f64]) -> f64 {
     let mut acc = [0.0f64; LANES];
-    for ca in a.chunks_exact(LANES) {
+    for ca in a.as_chunks::<LANES>().0 {
         for k in 0..LANES {
             acc[k] += ca[k];
         }
@@ -112,7 +112,12 @@ pub(crate) fn sum(a: &[f64]) -> f64 {
 #[inline]
 pub(crate) fn sum_min(a: &[f64], b: &[f64]) -> f64 {
     let mut acc = [0.0f64; LANES];
-    for (ca, cb) in a.chunks_exact(LANES).zip(b.chunks_exact(LANES)) {
+    for (ca, cb) in a
+        .as_chunks::<LANES>()
+        .0
+        .iter()
+        .zip(b.as_chunks::<LANES>().0)
+    {
         for k in 0..LANES {
             acc[k] += if ca[k] < cb[k] { ca[k] } else { cb[k] };
         }
@@ -124,7 +129,12 @@ pub(crate) fn sum_min(a: &[f64], b: &[f64]) -> f64 {
 #[inline]
 pub(crate) fn sum_abs_diff(a: &[f64], b: &[f64]) -> f64 {
     let mut acc = [0.0f64; LANES];
-    for (ca, cb) in a.chunks_exact(LANES).zip(b.chunks_exact(LANES)) {
+    for (ca, cb) in a
+        .as_chunks::<LANES>()
+        .0
+        .iter()
+        .zip(b.as_chunks::<LANES>().0)
+    {
         for k in 0..LANES {
             acc[k] += (ca[k] - cb[k]).abs();
         }
@@ -137,7 +147,12 @@ pub(crate) fn sum_abs_diff(a: &[f64], b: &[f64]) -> f64 {
 pub(crate) fn sum_excess(a: &[f64], b: &[f64]) -> (f64, f64) {
     let mut pa = [0.0f64; LANES];
     let mut pb = [0.0f64; LANES];
-    for (ca, cb) in a.chunks_exact(LANES).zip(b.chunks_exact(LANES)) {
+    for (ca, cb) in a
+        .as_chunks::<LANES>()
+        .0
+        .iter()
+        .zip(b.as_chunks::<LANES>().0)
+    {
         for k in 0..LANES {
             let d = ca[k] - cb[k];
             pa[k] += if d > 0.0 { d } else { 0.0 };
@@ -151,7 +166,12 @@ pub(crate) fn sum_excess(a: &[f64], b: &[f64]) -> (f64, f64) {
 #[inline]
 pub(crate) fn sum_sq_diff(a: &[f64], b: &[f64]) -> f64 {
     let mut acc = [0.0f64; LANES];
-    for (ca, cb) in a.chunks_exact(LANES).zip(b.chunks_exact(LANES)) {
+    for (ca, cb) in a
+        .as_chunks::<LANES>()
+        .0
+        .iter()
+        .zip(b.as_chunks::<LANES>().0)
+    {
         for k in 0..LANES {
             let d = ca[k] - cb[k];
             acc[k] += d * d;
@@ -164,7 +184,12 @@ pub(crate) fn sum_sq_diff(a: &[f64], b: &[f64]) -> f64 {
 #[inline]
 pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     let mut acc = [0.0f64; LANES];
-    for (ca, cb) in a.chunks_exact(LANES).zip(b.chunks_exact(LANES)) {
+    for (ca, cb) in a
+        .as_chunks::<LANES>()
+        .0
+        .iter()
+        .zip(b.as_chunks::<LANES>().0)
+    {
         for k in 0..LANES {
             acc[k] += ca[k] * cb[k];
         }
