@@ -88,6 +88,34 @@ pub struct PermanovaResult {
 /// Batches within a block: rows stay in cache across this many permutations.
 const SUB_BATCH: usize = 64;
 
+/// Compact sample index for the gather loop.
+trait Index: Copy + Default {
+    /// From a position known to fit (n was checked by the caller).
+    fn from_usize(v: usize) -> Self;
+    /// Back to usize.
+    fn get(self) -> usize;
+}
+
+impl Index for u16 {
+    fn from_usize(v: usize) -> Self {
+        u16::try_from(v).expect("invariant: caller checked n <= u16::MAX")
+    }
+    #[inline(always)]
+    fn get(self) -> usize {
+        usize::from(self)
+    }
+}
+
+impl Index for u32 {
+    fn from_usize(v: usize) -> Self {
+        u32::try_from(v).expect("invariant: n fits u32 (a u32 n x n matrix would not fit memory)")
+    }
+    #[inline(always)]
+    fn get(self) -> usize {
+        self as usize
+    }
+}
+
 /// Precomputed state of the one-way statistic.
 struct OneWay {
     n: usize,
@@ -134,11 +162,22 @@ impl OneWay {
 
     /// SS_W of each permutation in `perms` (k × n).
     fn ss_within(&self, perms: &[usize], out: &mut [f64]) {
+        if self.n <= usize::from(u16::MAX) {
+            self.ss_within_idx::<u16>(perms, out);
+        } else {
+            self.ss_within_idx::<u32>(perms, out);
+        }
+    }
+
+    /// [`OneWay::ss_within`] with sample indices stored as `I` (u16 halves the index
+    /// traffic when n ≤ 65535).
+    fn ss_within_idx<I: Index>(&self, perms: &[usize], out: &mut [f64]) {
         let (n, a) = (self.n, self.a);
         let k = out.len();
+        let idx = I::from_usize;
         // members[p*n ..]: the positions of each group in ascending order, group by group;
-        // slot[i*k + p]: where position i sits in that list.
-        let mut members = vec![0u32; k * n];
+        // slot[i*k + p]: where position i sits in that list; group[i*k + p]: its group.
+        let mut members = vec![I::default(); k * n];
         let mut slot = vec![0u32; k * n];
         let mut group = vec![0u32; k * n];
         let mut next = vec![0usize; a];
@@ -147,7 +186,7 @@ impl OneWay {
             let perm = &perms[p * n..(p + 1) * n];
             for (i, &src) in perm.iter().enumerate() {
                 let g = self.codes[src];
-                members[p * n + next[g]] = i as u32;
+                members[p * n + next[g]] = idx(i);
                 slot[i * k + p] = next[g] as u32;
                 group[i * k + p] = g as u32;
                 next[g] += 1;
@@ -161,17 +200,18 @@ impl OneWay {
                 let start = slot[i * k + p] as usize + 1;
                 let end = self.offsets[g + 1];
                 let list = &members[p * n + start..p * n + end];
-                let mut s0 = 0.0;
-                let mut s1 = 0.0;
-                let mut chunks = list.chunks_exact(2);
+                let mut s = [0.0f64; 4];
+                let mut chunks = list.chunks_exact(4);
                 for c in &mut chunks {
-                    s0 += row[c[0] as usize];
-                    s1 += row[c[1] as usize];
+                    s[0] += row[c[0].get()];
+                    s[1] += row[c[1].get()];
+                    s[2] += row[c[2].get()];
+                    s[3] += row[c[3].get()];
                 }
                 for &m in chunks.remainder() {
-                    s0 += row[m as usize];
+                    s[0] += row[m.get()];
                 }
-                acc[p * a + g] += s0 + s1;
+                acc[p * a + g] += (s[0] + s[1]) + (s[2] + s[3]);
             }
         }
         for p in 0..k {
