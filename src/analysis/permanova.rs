@@ -516,12 +516,12 @@ pub fn pairwise(
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use crate::analysis::linear_model::{Term, TermSpec};
 
     /// The toy community of METHODS.md §11.2 (B).
-    const TOY: [[f64; 6]; 10] = [
+    pub(crate) const TOY: [[f64; 6]; 10] = [
         [12., 5., 0., 3., 1., 0.],
         [20., 8., 1., 5., 0., 2.],
         [9., 4., 0., 1., 2., 0.],
