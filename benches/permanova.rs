@@ -38,9 +38,9 @@ fn main() {
             ((i + 1)..n)
                 .map(|k| {
                     let (mut num, mut den) = (0.0, 0.0);
-                    for j in 0..p {
-                        num += (y[i][j] - y[k][j]).abs();
-                        den += y[i][j] + y[k][j];
+                    for (a, b) in y[i].iter().zip(&y[k]) {
+                        num += (a - b).abs();
+                        den += a + b;
                     }
                     num / den
                 })

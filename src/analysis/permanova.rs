@@ -672,6 +672,83 @@ pub(crate) mod tests {
     }
 
     #[test]
+    fn freedman_lane_distance_form_equals_textbook_coordinate_form() {
+        // METHODS.md §7.3 / §11.1 item 10 (Freedman & Lane 1983): permuting G_R = R_r G R_r
+        // gives the same F* as the textbook route Y* = H_r Y + P R_r Y refitted in
+        // coordinates, for Euclidean D.
+        let n = 12;
+        let y = DMatrix::from_fn(n, 3, |i, j| {
+            (((i * 7 + j * 5) % 11) as f64).sin() * 3.0 + (i % 3) as f64 * j as f64
+        });
+        let z: Vec<f64> = (0..n).map(|i| (i as f64 * 0.7).cos()).collect();
+        let f = Grouping::from_codes(&(0..n).map(|i| i % 3).collect::<Vec<_>>());
+        let design = Design::new(
+            n,
+            vec![
+                Term::new("z", TermSpec::Covariate(z)),
+                Term::new("f", TermSpec::Factor(f)),
+            ],
+        )
+        .unwrap();
+        let rows: Vec<Vec<f64>> = y.row_iter().map(|r| r.iter().copied().collect()).collect();
+        let d = DistanceMatrix::from_fn(n, |i, k| {
+            rows[i]
+                .iter()
+                .zip(&rows[k])
+                .map(|(a, b)| (a - b).powi(2))
+                .sum::<f64>()
+                .sqrt()
+        })
+        .unwrap();
+        let g = gower_centre(&d);
+        let bases = linear_model::term_bases(&design, SsType::Sequential).unwrap();
+        let (red, full) = &bases[1];
+        let df_resid = n - full.rank();
+        let pt = PartialTerm {
+            gr: residualise(&g, red.q()),
+            full,
+            k_reduced: red.rank(),
+            df_term: 2,
+            df_resid,
+        };
+        let hr_y = red.q() * (red.q().transpose() * &y);
+        let resid = &y - &hr_y;
+        let permuter = Permuter::new(n, &Scheme::Free, None).unwrap();
+        let mut rng = permutation::block_rng(5, 0);
+        for _ in 0..5 {
+            let mut perm = vec![0; n];
+            permuter.random(&mut rng, &mut perm);
+            let mut out = [0.0];
+            pt.f_batch(&perm, &mut out);
+            let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
+            let fit_f = (full.q().transpose() * &ystar).norm_squared();
+            let fit_r = (red.q().transpose() * &ystar).norm_squared();
+            let f_coord =
+                ((fit_f - fit_r) / 2.0) / ((ystar.norm_squared() - fit_f) / df_resid as f64);
+            assert!(
+                (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
+                "{} vs {f_coord}",
+                out[0]
+            );
+        }
+    }
+
+    #[test]
+    fn progress_reaches_the_total() {
+        let (d, g) = toy();
+        let last = std::sync::Mutex::new((0, 0));
+        let cb = |done: usize, total: usize| {
+            let mut l = last.lock().unwrap();
+            if done > l.0 {
+                *l = (done, total);
+            }
+        };
+        permanova_oneway(&d, &g, &opts(600, Scheme::Free), Some(&cb)).unwrap();
+        // 252 distinct labelings <= 600: exact, so the total is 252.
+        assert_eq!(*last.lock().unwrap(), (252, 252));
+    }
+
+    #[test]
     fn errors() {
         let (d, _) = toy();
         let one = Grouping::from_labels(&["a"; 10]);
