@@ -88,6 +88,34 @@ pub struct PermanovaResult {
 /// Batches within a block: rows stay in cache across this many permutations.
 const SUB_BATCH: usize = 64;
 
+/// Compact sample index for the gather loop.
+trait Index: Copy + Default {
+    /// From a position known to fit (n was checked by the caller).
+    fn from_usize(v: usize) -> Self;
+    /// Back to usize.
+    fn get(self) -> usize;
+}
+
+impl Index for u16 {
+    fn from_usize(v: usize) -> Self {
+        u16::try_from(v).expect("invariant: caller checked n <= u16::MAX")
+    }
+    #[inline(always)]
+    fn get(self) -> usize {
+        usize::from(self)
+    }
+}
+
+impl Index for u32 {
+    fn from_usize(v: usize) -> Self {
+        u32::try_from(v).expect("invariant: n fits u32 (a u32 n x n matrix would not fit memory)")
+    }
+    #[inline(always)]
+    fn get(self) -> usize {
+        self as usize
+    }
+}
+
 /// Precomputed state of the one-way statistic.
 struct OneWay {
     n: usize,
@@ -134,11 +162,22 @@ impl OneWay {
 
     /// SS_W of each permutation in `perms` (k × n).
     fn ss_within(&self, perms: &[usize], out: &mut [f64]) {
+        if self.n <= usize::from(u16::MAX) {
+            self.ss_within_idx::<u16>(perms, out);
+        } else {
+            self.ss_within_idx::<u32>(perms, out);
+        }
+    }
+
+    /// [`OneWay::ss_within`] with sample indices stored as `I` (u16 halves the index
+    /// traffic when n ≤ 65535).
+    fn ss_within_idx<I: Index>(&self, perms: &[usize], out: &mut [f64]) {
         let (n, a) = (self.n, self.a);
         let k = out.len();
+        let idx = I::from_usize;
         // members[p*n ..]: the positions of each group in ascending order, group by group;
-        // slot[i*k + p]: where position i sits in that list.
-        let mut members = vec![0u32; k * n];
+        // slot[i*k + p]: where position i sits in that list; group[i*k + p]: its group.
+        let mut members = vec![I::default(); k * n];
         let mut slot = vec![0u32; k * n];
         let mut group = vec![0u32; k * n];
         let mut next = vec![0usize; a];
@@ -147,7 +186,7 @@ impl OneWay {
             let perm = &perms[p * n..(p + 1) * n];
             for (i, &src) in perm.iter().enumerate() {
                 let g = self.codes[src];
-                members[p * n + next[g]] = i as u32;
+                members[p * n + next[g]] = idx(i);
                 slot[i * k + p] = next[g] as u32;
                 group[i * k + p] = g as u32;
                 next[g] += 1;
@@ -161,17 +200,18 @@ impl OneWay {
                 let start = slot[i * k + p] as usize + 1;
                 let end = self.offsets[g + 1];
                 let list = &members[p * n + start..p * n + end];
-                let mut s0 = 0.0;
-                let mut s1 = 0.0;
-                let mut chunks = list.chunks_exact(2);
+                let mut s = [0.0f64; 4];
+                let mut chunks = list.chunks_exact(4);
                 for c in &mut chunks {
-                    s0 += row[c[0] as usize];
-                    s1 += row[c[1] as usize];
+                    s[0] += row[c[0].get()];
+                    s[1] += row[c[1].get()];
+                    s[2] += row[c[2].get()];
+                    s[3] += row[c[3].get()];
                 }
                 for &m in chunks.remainder() {
-                    s0 += row[m as usize];
+                    s[0] += row[m.get()];
                 }
-                acc[p * a + g] += s0 + s1;
+                acc[p * a + g] += (s[0] + s[1]) + (s[2] + s[3]);
             }
         }
         for p in 0..k {
@@ -476,12 +516,12 @@ pub fn pairwise(
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use crate::analysis::linear_model::{Term, TermSpec};
 
     /// The toy community of METHODS.md §11.2 (B).
-    const TOY: [[f64; 6]; 10] = [
+    pub(crate) const TOY: [[f64; 6]; 10] = [
         [12., 5., 0., 3., 1., 0.],
         [20., 8., 1., 5., 0., 2.],
         [9., 4., 0., 1., 2., 0.],
@@ -629,6 +669,83 @@ mod tests {
         // A vs C are identical samples: F = 0.
         assert!(p[1].pseudo_f.abs() < 1e-12);
         assert_eq!((p[0].a.as_str(), p[0].b.as_str()), ("A", "B"));
+    }
+
+    #[test]
+    fn freedman_lane_distance_form_equals_textbook_coordinate_form() {
+        // METHODS.md §7.3 / §11.1 item 10 (Freedman & Lane 1983): permuting G_R = R_r G R_r
+        // gives the same F* as the textbook route Y* = H_r Y + P R_r Y refitted in
+        // coordinates, for Euclidean D.
+        let n = 12;
+        let y = DMatrix::from_fn(n, 3, |i, j| {
+            (((i * 7 + j * 5) % 11) as f64).sin() * 3.0 + (i % 3) as f64 * j as f64
+        });
+        let z: Vec<f64> = (0..n).map(|i| (i as f64 * 0.7).cos()).collect();
+        let f = Grouping::from_codes(&(0..n).map(|i| i % 3).collect::<Vec<_>>());
+        let design = Design::new(
+            n,
+            vec![
+                Term::new("z", TermSpec::Covariate(z)),
+                Term::new("f", TermSpec::Factor(f)),
+            ],
+        )
+        .unwrap();
+        let rows: Vec<Vec<f64>> = y.row_iter().map(|r| r.iter().copied().collect()).collect();
+        let d = DistanceMatrix::from_fn(n, |i, k| {
+            rows[i]
+                .iter()
+                .zip(&rows[k])
+                .map(|(a, b)| (a - b).powi(2))
+                .sum::<f64>()
+                .sqrt()
+        })
+        .unwrap();
+        let g = gower_centre(&d);
+        let bases = linear_model::term_bases(&design, SsType::Sequential).unwrap();
+        let (red, full) = &bases[1];
+        let df_resid = n - full.rank();
+        let pt = PartialTerm {
+            gr: residualise(&g, red.q()),
+            full,
+            k_reduced: red.rank(),
+            df_term: 2,
+            df_resid,
+        };
+        let hr_y = red.q() * (red.q().transpose() * &y);
+        let resid = &y - &hr_y;
+        let permuter = Permuter::new(n, &Scheme::Free, None).unwrap();
+        let mut rng = permutation::block_rng(5, 0);
+        for _ in 0..5 {
+            let mut perm = vec![0; n];
+            permuter.random(&mut rng, &mut perm);
+            let mut out = [0.0];
+            pt.f_batch(&perm, &mut out);
+            let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
+            let fit_f = (full.q().transpose() * &ystar).norm_squared();
+            let fit_r = (red.q().transpose() * &ystar).norm_squared();
+            let f_coord =
+                ((fit_f - fit_r) / 2.0) / ((ystar.norm_squared() - fit_f) / df_resid as f64);
+            assert!(
+                (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
+                "{} vs {f_coord}",
+                out[0]
+            );
+        }
+    }
+
+    #[test]
+    fn progress_reaches_the_total() {
+        let (d, g) = toy();
+        let last = std::sync::Mutex::new((0, 0));
+        let cb = |done: usize, total: usize| {
+            let mut l = last.lock().unwrap();
+            if done > l.0 {
+                *l = (done, total);
+            }
+        };
+        permanova_oneway(&d, &g, &opts(600, Scheme::Free), Some(&cb)).unwrap();
+        // 252 distinct labelings <= 600: exact, so the total is 252.
+        assert_eq!(*last.lock().unwrap(), (252, 252));
     }
 
     #[test]
