@@ -277,6 +277,16 @@ impl Distance {
     /// [`AnalysisError::NonFinite`] on NaN/inf input; [`AnalysisError::Negative`]
     /// on negative input where [`Distance::needs_non_negative`]; the empty-sample
     /// and empty-taxon errors stated on each variant.
+    ///
+    /// # Examples
+    /// ```
+    /// use nalgebra::DMatrix;
+    /// use tally::analysis::Distance;
+    /// // Legendre & Legendre (1998, p. 457) table; Bray-Curtis d(1,2) = 1 - 2·30/(40 + 35) = 0.2
+    /// let y = DMatrix::from_row_slice(3, 3, &[10., 10., 20., 10., 15., 10., 15., 5., 5.]);
+    /// let d = Distance::BrayCurtis.compute(&y).unwrap();
+    /// assert!((d.get(0, 1) - 0.2).abs() < 1e-12);
+    /// ```
     pub fn compute(&self, x: &DMatrix<f64>) -> Result<DistanceMatrix, AnalysisError> {
         if self.needs_non_negative() {
             check_counts(x)?;
