@@ -63,8 +63,6 @@ pub struct CountMatrix {
 impl CountMatrix {
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
-        (0..self.values.nrows())
-            .map(|i| self.values.row(i).sum())
-            .collect()
+        (0..self.values.nrows()).map(|i| self.values.row(i).sum()).collect()
     }
 }

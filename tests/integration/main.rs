@@ -1,5 +1,5 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
-mod distance_properties;
-mod reference_distances;
-mod store_cli;
 mod util;
+mod store_cli;
+mod reference_distances;
+mod distance_properties;
