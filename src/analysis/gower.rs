@@ -40,7 +40,7 @@ pub fn gower_centre(d: &DistanceMatrix) -> DMatrix<f64> {
 ///
 /// Tests (PERMANOVA, db-RDA) never use a correction (McArdle & Anderson 2001,
 /// Ecology 82:290-297); corrections are for real coordinates only.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Correction {
     /// Decompose G as it is.
     None,
@@ -246,6 +246,13 @@ fn sorted_eigen(g: DMatrix<f64>) -> Result<(Vec<f64>, DMatrix<f64>), AnalysisErr
         vectors.set_column(a, &v);
     }
     Ok((values, vectors))
+}
+
+/// Serialised as its stable name (e.g. in stored run parameters).
+impl serde::Serialize for Correction {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.name())
+    }
 }
 
 #[cfg(test)]

@@ -39,11 +39,6 @@ impl RowMajor {
         RowMajor { n, stride, data }
     }
 
-    /// Number of rows.
-    pub(crate) fn n(&self) -> usize {
-        self.n
-    }
-
     /// Row i, padded.
     #[inline]
     pub(crate) fn row(&self, i: usize) -> &[f64] {
@@ -67,8 +62,30 @@ pub(crate) fn condensed<F>(n: usize, f: F) -> Vec<f64>
 where
     F: Fn(usize, usize) -> f64 + Sync,
 {
+    by_row_blocks(n, TILE, |i0, block| {
+        let mut j0 = i0 + 1;
+        while j0 < n {
+            let j1 = (j0 + TILE).min(n);
+            for (di, seg) in block.iter_mut().enumerate() {
+                let i = i0 + di;
+                for j in j0.max(i + 1)..j1 {
+                    seg[j - i - 1] = f(i, j);
+                }
+            }
+            j0 = j1;
+        }
+    })
+}
+
+/// The condensed vector for n samples, filled by `fill(i0, segments)` in parallel
+/// over blocks of `block` consecutive rows: `segments[di]` is the output of row
+/// `i0 + di`, i.e. the pairs `(i0 + di, i0 + di + 1 .. n)`. Block boundaries do
+/// not depend on the thread count.
+pub(crate) fn by_row_blocks<F>(n: usize, block: usize, fill: F) -> Vec<f64>
+where
+    F: Fn(usize, &mut [&mut [f64]]) + Sync,
+{
     let mut out = vec![0.0; n * n.saturating_sub(1) / 2];
-    // Split the output into the segments of rows 0..n (row i holds pairs (i, i+1..n)).
     let mut rows: Vec<&mut [f64]> = Vec::with_capacity(n);
     let mut rest: &mut [f64] = &mut out;
     for i in 0..n {
@@ -76,22 +93,9 @@ where
         rows.push(head);
         rest = tail;
     }
-    rows.par_chunks_mut(TILE)
+    rows.par_chunks_mut(block.max(1))
         .enumerate()
-        .for_each(|(b, block)| {
-            let i0 = b * TILE;
-            let mut j0 = i0 + 1;
-            while j0 < n {
-                let j1 = (j0 + TILE).min(n);
-                for (di, seg) in block.iter_mut().enumerate() {
-                    let i = i0 + di;
-                    for j in j0.max(i + 1)..j1 {
-                        seg[j - i - 1] = f(i, j);
-                    }
-                }
-                j0 = j1;
-            }
-        });
+        .for_each(|(b, segs)| fill(b * block.max(1), segs));
     out
 }
 

@@ -15,7 +15,7 @@ use super::AnalysisError;
 /// [`Transform::Hellinger`] (each row then depends only on its own proportions).
 /// [`Transform::Sqrt`], [`Transform::FourthRoot`] and [`Transform::Log1p`]
 /// compress size but keep it; [`Transform::Presence`] keeps only which taxa occur.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Transform {
     /// Leave the values as they are.
     None,
@@ -77,6 +77,15 @@ impl Transform {
     /// entry (row-major order); for [`Transform::Profile`] and
     /// [`Transform::Hellinger`], [`AnalysisError::EmptySamples`] listing every
     /// row whose total is zero (its proportions are undefined, METHODS.md §1).
+    ///
+    /// # Examples
+    /// ```
+    /// use nalgebra::DMatrix;
+    /// use tally::analysis::Transform;
+    /// let y = DMatrix::from_row_slice(1, 3, &[1., 3., 0.]);
+    /// let h = Transform::Hellinger.apply(&y).unwrap();
+    /// assert_eq!(h.as_slice(), &[0.5, 0.75f64.sqrt(), 0.0]);
+    /// ```
     pub fn apply(&self, y: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
         check_counts(y)?;
         let out = match self {
@@ -182,6 +191,13 @@ pub(crate) fn refuse_empty_rows(totals: &[f64]) -> Result<(), AnalysisError> {
     }
 }
 
+/// Serialised as its stable name (e.g. in stored run parameters).
+impl serde::Serialize for Transform {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.name())
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -190,6 +206,7 @@ mod tests {
     use crate::analysis::prec::test_data::ll457;
 
     #[test]
+    #[allow(clippy::approx_constant)] // 0.707107 is the printed reference value, not 1/√2 by intent
     fn hellinger_and_chi_square_coordinates_of_ll457() {
         // METHODS.md §11.2 (A), transformed data, values [D] (derived from the
         // §2 formulas, printed to 6 decimals).

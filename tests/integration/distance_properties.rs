@@ -44,11 +44,11 @@ proptest! {
         for dist in Distance::ALL {
             let d = dist.compute(&y).unwrap();
             let sq = d.to_square();
-            for i in 0..y.nrows() {
-                prop_assert_eq!(sq[i][i], 0.0);
-                for k in 0..y.nrows() {
-                    prop_assert_eq!(sq[i][k], sq[k][i]);
-                    prop_assert!(sq[i][k].is_finite() && sq[i][k] >= 0.0, "{} {}", dist.name(), sq[i][k]);
+            for (i, row) in sq.iter().enumerate() {
+                prop_assert_eq!(row[i], 0.0);
+                for (k, v) in row.iter().enumerate() {
+                    prop_assert_eq!(*v, sq[k][i]);
+                    prop_assert!(v.is_finite() && *v >= 0.0, "{} {}", dist.name(), v);
                 }
             }
             if matches!(dist, Distance::BrayCurtis | Distance::Jaccard | Distance::Kulczynski) {

@@ -6,3 +6,7 @@ mod reference_models;
 mod store_cli;
 mod util;
 mod demo_data;
+mod util;
+mod store_cli;
+mod reference_distances;
+mod distance_properties;
