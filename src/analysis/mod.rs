@@ -13,6 +13,7 @@ pub mod error;
 pub mod gower;
 pub mod linear_model;
 pub mod ordination;
+pub mod partition;
 mod pairwise;
 pub mod permanova;
 pub mod permutation;

@@ -309,7 +309,7 @@ pub fn permanova_oneway(
 }
 
 /// `R G R` with `R = I - Q Q'` (the centred matrix of residuals under a reduced model).
-fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
+pub(crate) fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
     let gq = g * q;
     let qgq = q.transpose() * &gq;
     let mut out = g - q * gq.transpose() - &gq * q.transpose();
@@ -318,16 +318,29 @@ fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
 }
 
 /// Freedman–Lane statistic of one term: G_R, bases, df.
-struct PartialTerm<'a> {
-    gr: DMatrix<f64>,
-    full: &'a Basis,
-    k_reduced: usize,
-    df_term: usize,
-    df_resid: usize,
+pub(crate) struct PartialTerm<'a> {
+    pub(crate) gr: DMatrix<f64>,
+    pub(crate) full: &'a Basis,
+    pub(crate) k_reduced: usize,
+    pub(crate) df_term: usize,
+    pub(crate) df_resid: usize,
 }
 
-impl PartialTerm<'_> {
-    fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
+impl<'a> PartialTerm<'a> {
+    /// The test of `full` over `reduced` on the centred matrix `g`, residuals permuted
+    /// under the reduced model.
+    pub(crate) fn new(g: &DMatrix<f64>, reduced: &Basis, full: &'a Basis) -> Self {
+        PartialTerm {
+            gr: residualise(g, reduced.q()),
+            full,
+            k_reduced: reduced.rank(),
+            df_term: full.rank() - reduced.rank(),
+            df_resid: full.n() - full.rank(),
+        }
+    }
+
+    /// Pseudo-F of each permutation in `perms` (k × n, laid end to end).
+    pub(crate) fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
         let n = self.gr.nrows();
         let q = self.full.q();
         let kf = q.ncols();
