@@ -255,6 +255,23 @@ fn check_groups(g: &Grouping, n: usize) -> Result<(), AnalysisError> {
 /// One-way PERMANOVA by label permutation (Anderson 2001): `SS_T = (1/N) Σ_{i<k} d²`,
 /// `SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²`, `F = (SS_A/(a-1)) / (SS_W/(N-a))`.
 ///
+/// # Examples
+/// ```
+/// use tally::analysis::DistanceMatrix;
+/// use tally::analysis::linear_model::{Grouping, SsType};
+/// use tally::analysis::permanova::{PermanovaOptions, permanova_oneway};
+/// use tally::analysis::permutation::Scheme;
+/// let x: [f64; 6] = [1.0, 2.0, 3.0, 7.0, 8.0, 9.0];
+/// let d = DistanceMatrix::from_fn(6, |i, k| (x[i] - x[k]).abs())?;
+/// let g = Grouping::from_labels(&["a", "a", "a", "b", "b", "b"]);
+/// let o = PermanovaOptions { permutations: 999, seed: 1, scheme: Scheme::Free, ss_type: SsType::Sequential };
+/// let r = permanova_oneway(&d, &g, &o, None)?;
+/// // Euclidean on one variable: the ANOVA F, 54 / (4/4) = 54; C(6,3) = 20 labelings, exact.
+/// assert!((r.terms[0].pseudo_f - 54.0).abs() < 1e-9);
+/// assert!(r.exact && (r.terms[0].p_value - 0.1).abs() < 1e-12);
+/// # Ok::<(), tally::analysis::AnalysisError>(())
+/// ```
+///
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`], [`AnalysisError::TooFewGroups`] (fewer than 2),
 /// [`AnalysisError::Saturated`] (no residual df), and the errors of the permuter
@@ -746,6 +763,56 @@ pub(crate) mod tests {
         permanova_oneway(&d, &g, &opts(600, Scheme::Free), Some(&cb)).unwrap();
         // 252 distinct labelings <= 600: exact, so the total is 252.
         assert_eq!(*last.lock().unwrap(), (252, 252));
+    }
+
+    #[test]
+    fn strata_restrict_the_exact_enumeration() {
+        // Two strata of 5 (rows 0,1,2,5,6 and 3,4,7,8,9), labels A A A B B and A A B B B:
+        // distinct within-stratum labelings C(5,3)·C(5,2) = 100 (METHODS.md §7.5: the count
+        // is the product over strata); brute force over those 100 gives the exact p.
+        let (d, g) = toy();
+        let strata = vec![0, 0, 0, 1, 1, 0, 0, 1, 1, 1];
+        let r = permanova_oneway(
+            &d,
+            &g,
+            &opts(999, Scheme::WithinStrata(strata.clone())),
+            None,
+        )
+        .unwrap();
+        assert!(r.exact);
+        assert_eq!(r.permutations, 100);
+        let s0: Vec<usize> = (0..10).filter(|&i| strata[i] == 0).collect();
+        let s1: Vec<usize> = (0..10).filter(|&i| strata[i] == 1).collect();
+        let f_of = |ina: &[bool]| {
+            let lab: Vec<&str> = ina.iter().map(|&a| if a { "A" } else { "B" }).collect();
+            let rr = permanova_oneway(
+                &d,
+                &Grouping::from_labels(&lab),
+                &opts(1, Scheme::Free),
+                None,
+            )
+            .unwrap();
+            rr.terms[0].pseudo_f
+        };
+        let mut count = 0;
+        for m0 in 0u32..32 {
+            for m1 in 0u32..32 {
+                if m0.count_ones() != 3 || m1.count_ones() != 2 {
+                    continue;
+                }
+                let mut ina = vec![false; 10];
+                for (b, &i) in s0.iter().enumerate() {
+                    ina[i] = m0 & (1 << b) != 0;
+                }
+                for (b, &i) in s1.iter().enumerate() {
+                    ina[i] = m1 & (1 << b) != 0;
+                }
+                if f_of(&ina) >= r.terms[0].pseudo_f * (1.0 - 1e-9) {
+                    count += 1;
+                }
+            }
+        }
+        assert!((r.terms[0].p_value - count as f64 / 100.0).abs() < 1e-12);
     }
 
     #[test]
