@@ -816,6 +816,82 @@ pub(crate) mod tests {
     }
 
     #[test]
+    fn shape_only_distance_finds_shape_not_size() {
+        // Known truth (TESTING.md item 4): counts ~ Poisson(s · mu_gj) with a lognormal
+        // sample factor s. Pure size: B's means are twice A's (same composition); pure
+        // shape: same total, reversed composition. Hellinger distance depends only on
+        // profiles (METHODS.md §2), so PERMANOVA on it must reject for shape and not
+        // (beyond α) for size.
+        use crate::analysis::size_test::tests::poisson;
+        use rand::RngExt;
+        let comp_a = [20.0, 10.0, 8.0, 5.0, 3.0, 2.0, 1.0, 1.0];
+        let comp_b = [1.0, 1.0, 2.0, 3.0, 5.0, 8.0, 10.0, 20.0];
+        let doubled = comp_a.map(|m| 2.0 * m);
+        let hellinger = |rows: &[Vec<f64>]| {
+            let h: Vec<Vec<f64>> = rows
+                .iter()
+                .map(|r| {
+                    let t: f64 = r.iter().sum();
+                    r.iter().map(|v| (v / t).sqrt()).collect()
+                })
+                .collect();
+            DistanceMatrix::from_fn(h.len(), |i, k| {
+                h[i].iter()
+                    .zip(&h[k])
+                    .map(|(a, b)| (a - b).powi(2))
+                    .sum::<f64>()
+                    .sqrt()
+            })
+            .unwrap()
+        };
+        let g = Grouping::from_codes(&(0..16).map(|i| i / 8).collect::<Vec<_>>());
+        let mut rng = permutation::block_rng(123, 0);
+        let mut sim = |mu: [&[f64; 8]; 2]| -> Vec<Vec<f64>> {
+            (0..16)
+                .map(|i| {
+                    let z: f64 = (0..12).map(|_| rng.random::<f64>()).sum::<f64>() - 6.0;
+                    let s = (0.3 * z).exp();
+                    mu[i / 8]
+                        .iter()
+                        .map(|&m| poisson(&mut rng, m * s))
+                        .collect()
+                })
+                .collect()
+        };
+        let reps = 200;
+        let (mut rej_size, mut rej_shape) = (0, 0);
+        for r in 0..reps {
+            let o = PermanovaOptions {
+                seed: r,
+                ..opts(199, Scheme::Free)
+            };
+            if permanova_oneway(&hellinger(&sim([&comp_a, &doubled])), &g, &o, None)
+                .unwrap()
+                .terms[0]
+                .p_value
+                <= 0.05
+            {
+                rej_size += 1;
+            }
+            if permanova_oneway(&hellinger(&sim([&comp_a, &comp_b])), &g, &o, None)
+                .unwrap()
+                .terms[0]
+                .p_value
+                <= 0.05
+            {
+                rej_shape += 1;
+            }
+        }
+        // Null (size only): rejections ≤ Binomial(200, 0.05) 0.999 quantile = 21
+        // (scipy.stats.binom.ppf(0.999, 200, 0.05)).
+        assert!(rej_size <= 21, "pure size: {rej_size}/200");
+        // The reversed composition is an enormous effect (profiles nearly disjoint in
+        // weight); any power below 0.99 would be a defect, and 195/200 is then failed
+        // with probability binom.cdf(194, 200, 0.99) < 0.02.
+        assert!(rej_shape >= 195, "pure shape: {rej_shape}/200");
+    }
+
+    #[test]
     fn errors() {
         let (d, _) = toy();
         let one = Grouping::from_labels(&["a"; 10]);
