@@ -404,7 +404,14 @@ pub fn permanova(
     let g = gower_centre(d);
     let table = linear_model::anova_table(&g, design, opts.ss_type)?;
     let bases = linear_model::term_bases(design, opts.ss_type)?;
-    let permuter = Permuter::new(n, &opts.scheme, None)?;
+    // A design made of one factor is a one-way design: arrangements that only swap
+    // samples of the same level give the same F, so distinct labelings are counted.
+    let labels = if design.names().len() == 1 {
+        design.factor(0).map(Grouping::codes)
+    } else {
+        None
+    };
+    let permuter = Permuter::new(n, &opts.scheme, labels)?;
     let popts = PermutationOptions {
         permutations: opts.permutations,
         seed: opts.seed,
@@ -599,11 +606,20 @@ pub(crate) mod tests {
             Design::new(10, vec![Term::new("groups", TermSpec::Factor(g.clone()))]).unwrap();
         let r2 = permanova(&d, &design, &opts(999, Scheme::Free), None).unwrap();
         assert!((r2.terms[0].pseudo_f - 18.281987915).abs() < 1e-8);
-        // The general path permutes samples (10! > 999 arrangements), so it is random:
-        // b ~ Binomial(999, 2/252), mean 7.9, and P(b >= 24) < 1e-5 (scipy.stats.binom.sf(23,
-        // 999, 2/252) = 2.8e-6), so p = (b+1)/1000 < 0.025 unless the test is wrong.
-        assert!(!r2.exact);
-        assert!(r2.terms[0].p_value < 0.025);
+        assert!(r2.exact);
+        assert!((r2.terms[0].p_value - 2.0 / 252.0).abs() < 1e-12);
+        // With a second term the arrangements are all 10! sample orders: random.
+        let cov = TermSpec::Covariate((0..10).map(|i| (i as f64).sqrt()).collect());
+        let design2 = Design::new(
+            10,
+            vec![
+                Term::new("groups", TermSpec::Factor(g.clone())),
+                Term::new("c", cov),
+            ],
+        )
+        .unwrap();
+        let r3 = permanova(&d, &design2, &opts(99, Scheme::Free), None).unwrap();
+        assert!(!r3.exact && r3.permutations == 99 && r3.terms.len() == 2);
     }
 
     /// Brute force: every assignment of 3 samples to group A among 6, F computed from
