@@ -334,20 +334,24 @@ fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
     out
 }
 
-/// Freedman–Lane statistic of one term: G_R, bases, df.
+/// Freedman–Lane statistic of one term. `model` is an orthonormal basis of the whole
+/// model whose columns `k_reduced..k_full` span what the term adds to its reduced model
+/// (the first `k_reduced` columns span the reduced model): the numerator is
+/// `tr((H_f - H_r) G*)`, the denominator the residual of the whole model `tr((I - H) G*)`.
 struct PartialTerm<'a> {
     gr: DMatrix<f64>,
-    full: &'a Basis,
+    model: &'a Basis,
     k_reduced: usize,
-    df_term: usize,
+    k_full: usize,
     df_resid: usize,
 }
 
 impl PartialTerm<'_> {
     fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
         let n = self.gr.nrows();
-        let q = self.full.q();
+        let q = self.model.q();
         let kf = q.ncols();
+        let df_term = (self.k_full - self.k_reduced) as f64;
         let tr = self.gr.trace();
         let sub = 32;
         for (pc, oc) in perms.chunks(sub * n).zip(out.chunks_mut(sub)) {
@@ -370,11 +374,11 @@ impl PartialTerm<'_> {
                 for c in 0..kf {
                     let v = w.column(p * kf + c).dot(&gw.column(p * kf + c));
                     s_all += v;
-                    if c >= self.k_reduced {
+                    if c >= self.k_reduced && c < self.k_full {
                         s_term += v;
                     }
                 }
-                *o = (s_term / self.df_term as f64) / ((tr - s_all) / self.df_resid as f64);
+                *o = (s_term / df_term) / ((tr - s_all) / self.df_resid as f64);
             }
         }
     }
@@ -418,17 +422,28 @@ pub fn permanova(
     };
     let mut terms = Vec::with_capacity(bases.len());
     let mut results: Vec<PermutationResult> = Vec::new();
+    // Sequential bases are built by extension, so each term's full basis is a prefix of
+    // the last one, which spans the whole model; marginal full bases span it already.
+    let last = bases.last().map(|b| b.1.clone());
     for (row, (red, full)) in table.terms.iter().zip(&bases) {
+        let model = match (opts.ss_type, &last) {
+            (SsType::Sequential, Some(l)) => l,
+            _ => full,
+        };
         let pt = PartialTerm {
             gr: residualise(&g, red.q()),
-            full,
+            model,
             k_reduced: red.rank(),
-            df_term: full.rank() - red.rank(),
+            k_full: full.rank(),
             df_resid: table.residual.df,
         };
         let identity: Vec<usize> = (0..n).collect();
         let mut obs = [0.0];
         pt.f_batch(&identity, &mut obs);
+        debug_assert!(
+            (obs[0] - row.pseudo_f).abs() <= 1e-8 * row.pseudo_f.abs().max(1.0),
+            "invariant: the identity permutation reproduces the table F"
+        );
         let stat = |perms: &[usize], out: &mut [f64]| pt.f_batch(perms, out);
         let res = permutation::permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
         terms.push(TermTest {
@@ -735,34 +750,40 @@ pub(crate) mod tests {
         .unwrap();
         let g = gower_centre(&d);
         let bases = linear_model::term_bases(&design, SsType::Sequential).unwrap();
-        let (red, full) = &bases[1];
-        let df_resid = n - full.rank();
-        let pt = PartialTerm {
-            gr: residualise(&g, red.q()),
-            full,
-            k_reduced: red.rank(),
-            df_term: 2,
-            df_resid,
-        };
-        let hr_y = red.q() * (red.q().transpose() * &y);
-        let resid = &y - &hr_y;
+        let all = &bases[1].1;
+        let df_resid = n - all.rank();
         let permuter = Permuter::new(n, &Scheme::Free, None).unwrap();
         let mut rng = permutation::block_rng(5, 0);
-        for _ in 0..5 {
-            let mut perm = vec![0; n];
-            permuter.random(&mut rng, &mut perm);
-            let mut out = [0.0];
-            pt.f_batch(&perm, &mut out);
-            let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
-            let fit_f = (full.q().transpose() * &ystar).norm_squared();
-            let fit_r = (red.q().transpose() * &ystar).norm_squared();
-            let f_coord =
-                ((fit_f - fit_r) / 2.0) / ((ystar.norm_squared() - fit_f) / df_resid as f64);
-            assert!(
-                (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
-                "{} vs {f_coord}",
-                out[0]
-            );
+        // Both sequential terms: z (reduced = intercept) and f | z; the denominator is the
+        // residual of the whole model in both.
+        for (red, full) in &bases {
+            let pt = PartialTerm {
+                gr: residualise(&g, red.q()),
+                model: all,
+                k_reduced: red.rank(),
+                k_full: full.rank(),
+                df_resid,
+            };
+            let df_term = (full.rank() - red.rank()) as f64;
+            let hr_y = red.q() * (red.q().transpose() * &y);
+            let resid = &y - &hr_y;
+            for _ in 0..5 {
+                let mut perm = vec![0; n];
+                permuter.random(&mut rng, &mut perm);
+                let mut out = [0.0];
+                pt.f_batch(&perm, &mut out);
+                let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
+                let fit_f = (full.q().transpose() * &ystar).norm_squared();
+                let fit_r = (red.q().transpose() * &ystar).norm_squared();
+                let fit_all = (all.q().transpose() * &ystar).norm_squared();
+                let f_coord = ((fit_f - fit_r) / df_term)
+                    / ((ystar.norm_squared() - fit_all) / df_resid as f64);
+                assert!(
+                    (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
+                    "{} vs {f_coord}",
+                    out[0]
+                );
+            }
         }
     }
 
