@@ -185,6 +185,7 @@ pub struct Design {
     n: usize,
     names: Vec<String>,
     columns: Vec<DMatrix<f64>>,
+    factors: Vec<Option<Grouping>>,
 }
 
 impl Design {
@@ -196,6 +197,7 @@ impl Design {
     pub fn new(n: usize, terms: Vec<Term>) -> Result<Self, AnalysisError> {
         let mut names = Vec::with_capacity(terms.len());
         let mut columns = Vec::with_capacity(terms.len());
+        let mut factors = Vec::with_capacity(terms.len());
         for (t, term) in terms.into_iter().enumerate() {
             if term.spec.n() != n {
                 return Err(AnalysisError::DimensionMismatch {
@@ -212,8 +214,17 @@ impl Design {
             }
             names.push(term.name);
             columns.push(x);
+            factors.push(match term.spec {
+                TermSpec::Factor(g) => Some(g),
+                _ => None,
+            });
         }
-        Ok(Design { n, names, columns })
+        Ok(Design {
+            n,
+            names,
+            columns,
+            factors,
+        })
     }
 
     /// Number of samples.
@@ -224,6 +235,11 @@ impl Design {
     /// Term names in order.
     pub fn names(&self) -> &[String] {
         &self.names
+    }
+
+    /// The grouping of term `t` when it is a factor.
+    pub fn factor(&self, t: usize) -> Option<&Grouping> {
+        self.factors[t].as_ref()
     }
 
     /// Columns of term `t`.

@@ -7,6 +7,8 @@
 //! The one-way path squares D once into a dense n × n row-major array and, per
 //! permutation, sums only the within-group pairs (`SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²_ik`),
 //! permutations in batches so each row stays in cache across the batch (§10.1).
+//! That square is made once per test (8n² bytes: 32 MB at n = 2000), never per
+//! permutation. The general path works on G (also n × n) and permutes basis rows.
 
 use nalgebra::DMatrix;
 use serde::Serialize;
@@ -255,6 +257,23 @@ fn check_groups(g: &Grouping, n: usize) -> Result<(), AnalysisError> {
 /// One-way PERMANOVA by label permutation (Anderson 2001): `SS_T = (1/N) Σ_{i<k} d²`,
 /// `SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²`, `F = (SS_A/(a-1)) / (SS_W/(N-a))`.
 ///
+/// # Examples
+/// ```
+/// use tally::analysis::DistanceMatrix;
+/// use tally::analysis::linear_model::{Grouping, SsType};
+/// use tally::analysis::permanova::{PermanovaOptions, permanova_oneway};
+/// use tally::analysis::permutation::Scheme;
+/// let x: [f64; 6] = [1.0, 2.0, 3.0, 7.0, 8.0, 9.0];
+/// let d = DistanceMatrix::from_fn(6, |i, k| (x[i] - x[k]).abs())?;
+/// let g = Grouping::from_labels(&["a", "a", "a", "b", "b", "b"]);
+/// let o = PermanovaOptions { permutations: 999, seed: 1, scheme: Scheme::Free, ss_type: SsType::Sequential };
+/// let r = permanova_oneway(&d, &g, &o, None)?;
+/// // Euclidean on one variable: the ANOVA F, 54 / (4/4) = 54; C(6,3) = 20 labelings, exact.
+/// assert!((r.terms[0].pseudo_f - 54.0).abs() < 1e-9);
+/// assert!(r.exact && (r.terms[0].p_value - 0.1).abs() < 1e-12);
+/// # Ok::<(), tally::analysis::AnalysisError>(())
+/// ```
+///
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`], [`AnalysisError::TooFewGroups`] (fewer than 2),
 /// [`AnalysisError::Saturated`] (no residual df), and the errors of the permuter
@@ -317,24 +336,27 @@ pub(crate) fn residualise(g: &DMatrix<f64>, q: &DMatrix<f64>) -> DMatrix<f64> {
     out
 }
 
-/// Freedman–Lane statistic of one term: G_R, bases, df.
+/// Freedman–Lane statistic of one term. `model` is an orthonormal basis of the whole
+/// model whose columns `k_reduced..k_full` span what the term adds to its reduced model
+/// (the first `k_reduced` columns span the reduced model): the numerator is
+/// `tr((H_f - H_r) G*)`, the denominator the residual of the whole model `tr((I - H) G*)`.
 pub(crate) struct PartialTerm<'a> {
-    pub(crate) gr: DMatrix<f64>,
-    pub(crate) full: &'a Basis,
-    pub(crate) k_reduced: usize,
-    pub(crate) df_term: usize,
-    pub(crate) df_resid: usize,
+    gr: DMatrix<f64>,
+    model: &'a Basis,
+    k_reduced: usize,
+    k_full: usize,
+    df_resid: usize,
 }
 
 impl<'a> PartialTerm<'a> {
-    /// The test of `full` over `reduced` on the centred matrix `g`, residuals permuted
-    /// under the reduced model.
+    /// The test of `full` over `reduced` on the centred matrix `g` when `full` is the
+    /// whole model (its residual is the denominator), residuals permuted under `reduced`.
     pub(crate) fn new(g: &DMatrix<f64>, reduced: &Basis, full: &'a Basis) -> Self {
         PartialTerm {
             gr: residualise(g, reduced.q()),
-            full,
+            model: full,
             k_reduced: reduced.rank(),
-            df_term: full.rank() - reduced.rank(),
+            k_full: full.rank(),
             df_resid: full.n() - full.rank(),
         }
     }
@@ -342,8 +364,9 @@ impl<'a> PartialTerm<'a> {
     /// Pseudo-F of each permutation in `perms` (k × n, laid end to end).
     pub(crate) fn f_batch(&self, perms: &[usize], out: &mut [f64]) {
         let n = self.gr.nrows();
-        let q = self.full.q();
+        let q = self.model.q();
         let kf = q.ncols();
+        let df_term = (self.k_full - self.k_reduced) as f64;
         let tr = self.gr.trace();
         let sub = 32;
         for (pc, oc) in perms.chunks(sub * n).zip(out.chunks_mut(sub)) {
@@ -366,11 +389,11 @@ impl<'a> PartialTerm<'a> {
                 for c in 0..kf {
                     let v = w.column(p * kf + c).dot(&gw.column(p * kf + c));
                     s_all += v;
-                    if c >= self.k_reduced {
+                    if c >= self.k_reduced && c < self.k_full {
                         s_term += v;
                     }
                 }
-                *o = (s_term / self.df_term as f64) / ((tr - s_all) / self.df_resid as f64);
+                *o = (s_term / df_term) / ((tr - s_all) / self.df_resid as f64);
             }
         }
     }
@@ -400,24 +423,42 @@ pub fn permanova(
     let g = gower_centre(d);
     let table = linear_model::anova_table(&g, design, opts.ss_type)?;
     let bases = linear_model::term_bases(design, opts.ss_type)?;
-    let permuter = Permuter::new(n, &opts.scheme, None)?;
+    // A design made of one factor is a one-way design: arrangements that only swap
+    // samples of the same level give the same F, so distinct labelings are counted.
+    let labels = if design.names().len() == 1 {
+        design.factor(0).map(Grouping::codes)
+    } else {
+        None
+    };
+    let permuter = Permuter::new(n, &opts.scheme, labels)?;
     let popts = PermutationOptions {
         permutations: opts.permutations,
         seed: opts.seed,
     };
     let mut terms = Vec::with_capacity(bases.len());
     let mut results: Vec<PermutationResult> = Vec::new();
+    // Sequential bases are built by extension, so each term's full basis is a prefix of
+    // the last one, which spans the whole model; marginal full bases span it already.
+    let last = bases.last().map(|b| b.1.clone());
     for (row, (red, full)) in table.terms.iter().zip(&bases) {
+        let model = match (opts.ss_type, &last) {
+            (SsType::Sequential, Some(l)) => l,
+            _ => full,
+        };
         let pt = PartialTerm {
             gr: residualise(&g, red.q()),
-            full,
+            model,
             k_reduced: red.rank(),
-            df_term: full.rank() - red.rank(),
+            k_full: full.rank(),
             df_resid: table.residual.df,
         };
         let identity: Vec<usize> = (0..n).collect();
         let mut obs = [0.0];
         pt.f_batch(&identity, &mut obs);
+        debug_assert!(
+            (obs[0] - row.pseudo_f).abs() <= 1e-8 * row.pseudo_f.abs().max(1.0),
+            "invariant: the identity permutation reproduces the table F"
+        );
         let stat = |perms: &[usize], out: &mut [f64]| pt.f_batch(perms, out);
         let res = permutation::permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
         terms.push(TermTest {
@@ -595,11 +636,20 @@ pub(crate) mod tests {
             Design::new(10, vec![Term::new("groups", TermSpec::Factor(g.clone()))]).unwrap();
         let r2 = permanova(&d, &design, &opts(999, Scheme::Free), None).unwrap();
         assert!((r2.terms[0].pseudo_f - 18.281987915).abs() < 1e-8);
-        // The general path permutes samples (10! > 999 arrangements), so it is random:
-        // b ~ Binomial(999, 2/252), mean 7.9, and P(b >= 24) < 1e-5 (scipy.stats.binom.sf(23,
-        // 999, 2/252) = 2.8e-6), so p = (b+1)/1000 < 0.025 unless the test is wrong.
-        assert!(!r2.exact);
-        assert!(r2.terms[0].p_value < 0.025);
+        assert!(r2.exact);
+        assert!((r2.terms[0].p_value - 2.0 / 252.0).abs() < 1e-12);
+        // With a second term the arrangements are all 10! sample orders: random.
+        let cov = TermSpec::Covariate((0..10).map(|i| (i as f64).sqrt()).collect());
+        let design2 = Design::new(
+            10,
+            vec![
+                Term::new("groups", TermSpec::Factor(g.clone())),
+                Term::new("c", cov),
+            ],
+        )
+        .unwrap();
+        let r3 = permanova(&d, &design2, &opts(99, Scheme::Free), None).unwrap();
+        assert!(!r3.exact && r3.permutations == 99 && r3.terms.len() == 2);
     }
 
     /// Brute force: every assignment of 3 samples to group A among 6, F computed from
@@ -715,34 +765,40 @@ pub(crate) mod tests {
         .unwrap();
         let g = gower_centre(&d);
         let bases = linear_model::term_bases(&design, SsType::Sequential).unwrap();
-        let (red, full) = &bases[1];
-        let df_resid = n - full.rank();
-        let pt = PartialTerm {
-            gr: residualise(&g, red.q()),
-            full,
-            k_reduced: red.rank(),
-            df_term: 2,
-            df_resid,
-        };
-        let hr_y = red.q() * (red.q().transpose() * &y);
-        let resid = &y - &hr_y;
+        let all = &bases[1].1;
+        let df_resid = n - all.rank();
         let permuter = Permuter::new(n, &Scheme::Free, None).unwrap();
         let mut rng = permutation::block_rng(5, 0);
-        for _ in 0..5 {
-            let mut perm = vec![0; n];
-            permuter.random(&mut rng, &mut perm);
-            let mut out = [0.0];
-            pt.f_batch(&perm, &mut out);
-            let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
-            let fit_f = (full.q().transpose() * &ystar).norm_squared();
-            let fit_r = (red.q().transpose() * &ystar).norm_squared();
-            let f_coord =
-                ((fit_f - fit_r) / 2.0) / ((ystar.norm_squared() - fit_f) / df_resid as f64);
-            assert!(
-                (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
-                "{} vs {f_coord}",
-                out[0]
-            );
+        // Both sequential terms: z (reduced = intercept) and f | z; the denominator is the
+        // residual of the whole model in both.
+        for (red, full) in &bases {
+            let pt = PartialTerm {
+                gr: residualise(&g, red.q()),
+                model: all,
+                k_reduced: red.rank(),
+                k_full: full.rank(),
+                df_resid,
+            };
+            let df_term = (full.rank() - red.rank()) as f64;
+            let hr_y = red.q() * (red.q().transpose() * &y);
+            let resid = &y - &hr_y;
+            for _ in 0..5 {
+                let mut perm = vec![0; n];
+                permuter.random(&mut rng, &mut perm);
+                let mut out = [0.0];
+                pt.f_batch(&perm, &mut out);
+                let ystar = DMatrix::from_fn(n, 3, |i, j| hr_y[(i, j)] + resid[(perm[i], j)]);
+                let fit_f = (full.q().transpose() * &ystar).norm_squared();
+                let fit_r = (red.q().transpose() * &ystar).norm_squared();
+                let fit_all = (all.q().transpose() * &ystar).norm_squared();
+                let f_coord = ((fit_f - fit_r) / df_term)
+                    / ((ystar.norm_squared() - fit_all) / df_resid as f64);
+                assert!(
+                    (out[0] - f_coord).abs() < 1e-9 * f_coord.abs().max(1.0),
+                    "{} vs {f_coord}",
+                    out[0]
+                );
+            }
         }
     }
 
@@ -759,6 +815,172 @@ pub(crate) mod tests {
         permanova_oneway(&d, &g, &opts(600, Scheme::Free), Some(&cb)).unwrap();
         // 252 distinct labelings <= 600: exact, so the total is 252.
         assert_eq!(*last.lock().unwrap(), (252, 252));
+    }
+
+    #[test]
+    fn strata_restrict_the_exact_enumeration() {
+        // Two strata of 5 (rows 0,1,2,5,6 and 3,4,7,8,9), labels A A A B B and A A B B B:
+        // distinct within-stratum labelings C(5,3)·C(5,2) = 100 (METHODS.md §7.5: the count
+        // is the product over strata); brute force over those 100 gives the exact p.
+        let (d, g) = toy();
+        let strata = vec![0, 0, 0, 1, 1, 0, 0, 1, 1, 1];
+        let r = permanova_oneway(
+            &d,
+            &g,
+            &opts(999, Scheme::WithinStrata(strata.clone())),
+            None,
+        )
+        .unwrap();
+        assert!(r.exact);
+        assert_eq!(r.permutations, 100);
+        let s0: Vec<usize> = (0..10).filter(|&i| strata[i] == 0).collect();
+        let s1: Vec<usize> = (0..10).filter(|&i| strata[i] == 1).collect();
+        let f_of = |ina: &[bool]| {
+            let lab: Vec<&str> = ina.iter().map(|&a| if a { "A" } else { "B" }).collect();
+            let rr = permanova_oneway(
+                &d,
+                &Grouping::from_labels(&lab),
+                &opts(1, Scheme::Free),
+                None,
+            )
+            .unwrap();
+            rr.terms[0].pseudo_f
+        };
+        let mut count = 0;
+        for m0 in 0u32..32 {
+            for m1 in 0u32..32 {
+                if m0.count_ones() != 3 || m1.count_ones() != 2 {
+                    continue;
+                }
+                let mut ina = vec![false; 10];
+                for (b, &i) in s0.iter().enumerate() {
+                    ina[i] = m0 & (1 << b) != 0;
+                }
+                for (b, &i) in s1.iter().enumerate() {
+                    ina[i] = m1 & (1 << b) != 0;
+                }
+                if f_of(&ina) >= r.terms[0].pseudo_f * (1.0 - 1e-9) {
+                    count += 1;
+                }
+            }
+        }
+        assert!((r.terms[0].p_value - count as f64 / 100.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn shape_only_distance_finds_shape_not_size() {
+        // Known truth (TESTING.md item 4): counts ~ Poisson(s · mu_gj) with a lognormal
+        // sample factor s. Pure size: B's means are twice A's (same composition); pure
+        // shape: same total, reversed composition. Hellinger distance depends only on
+        // profiles (METHODS.md §2), so PERMANOVA on it must reject for shape and not
+        // (beyond α) for size.
+        use crate::analysis::size_test::tests::poisson;
+        use rand::RngExt;
+        let comp_a = [20.0, 10.0, 8.0, 5.0, 3.0, 2.0, 1.0, 1.0];
+        let comp_b = [1.0, 1.0, 2.0, 3.0, 5.0, 8.0, 10.0, 20.0];
+        let doubled = comp_a.map(|m| 2.0 * m);
+        let hellinger = |rows: &[Vec<f64>]| {
+            let h: Vec<Vec<f64>> = rows
+                .iter()
+                .map(|r| {
+                    let t: f64 = r.iter().sum();
+                    r.iter().map(|v| (v / t).sqrt()).collect()
+                })
+                .collect();
+            DistanceMatrix::from_fn(h.len(), |i, k| {
+                h[i].iter()
+                    .zip(&h[k])
+                    .map(|(a, b)| (a - b).powi(2))
+                    .sum::<f64>()
+                    .sqrt()
+            })
+            .unwrap()
+        };
+        let g = Grouping::from_codes(&(0..16).map(|i| i / 8).collect::<Vec<_>>());
+        let mut rng = permutation::block_rng(123, 0);
+        let mut sim = |mu: [&[f64; 8]; 2]| -> Vec<Vec<f64>> {
+            (0..16)
+                .map(|i| {
+                    let z: f64 = (0..12).map(|_| rng.random::<f64>()).sum::<f64>() - 6.0;
+                    let s = (0.3 * z).exp();
+                    mu[i / 8]
+                        .iter()
+                        .map(|&m| poisson(&mut rng, m * s))
+                        .collect()
+                })
+                .collect()
+        };
+        let reps = 200;
+        let (mut rej_size, mut rej_shape) = (0, 0);
+        for r in 0..reps {
+            let o = PermanovaOptions {
+                seed: r,
+                ..opts(199, Scheme::Free)
+            };
+            if permanova_oneway(&hellinger(&sim([&comp_a, &doubled])), &g, &o, None)
+                .unwrap()
+                .terms[0]
+                .p_value
+                <= 0.05
+            {
+                rej_size += 1;
+            }
+            if permanova_oneway(&hellinger(&sim([&comp_a, &comp_b])), &g, &o, None)
+                .unwrap()
+                .terms[0]
+                .p_value
+                <= 0.05
+            {
+                rej_shape += 1;
+            }
+        }
+        // Null (size only): rejections ≤ Binomial(200, 0.05) 0.999 quantile = 21
+        // (scipy.stats.binom.ppf(0.999, 200, 0.05)).
+        assert!(rej_size <= 21, "pure size: {rej_size}/200");
+        // The reversed composition is an enormous effect (profiles nearly disjoint in
+        // weight); any power below 0.99 would be a defect, and 195/200 is then failed
+        // with probability binom.cdf(194, 200, 0.99) < 0.02.
+        assert!(rej_shape >= 195, "pure shape: {rej_shape}/200");
+    }
+
+    #[test]
+    fn whole_blocks_enumerate_block_labelings() {
+        // Between-block factor (METHODS.md §7.4): blocks {0,1},{2,3} are A and {4,5},{6,7}
+        // are B; whole-block permutation gives C(4,2) = 6 distinct labelings, checked here
+        // against a brute force over the 6 choices of two A blocks.
+        let rows: Vec<Vec<f64>> = TOY[..8].iter().map(|r| r.to_vec()).collect();
+        let d = bray_curtis(&rows);
+        let blocks = vec![0, 0, 1, 1, 2, 2, 3, 3];
+        let lab = |a_blocks: [usize; 2]| -> Grouping {
+            let l: Vec<&str> = blocks
+                .iter()
+                .map(|b| if a_blocks.contains(b) { "A" } else { "B" })
+                .collect();
+            Grouping::from_labels(&l)
+        };
+        let r = permanova_oneway(
+            &d,
+            &lab([0, 1]),
+            &opts(999, Scheme::WholeBlocks(blocks.clone())),
+            None,
+        )
+        .unwrap();
+        assert!(r.exact);
+        assert_eq!(r.permutations, 6);
+        let obs = r.terms[0].pseudo_f;
+        let mut count = 0;
+        for x in 0..4 {
+            for y in (x + 1)..4 {
+                let f = permanova_oneway(&d, &lab([x, y]), &opts(1, Scheme::Free), None)
+                    .unwrap()
+                    .terms[0]
+                    .pseudo_f;
+                if f >= obs * (1.0 - 1e-9) {
+                    count += 1;
+                }
+            }
+        }
+        assert!((r.terms[0].p_value - count as f64 / 6.0).abs() < 1e-12);
     }
 
     #[test]

@@ -211,12 +211,12 @@ pub fn size_test(
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use rand::RngExt;
 
     /// Knuth's multiplication method for a Poisson draw (fine for means below ~100).
-    fn poisson(rng: &mut impl rand::Rng, lambda: f64) -> f64 {
+    pub(crate) fn poisson(rng: &mut impl rand::Rng, lambda: f64) -> f64 {
         let l = (-lambda).exp();
         let (mut k, mut p) = (0.0, 1.0);
         loop {

@@ -9,6 +9,7 @@ use tally::analysis::gower::gower_centre;
 use tally::analysis::linear_model::{self, Basis, Design, Grouping, SsType, Term, TermSpec};
 use tally::analysis::permanova::{PermanovaOptions, permanova, permanova_oneway};
 use tally::analysis::permutation::{Scheme, benjamini_hochberg, holm};
+use tally::analysis::size_test::{SizeTestOptions, size_test};
 
 fn fixture(name: &str) -> Value {
     let path = format!("{}/tests/reference/{name}", env!("CARGO_MANIFEST_DIR"));
@@ -91,6 +92,43 @@ fn permanova_on_one_variable_equals_anova_f() {
             Design::new(x.len(), vec![Term::new("g", TermSpec::Factor(grouping))]).expect("design");
         let general = permanova(&d, &design, &opts(SsType::Sequential), None).expect("general");
         assert!(close(general.terms[0].pseudo_f, f));
+    }
+}
+
+#[test]
+fn size_test_f_equals_anova_f_on_log_totals() {
+    // The size test is the one-way F on ln(total) (METHODS.md §6.3): with totals = exp(v)
+    // it must equal scipy.stats.f_oneway on v.
+    for case in fixture("models_oneway.json")["cases"]
+        .as_array()
+        .expect("cases")
+    {
+        let groups = rows(&case["groups"]);
+        let totals: Vec<f64> = groups.iter().flatten().map(|v| v.exp()).collect();
+        let codes: Vec<usize> = groups
+            .iter()
+            .enumerate()
+            .flat_map(|(g, v)| vec![g; v.len()])
+            .collect();
+        let o = SizeTestOptions {
+            permutations: 99,
+            seed: 3,
+            scheme: Scheme::Free,
+            bootstrap: 99,
+            reference: 0,
+            confidence: 0.95,
+        };
+        let r = size_test(&totals, &Grouping::from_codes(&codes), &o, None).expect("size test");
+        let f = case["f"].as_f64().expect("f");
+        assert!((r.f - f).abs() <= 1e-8 * f.max(1.0), "{} vs {f}", r.f);
+        // The ratio to the reference is exp(mean_g - mean_0).
+        let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+        for (g, row) in r.groups.iter().enumerate() {
+            assert!(close(
+                row.ratio,
+                (mean(&groups[g]) - mean(&groups[0])).exp()
+            ));
+        }
     }
 }
 
