@@ -6,7 +6,3 @@ mod reference_models;
 mod store_cli;
 mod util;
 mod demo_data;
-mod util;
-mod store_cli;
-mod reference_distances;
-mod distance_properties;
