@@ -68,7 +68,7 @@ pub(crate) fn parse_sites(
             .extra
             .iter()
             .filter_map(|(i, key)| {
-                rec.get(*i)
+                Some(Columns::at(rec, Some(*i)))
                     .filter(|v| !v.is_empty())
                     .map(|v| (key.clone(), v.to_string()))
             })
