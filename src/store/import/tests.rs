@@ -40,6 +40,8 @@ fn counts_and_effort_must_be_finite_and_in_range() {
     }
     assert!(parse_count("-3").unwrap_err().contains("negative"));
     assert!(parse_count("3,5").unwrap_err().contains("decimal point"));
+    assert!(parse_count("NaN").unwrap_err().contains("finite"));
+    assert!(parse_count("many").unwrap_err().contains("not a number"));
     assert_eq!(parse_effort("3"), Ok(3.0));
     for bad in ["0", "-1", "", "NaN"] {
         assert!(parse_effort(bad).is_err(), "{bad} accepted");
