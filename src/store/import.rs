@@ -445,8 +445,10 @@ fn parse_number(s: &str, what: &str) -> std::result::Result<f64, String> {
     if s.is_empty() {
         return Err(format!("empty; expected {what}"));
     }
-    if s.bytes()
-        .any(|c| matches!(c.to_ascii_lowercase(), b'n' | b'i'))
+    let unsigned = s.strip_prefix(['+', '-']).unwrap_or(s);
+    if ["nan", "inf", "infinity"]
+        .iter()
+        .any(|w| unsigned.eq_ignore_ascii_case(w))
     {
         return Err(format!("'{s}' is not a finite number; expected {what}"));
     }
