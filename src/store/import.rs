@@ -357,7 +357,7 @@ impl Columns {
     }
 
     /// The field at `idx` in `rec`, spaces trimmed ("" when absent).
-    pub fn at<'r>(rec: &'r csv::StringRecord, idx: Option<usize>) -> &'r str {
+    pub fn at(rec: &csv::StringRecord, idx: Option<usize>) -> &str {
         idx.and_then(|i| rec.get(i)).map_or("", str::trim)
     }
 

@@ -36,10 +36,8 @@ pub fn detect_delimiter(text: &[u8]) -> u8 {
     for &b in &text[..line_end] {
         if b == b'"' {
             quoted = !quoted;
-        } else if !quoted {
-            if let Some(i) = DELIMITERS.iter().position(|&d| d == b) {
-                counts[i] += 1;
-            }
+        } else if !quoted && let Some(i) = DELIMITERS.iter().position(|&d| d == b) {
+            counts[i] += 1;
         }
     }
     let mut best = 0;
@@ -268,7 +266,9 @@ fn line_of(e: &csv::Error) -> u64 {
 mod tests {
     use super::*;
 
-    fn collect(bytes: &[u8]) -> (Vec<String>, Vec<(u64, Vec<String>)>, Issues) {
+    type Rows = Vec<(u64, Vec<String>)>;
+
+    fn collect(bytes: &[u8]) -> (Vec<String>, Rows, Issues) {
         let mut issues = Issues::default();
         let mut rows = Vec::new();
         let header = match Sheet::open(bytes, None, &mut issues) {

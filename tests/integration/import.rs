@@ -297,7 +297,7 @@ fn round_trip_records() -> String {
                         continue;
                     }
                     for (ti, t) in taxa.iter().enumerate() {
-                        if (si + ti + rep + year as usize) % 3 == 0 {
+                        if (si + ti + rep + year as usize).is_multiple_of(3) {
                             continue; // not found: not listed
                         }
                         s.push_str(&format!(
@@ -427,4 +427,36 @@ fn check_passes_and_backup_copies_the_content() {
     let (code, _, err) = env.run(["backup", copy.to_str().unwrap()]);
     assert_eq!(code, 1);
     assert!(err.contains("already exists"), "{err}");
+}
+
+#[test]
+fn the_examples_in_the_data_model_guide_import() {
+    let doc =
+        std::fs::read_to_string(root().join("docs/data-model.md")).expect("docs/data-model.md");
+    let blocks: Vec<&str> = doc
+        .split("```csv\n")
+        .skip(1)
+        .map(|b| b.split("```").next().unwrap())
+        .collect();
+    let kinds = ["sites", "protocols", "taxa", "events", "counts", "records"];
+    assert_eq!(blocks.len(), kinds.len());
+    let env = TestEnv::new();
+    env.stdout(["init"]);
+    for (kind, block) in kinds.iter().zip(&blocks) {
+        let path = env.write(&format!("{kind}.csv"), block);
+        let (code, _, err) = env.run(["import", kind, path.to_str().unwrap(), "--create-missing"]);
+        assert_eq!(code, 0, "{kind} example: {err}");
+    }
+    // The records example names three events (codes as the guide says).
+    let s: serde_json::Value =
+        serde_json::from_str(&env.stdout(["summary", "--format", "json"])).unwrap();
+    assert_eq!(s["events"], 2 + 3);
+    let dump = env.dump();
+    for code in [
+        "S07-2016-04-21-kick-1",
+        "S07-2016-04-21-kick-2",
+        "S08-2016-04-21-kick-1",
+    ] {
+        assert!(dump.contains(code), "{code}");
+    }
 }
