@@ -4,7 +4,7 @@
 //! Six kinds of file are read ([`ImportKind`]); their columns are listed in
 //! `docs/data-model.md`. Each import runs in three steps:
 //!
-//! 1. **parse** (pure, no store): the text is read through [`Sheet`] and each
+//! 1. **parse** (pure, no store): the text is read through `Sheet` (`store::sheet`) and each
 //!    field is checked for its own form (dates, numbers, ranges), every problem
 //!    becoming a [`RowIssue`](super::RowIssue) with line, column and what was
 //!    expected;
