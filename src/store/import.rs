@@ -4,7 +4,7 @@
 //! Six kinds of file are read ([`ImportKind`]); their columns are listed in
 //! `docs/data-model.md`. Each import runs in three steps:
 //!
-//! 1. **parse** (pure, no store): the text is read through [`Sheet`] and each
+//! 1. **parse** (pure, no store): the text is read through `Sheet` (`store::sheet`) and each
 //!    field is checked for its own form (dates, numbers, ranges), every problem
 //!    becoming a [`RowIssue`](super::RowIssue) with line, column and what was
 //!    expected;
@@ -287,7 +287,7 @@ fn hex(bytes: &[u8]) -> String {
 
 /// Where each known column sits in a row, from the header.
 pub(crate) struct Columns {
-    index: HashMap<&'static str, usize>,
+    index: Vec<(&'static str, usize)>,
     /// Columns not named by the format (kept for sites, errors otherwise): (index, name).
     pub extra: Vec<(usize, String)>,
 }
@@ -304,14 +304,12 @@ impl Columns {
     ) -> Option<Columns> {
         let required = kind.required_columns();
         let optional = kind.optional_columns();
-        let mut index = HashMap::new();
+        let mut index = Vec::new();
         let mut extra = Vec::new();
         for (i, name) in sheet.header.iter().enumerate() {
             let lower = name.to_ascii_lowercase();
             match required.iter().chain(optional).find(|c| **c == lower) {
-                Some(c) => {
-                    index.insert(*c, i);
-                }
+                Some(c) => index.push((*c, i)),
                 None if allow_extra => extra.push((i, name.clone())),
                 None => issues.push(
                     1,
@@ -330,7 +328,7 @@ impl Columns {
         }
         let mut complete = true;
         for c in required {
-            if !index.contains_key(c) {
+            if !index.iter().any(|(n, _)| n == c) {
                 complete = false;
                 let hint = if sheet.header.len() == 1 {
                     format!(
@@ -353,9 +351,19 @@ impl Columns {
         complete.then_some(Columns { index, extra })
     }
 
-    /// The field of column `name` in `rec` ("" when the column is optional and absent).
+    /// The position of column `name`, if the header has it.
+    pub fn idx(&self, name: &str) -> Option<usize> {
+        self.index.iter().find(|(n, _)| *n == name).map(|(_, i)| *i)
+    }
+
+    /// The field at `idx` in `rec`, spaces trimmed ("" when absent).
+    pub fn at(rec: &csv::StringRecord, idx: Option<usize>) -> &str {
+        idx.and_then(|i| rec.get(i)).map_or("", str::trim)
+    }
+
+    /// The field of column `name` in `rec`, spaces trimmed ("" when the column is absent).
     pub fn get<'r>(&self, rec: &'r csv::StringRecord, name: &str) -> &'r str {
-        self.index.get(name).and_then(|&i| rec.get(i)).unwrap_or("")
+        Columns::at(rec, self.idx(name))
     }
 }
 
@@ -437,8 +445,11 @@ fn parse_number(s: &str, what: &str) -> std::result::Result<f64, String> {
     if s.is_empty() {
         return Err(format!("empty; expected {what}"));
     }
-    let lower = s.to_ascii_lowercase();
-    if lower.contains("nan") || lower.contains("inf") {
+    let unsigned = s.strip_prefix(['+', '-']).unwrap_or(s);
+    if ["nan", "inf", "infinity"]
+        .iter()
+        .any(|w| unsigned.eq_ignore_ascii_case(w))
+    {
         return Err(format!("'{s}' is not a finite number; expected {what}"));
     }
     let plain = s
@@ -515,6 +526,8 @@ pub(crate) fn parse_replicate(s: &str) -> std::result::Result<i64, String> {
 #[derive(Debug, Default)]
 pub(crate) struct Interner {
     map: HashMap<String, u32>,
+    /// The index returned last (rows naming the same site or taxon often follow each other).
+    last: Option<u32>,
     /// The names, by index.
     pub names: Vec<String>,
     /// The first line naming each.
@@ -526,8 +539,13 @@ pub(crate) struct Interner {
 impl Interner {
     /// The index of `s`, named on `line`, adding it when new.
     pub fn intern(&mut self, s: &str, line: u64) -> u32 {
+        if let Some(i) = self.last.filter(|&i| self.names[i as usize] == s) {
+            self.uses[i as usize] += 1;
+            return i;
+        }
         if let Some(&i) = self.map.get(s) {
             self.uses[i as usize] += 1;
+            self.last = Some(i);
             return i;
         }
         let i = u32::try_from(self.names.len())
@@ -536,6 +554,7 @@ impl Interner {
         self.first_line.push(line);
         self.uses.push(1);
         self.map.insert(s.to_string(), i);
+        self.last = Some(i);
         i
     }
 

@@ -2,8 +2,7 @@
 //!
 //! A [`Sheet`] is an input file's header plus a stream of data rows. It strips a
 //! UTF-8 byte-order mark, accepts LF and CRLF line ends, detects the delimiter
-//! (comma, semicolon or tab) from the header line unless one is given, trims
-//! spaces around fields, and turns every fault of the text itself (empty file,
+//! (comma, semicolon or tab) from the header line unless one is given, and turns every fault of the text itself (empty file,
 //! header only, bytes that are not UTF-8, rows with too few or too many fields)
 //! into a [`RowIssue`] naming the line and column. It knows nothing of the
 //! store or of what the columns mean.
@@ -37,10 +36,8 @@ pub fn detect_delimiter(text: &[u8]) -> u8 {
     for &b in &text[..line_end] {
         if b == b'"' {
             quoted = !quoted;
-        } else if !quoted {
-            if let Some(i) = DELIMITERS.iter().position(|&d| d == b) {
-                counts[i] += 1;
-            }
+        } else if !quoted && let Some(i) = DELIMITERS.iter().position(|&d| d == b) {
+            counts[i] += 1;
         }
     }
     let mut best = 0;
@@ -92,6 +89,8 @@ impl Issues {
 /// An input file opened for reading: header known, rows still to come.
 pub struct Sheet<'a> {
     reader: csv::Reader<&'a [u8]>,
+    /// The text after any byte-order mark (line numbers are counted in it).
+    text: &'a [u8],
     /// The header fields, trimmed, as written.
     pub header: Vec<String>,
     /// The delimiter in use.
@@ -117,7 +116,6 @@ impl<'a> Sheet<'a> {
             .delimiter(delimiter)
             .has_headers(false)
             .flexible(true)
-            .trim(csv::Trim::All)
             .from_reader(text);
         let mut raw = ByteRecord::new();
         match reader.read_byte_record(&mut raw) {
@@ -138,7 +136,7 @@ impl<'a> Sheet<'a> {
         let mut header = Vec::with_capacity(raw.len());
         for (i, field) in raw.iter().enumerate() {
             match std::str::from_utf8(field) {
-                Ok(s) => header.push(s.to_string()),
+                Ok(s) => header.push(s.trim().to_string()),
                 Err(e) => {
                     issues.push(
                         1,
@@ -165,13 +163,14 @@ impl<'a> Sheet<'a> {
         }
         ok.then_some(Sheet {
             reader,
+            text,
             header,
             delimiter,
         })
     }
 
     /// Feed every data row with the header's number of fields to `f` as
-    /// `(line, record)`. Rows that cannot be read, have the wrong number of
+    /// `(line, record)`; fields are as written (callers trim spaces). Rows that cannot be read, have the wrong number of
     /// fields or are not UTF-8 become issues and are skipped. A file without data
     /// rows is an issue too. Returns the number of data rows seen.
     pub fn rows(
@@ -182,6 +181,19 @@ impl<'a> Sheet<'a> {
         let width = self.header.len();
         let mut raw = ByteRecord::new();
         let mut seen = 0usize;
+        // Line numbers from byte offsets: the csv reader's own count is one short
+        // after a CRLF line end, so newlines are counted here, incrementally.
+        let (mut at, mut lines) = (0usize, 1u64);
+        let text = self.text;
+        let mut line_of_byte = |byte: usize| {
+            let byte = byte.min(text.len());
+            if byte > at {
+                lines += text[at..byte].iter().filter(|&&b| b == b'\n').count() as u64;
+                at = byte;
+            }
+            // A record "starting" on the LF of a CRLF pair starts on the next line.
+            lines + u64::from(text.get(byte) == Some(&b'\n'))
+        };
         loop {
             match self.reader.read_byte_record(&mut raw) {
                 Ok(true) => {}
@@ -193,8 +205,11 @@ impl<'a> Sheet<'a> {
                 }
             }
             seen += 1;
-            let line = raw.position().map_or(0, |p| p.line());
-            if raw.len() == 1 && raw.get(0).is_some_and(|f| f.is_empty()) && width > 1 {
+            let line = raw
+                .position()
+                .map_or(0, |p| line_of_byte(p.byte() as usize));
+            if raw.len() == 1 && raw.get(0).is_some_and(|f| f.trim_ascii().is_empty()) && width > 1
+            {
                 // A line holding only spaces.
                 continue;
             }
@@ -251,7 +266,9 @@ fn line_of(e: &csv::Error) -> u64 {
 mod tests {
     use super::*;
 
-    fn collect(bytes: &[u8]) -> (Vec<String>, Vec<(u64, Vec<String>)>, Issues) {
+    type Rows = Vec<(u64, Vec<String>)>;
+
+    fn collect(bytes: &[u8]) -> (Vec<String>, Rows, Issues) {
         let mut issues = Issues::default();
         let mut rows = Vec::new();
         let header = match Sheet::open(bytes, None, &mut issues) {

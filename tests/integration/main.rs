@@ -3,6 +3,7 @@ mod distance_properties;
 mod matrix_cli;
 mod reference_distances;
 mod reference_models;
+mod import;
 mod store_cli;
 mod util;
 mod demo_data;

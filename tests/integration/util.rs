@@ -3,8 +3,6 @@
 
 use std::path::{Path, PathBuf};
 
-use assert_cmd::Command;
-
 /// A temporary working directory holding one store.
 pub struct TestEnv {
     pub dir: tempfile::TempDir,
@@ -19,13 +17,17 @@ impl TestEnv {
     }
 
     /// `tally --db <store> args…`, run in the temporary directory.
-    pub fn cmd<I, S>(&self, args: I) -> Command
+    pub fn cmd<I, S>(&self, args: I) -> assert_cmd::Command
     where
         I: IntoIterator<Item = S>,
         S: AsRef<std::ffi::OsStr>,
     {
-        let mut c = Command::cargo_bin("tally").expect("tally binary");
-        c.current_dir(self.dir.path()).env_remove("TALLY_DB").arg("--db").arg(&self.db).args(args);
+        let mut c = assert_cmd::cargo::cargo_bin_cmd!("tally");
+        c.current_dir(self.dir.path())
+            .env_remove("TALLY_DB")
+            .arg("--db")
+            .arg(&self.db)
+            .args(args);
         c
     }
 
@@ -45,6 +47,35 @@ impl TestEnv {
             );
         }
         String::from_utf8(o.stdout).expect("utf-8 stdout")
+    }
+
+    /// Run and return (exit code, stdout, stderr).
+    pub fn run<I, S>(&self, args: I) -> (i32, String, String)
+    where
+        I: IntoIterator<Item = S>,
+        S: AsRef<std::ffi::OsStr>,
+    {
+        let o = self.cmd(args).output().expect("run tally");
+        (
+            o.status.code().unwrap_or(-1),
+            String::from_utf8_lossy(&o.stdout).into_owned(),
+            String::from_utf8_lossy(&o.stderr).into_owned(),
+        )
+    }
+
+    /// The store's content dump, read through the library.
+    pub fn dump(&self) -> String {
+        tally::store::Store::open(&self.db)
+            .expect("open store")
+            .content_dump()
+            .expect("dump")
+    }
+
+    /// Write a file of bytes in the temporary directory and return its path.
+    pub fn write_bytes(&self, name: &str, content: &[u8]) -> PathBuf {
+        let p = self.dir.path().join(name);
+        std::fs::write(&p, content).expect("write fixture");
+        p
     }
 
     /// Write a file in the temporary directory and return its path.

@@ -68,7 +68,7 @@ pub(crate) fn parse_sites(
             .extra
             .iter()
             .filter_map(|(i, key)| {
-                rec.get(*i)
+                Some(Columns::at(rec, Some(*i)))
                     .filter(|v| !v.is_empty())
                     .map(|v| (key.clone(), v.to_string()))
             })
@@ -454,14 +454,14 @@ pub(crate) fn import_taxa(
             .unwrap_or_else(|| stored.get(n).and_then(|s| s.accepted.clone()))
     };
     for row in &fresh {
-        if let Some(a) = &row.accepted {
-            if let Some(aa) = accepted_of(a) {
-                issues.push(
-                    row.line,
-                    "accepted",
-                    format!("'{a}' is itself a synonym of '{aa}'; a synonym must point at an accepted name ('{aa}')"),
-                );
-            }
+        if let Some(a) = &row.accepted
+            && let Some(aa) = accepted_of(a)
+        {
+            issues.push(
+                row.line,
+                "accepted",
+                format!("'{a}' is itself a synonym of '{aa}'; a synonym must point at an accepted name ('{aa}')"),
+            );
         }
     }
     // Parent chains must end: follow each new row's chain through file and store.

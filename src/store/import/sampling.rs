@@ -195,23 +195,50 @@ fn check_counts(
     Ok(replaced)
 }
 
-/// Write counts (sorted by (event, taxon)) with one prepared statement.
+/// Rows per multi-row INSERT when writing counts (4 parameters each).
+const COUNT_CHUNK: usize = 128;
+
+/// Write counts (sorted by (event, taxon)) with a prepared multi-row INSERT
+/// reused for every full chunk of [`COUNT_CHUNK`] rows, and one for the rest.
 fn write_counts(
     tx: &Transaction<'_>,
     counts: &[NewCount],
     batch: i64,
     replace: bool,
 ) -> Result<()> {
-    let sql = if replace {
-        "INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES (?1, ?2, ?3, ?4) \
-         ON CONFLICT(event_id, taxon_id) DO UPDATE SET value = excluded.value, \
-         import_batch_id = excluded.import_batch_id"
-    } else {
-        "INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES (?1, ?2, ?3, ?4)"
+    let sql = |n: usize| {
+        let values = vec!["(?, ?, ?, ?)"; n].join(", ");
+        let mut sql = format!(
+            "INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES {values}"
+        );
+        if replace {
+            sql.push_str(
+                " ON CONFLICT(event_id, taxon_id) DO UPDATE SET value = excluded.value, \
+                 import_batch_id = excluded.import_batch_id",
+            );
+        }
+        sql
     };
-    let mut stmt = tx.prepare(sql)?;
-    for c in counts {
-        stmt.execute(params![c.event, c.taxon, c.value, batch])?;
+    let write = |stmt: &mut rusqlite::Statement<'_>, chunk: &[NewCount]| -> Result<()> {
+        for (k, c) in chunk.iter().enumerate() {
+            stmt.raw_bind_parameter(4 * k + 1, c.event)?;
+            stmt.raw_bind_parameter(4 * k + 2, c.taxon)?;
+            stmt.raw_bind_parameter(4 * k + 3, c.value)?;
+            stmt.raw_bind_parameter(4 * k + 4, batch)?;
+        }
+        stmt.raw_execute()?;
+        Ok(())
+    };
+    let mut chunks = counts.chunks_exact(COUNT_CHUNK);
+    if chunks.len() > 0 {
+        let mut stmt = tx.prepare(&sql(COUNT_CHUNK))?;
+        for chunk in chunks.by_ref() {
+            write(&mut stmt, chunk)?;
+        }
+    }
+    let rest = chunks.remainder();
+    if !rest.is_empty() {
+        write(&mut tx.prepare(&sql(rest.len()))?, rest)?;
     }
     Ok(())
 }
@@ -572,11 +599,33 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
         return r;
     };
     let mut keys: HashMap<(u32, IsoDate, u32, i64), u32> = HashMap::new();
+    let mut last_key: Option<((u32, IsoDate, u32, i64), u32)> = None;
+    let [
+        c_site,
+        c_date,
+        c_protocol,
+        c_effort,
+        c_taxon,
+        c_count,
+        c_replicate,
+        c_time,
+    ] = [
+        "site",
+        "date",
+        "protocol",
+        "effort",
+        "taxon",
+        "count",
+        "replicate",
+        "time",
+    ]
+    .map(|c| cols.idx(c));
     sheet.rows(issues, |line, rec, issues| {
-        let site = cols.get(rec, "site");
-        let protocol = cols.get(rec, "protocol");
-        let taxon = cols.get(rec, "taxon");
-        let count = cols.get(rec, "count");
+        let field = |i| Columns::at(rec, i);
+        let site = field(c_site);
+        let protocol = field(c_protocol);
+        let taxon = field(c_taxon);
+        let count = field(c_count);
         let mut ok = true;
         if site.is_empty() {
             issues.push(line, "site", "empty; expected a site code");
@@ -586,10 +635,10 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
             issues.push(line, "protocol", "empty; expected a protocol code");
             ok = false;
         }
-        let date = parse_date(cols.get(rec, "date")).map_err(|m| issues.push(line, "date", m));
-        let effort = parse_effort(cols.get(rec, "effort")).map_err(|m| issues.push(line, "effort", m));
-        let replicate = parse_replicate(cols.get(rec, "replicate")).map_err(|m| issues.push(line, "replicate", m));
-        let time = parse_time(cols.get(rec, "time")).map_err(|m| issues.push(line, "time", m));
+        let date = parse_date(field(c_date)).map_err(|m| issues.push(line, "date", m));
+        let effort = parse_effort(field(c_effort)).map_err(|m| issues.push(line, "effort", m));
+        let replicate = parse_replicate(field(c_replicate)).map_err(|m| issues.push(line, "replicate", m));
+        let time = parse_time(field(c_time)).map_err(|m| issues.push(line, "time", m));
         let value = match (taxon.is_empty(), count.is_empty()) {
             (true, true) => Ok(None),
             (true, false) => {
@@ -610,7 +659,12 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
         let s = r.sites.intern(site, line);
         let p = r.protocols.intern(protocol, line);
         let next = r.events.len() as u32;
-        let e = *keys.entry((s, date, p, replicate)).or_insert(next);
+        let key = (s, date, p, replicate);
+        let e = match last_key {
+            Some((k, e)) if k == key => e,
+            _ => *keys.entry(key).or_insert(next),
+        };
+        last_key = Some((key, e));
         if e == next {
             r.events.push(RecordEvent {
                 site: s,
