@@ -33,10 +33,16 @@ pub fn opt_num(v: Option<f64>) -> serde_json::Value {
     v.map(num).unwrap_or(serde_json::Value::Null)
 }
 
-/// A table with tally's style: plain ASCII borders when stdout is not a terminal.
+/// tally's table look: a rule under the header and one at the end, columns
+/// separated by space only, so long tables stay readable and copyable.
+pub const TABLE_STYLE: comfy_table::TableStyle = comfy_table::TableStyle::new()
+    .header_separator(comfy_table::LineStyle::none().fill('─').junction('─'))
+    .bottom_border(comfy_table::LineStyle::none().fill('─').junction('─'));
+
+/// A table with tally's style.
 pub fn new_table(header: &[&str]) -> comfy_table::Table {
     let mut t = comfy_table::Table::new();
-    t.load_style(comfy_table::presets::UTF8_HORIZONTAL_ONLY);
+    t.load_style(TABLE_STYLE);
     t.set_header(header.iter().map(|h| comfy_table::Cell::new(h)).collect::<Vec<_>>());
     t
 }
