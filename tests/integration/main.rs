@@ -7,3 +7,4 @@ mod import;
 mod store_cli;
 mod util;
 mod demo_data;
+mod architecture;
