@@ -196,7 +196,7 @@ fn check_counts(
 }
 
 /// Rows per multi-row INSERT when writing counts (4 parameters each).
-const COUNT_CHUNK: usize = 512;
+pub(super) const COUNT_CHUNK: usize = 512;
 
 /// Write counts (sorted by (event, taxon)) with a prepared multi-row INSERT
 /// reused for every full chunk of [`COUNT_CHUNK`] rows, and one for the rest.
