@@ -587,6 +587,8 @@ struct Records {
     taxa: Interner,
     events: Vec<RecordEvent>,
     rows: Vec<RecordRow>,
+    /// Data rows in the file.
+    seen: usize,
 }
 
 /// Parse a records file (pure): fields checked, rows grouped into events.
@@ -620,7 +622,7 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
         "time",
     ]
     .map(|c| cols.idx(c));
-    sheet.rows(issues, |line, rec, issues| {
+    r.seen = sheet.rows(issues, |line, rec, issues| {
         let field = |i| Columns::at(rec, i);
         let site = field(c_site);
         let protocol = field(c_protocol);
@@ -738,7 +740,7 @@ pub(crate) fn import_records(
     issues: &mut Issues,
 ) -> Result<Option<ImportReport>> {
     let rec = parse_records(bytes, opts.delimiter, issues);
-    let total = rec.rows.len() + rec.events.iter().filter(|e| e.empty_line.is_some()).count();
+    let total = rec.seen;
     let mut created = Vec::new();
     let mut sites = Ids::load(tx, Table::Site)?;
     let protocols = Ids::load(tx, Table::Protocol)?;
