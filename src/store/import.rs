@@ -26,6 +26,7 @@ use sha2::{Digest, Sha256};
 use super::sheet::{Issues, Sheet};
 use super::{Result, Store, StoreError};
 
+mod records;
 mod reference;
 mod sampling;
 
@@ -191,7 +192,7 @@ pub fn import_bytes(
         ImportKind::Taxa => reference::import_taxa(&tx, &meta, bytes, opts, &mut issues)?,
         ImportKind::Events => sampling::import_events(&tx, &meta, bytes, opts, &mut issues)?,
         ImportKind::Counts => sampling::import_counts(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Records => sampling::import_records(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Records => records::import_records(&tx, &meta, bytes, opts, &mut issues)?,
     };
     match report {
         Some(r) if issues.is_empty() => {

@@ -204,7 +204,6 @@ impl<'a> Sheet<'a> {
                     break;
                 }
             }
-            seen += 1;
             let line = raw
                 .position()
                 .map_or(0, |p| line_of_byte(p.byte() as usize));
@@ -213,6 +212,7 @@ impl<'a> Sheet<'a> {
                 // A line holding only spaces.
                 continue;
             }
+            seen += 1;
             if raw.len() != width {
                 let column = if raw.len() < width {
                     self.header[raw.len()].clone()

@@ -226,3 +226,58 @@ fn identical_rows_are_left_alone_and_changed_ones_refused() {
     ));
     assert_eq!((issues[0].0, issues[0].1.as_str()), (3, "code"));
 }
+
+#[test]
+fn large_files_write_every_count_across_insert_chunks() {
+    // More rows than one multi-row INSERT holds, so full chunks and the remainder both run.
+    let mut s = store();
+    let mut text = String::from("site,date,protocol,effort,taxon,count,replicate\n");
+    let mut want_sum = 0.0;
+    let mut rows = 0;
+    for rep in 1..=401 {
+        for (k, taxon) in ["Baetidae", "Baetis", "Old"].iter().enumerate() {
+            let v = (rep * 7 + k * 3) % 50;
+            text.push_str(&format!("A,2016-04-21,kick,3,{taxon},{v},{rep}\n"));
+            want_sum += v as f64;
+            rows += 1;
+        }
+    }
+    assert!(rows > sampling::COUNT_CHUNK * 2);
+    let r = import_bytes(
+        &mut s,
+        ImportKind::Records,
+        "big.csv",
+        text.as_bytes(),
+        &ImportOptions::default(),
+    )
+    .unwrap();
+    assert_eq!((r.rows, r.written, r.counts), (rows, 401, rows));
+    let (n, sum): (i64, f64) = s
+        .conn()
+        .query_row("SELECT COUNT(*), SUM(value) FROM count", [], |r| {
+            Ok((r.get(0)?, r.get(1)?))
+        })
+        .unwrap();
+    assert_eq!(n as usize, rows);
+    assert_eq!(sum, want_sum);
+}
+
+#[test]
+fn quoted_fields_may_hold_the_delimiter() {
+    let mut s = store();
+    let sites = "code,name,latitude,longitude\nC,\"Bridge, upstream\",,\n";
+    let r = import_bytes(
+        &mut s,
+        ImportKind::Sites,
+        "s.csv",
+        sites.as_bytes(),
+        &ImportOptions::default(),
+    )
+    .unwrap();
+    assert_eq!(r.written, 1);
+    let name: String = s
+        .conn()
+        .query_row("SELECT name FROM site WHERE code = 'C'", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(name, "Bridge, upstream");
+}
