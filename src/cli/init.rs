@@ -18,11 +18,6 @@ pub struct Args {}
 pub fn run(_args: Args, db: &Path, out: &mut dyn Write) -> anyhow::Result<()> {
     let store = Store::create(db).with_context(|| format!("creating store {}", db.display()))?;
     store.checkpoint()?;
-    writeln!(
-        out,
-        "created store {} (schema version {})",
-        db.display(),
-        store.schema_version()?
-    )?;
+    writeln!(out, "created store {} (schema version {})", db.display(), store.schema_version()?)?;
     Ok(())
 }

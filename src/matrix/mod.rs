@@ -121,9 +121,7 @@ pub const BUILTIN_FIELDS: &[&str] = &[
 impl CountMatrix {
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
-        (0..self.values.nrows())
-            .map(|i| self.values.row(i).sum())
-            .collect()
+        (0..self.values.nrows()).map(|i| self.values.row(i).sum()).collect()
     }
 
     /// Every field name that [`CountMatrix::field_values`] accepts for this
