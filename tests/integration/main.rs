@@ -1,6 +1,7 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
 mod demo_data;
 mod distance_properties;
+mod engine_cli;
 mod matrix_cli;
 mod reference_distances;
 mod reference_models;
