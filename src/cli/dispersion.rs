@@ -80,7 +80,7 @@ fn compute(args: &Args, m: &CountMatrix, seed: u64) -> anyhow::Result<Outcome> {
     let opts = DispersionOptions {
         permutations: args.run.permutations,
         seed,
-        scheme: scheme(m, args.strata.as_deref())?,
+        scheme: scheme(m, args.strata.as_deref(), &args.by)?,
         permute: args.permute.into(),
     };
     let d = super::distances::compute(m, &args.distance)?;

@@ -99,10 +99,16 @@ pub(crate) fn grouping(m: &CountMatrix, field: &str, flag: &str) -> anyhow::Resu
 /// The exchangeability scheme: free, or within the levels of `strata`.
 ///
 /// # Errors
-/// As [`grouping`].
-pub(crate) fn scheme(m: &CountMatrix, strata: Option<&str>) -> anyhow::Result<Scheme> {
+/// As [`grouping`]; a refusal when `strata` is the `--by` field itself (no
+/// sample could change group).
+pub(crate) fn scheme(m: &CountMatrix, strata: Option<&str>, by: &str) -> anyhow::Result<Scheme> {
     Ok(match strata {
         None => Scheme::Free,
+        Some(f) if f == by => {
+            anyhow::bail!(
+                "--strata {f}: the strata cannot be the --by field (no sample could change group)"
+            )
+        }
         Some(f) => Scheme::WithinStrata(grouping(m, f, "--strata")?.codes().to_vec()),
     })
 }
@@ -179,7 +185,7 @@ fn compute(args: &Args, m: &CountMatrix, seed: u64) -> anyhow::Result<Outcome> {
             .with_context(|| format!("--covariate {c}"))?;
         covariates.push((c.clone(), v));
     }
-    let scheme = scheme(m, args.strata.as_deref())?;
+    let scheme = scheme(m, args.strata.as_deref(), &args.by)?;
     let d = super::distances::compute(m, &args.distance)?;
     let opts = PermanovaOptions {
         permutations: args.run.permutations,

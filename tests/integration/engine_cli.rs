@@ -549,3 +549,81 @@ fn distances_json_and_csv_are_the_absolute_differences_for_one_taxon() {
     let runs = json(&env, &["runs", "list", "--format", "json"]);
     assert_eq!(runs, serde_json::json!([]), "distances stores no run");
 }
+
+#[test]
+fn exact_p_value_within_strata() {
+    // Two strata of 2 + 2 samples: 6 × 6 = 36 relabellings keep each stratum's
+    // group sizes, so the one-way route enumerates them all.
+    let samples = [
+        ("a", "x", 3.0),
+        ("a", "x", 6.0),
+        ("b", "x", 10.0),
+        ("b", "x", 12.0),
+        ("a", "y", 5.0),
+        ("a", "y", 9.0),
+        ("b", "y", 8.0),
+        ("b", "y", 15.0),
+    ];
+    let env = one_taxon_store(&samples);
+    let v = json(
+        &env,
+        &[
+            "permanova",
+            "--by",
+            "grp",
+            "--strata",
+            "block",
+            "--distance",
+            "euclidean",
+            "--permutations",
+            "999",
+            "--seed",
+            "4",
+            "--no-store",
+            "--format",
+            "json",
+        ],
+    );
+    let x: Vec<f64> = samples.iter().map(|s| s.2).collect();
+    let f_of = |ina: &[bool]| {
+        let a: Vec<f64> = (0..8).filter(|&i| ina[i]).map(|i| x[i]).collect();
+        let b: Vec<f64> = (0..8).filter(|&i| !ina[i]).map(|i| x[i]).collect();
+        anova_f(&[a, b])
+    };
+    let observed = f_of(&[true, true, false, false, true, true, false, false]);
+    let (mut total, mut extreme) = (0, 0);
+    for m1 in 0u32..16 {
+        for m2 in 0u32..16 {
+            if m1.count_ones() != 2 || m2.count_ones() != 2 {
+                continue;
+            }
+            let ina: Vec<bool> = (0..8)
+                .map(|i| {
+                    if i < 4 {
+                        m1 & (1 << i) != 0
+                    } else {
+                        m2 & (1 << (i - 4)) != 0
+                    }
+                })
+                .collect();
+            total += 1;
+            if f_of(&ina) >= observed * (1.0 - 1e-9) {
+                extreme += 1;
+            }
+        }
+    }
+    assert_eq!(total, 36);
+    assert_eq!(v["exact"], true);
+    assert_eq!(v["permutations"], 36);
+    assert_eq!(v["scheme"], "within 2 strata");
+    assert!(close(f64_of(&v["terms"][0]["pseudo_f"]), observed, 1e-10));
+    let p = f64_of(&v["terms"][0]["p_value"]);
+    assert!(
+        close(p, extreme as f64 / 36.0, 1e-12),
+        "p {p} vs enumeration {extreme}/36"
+    );
+    // Strata equal to the factor would leave nothing to permute: refused.
+    env.cmd(["permanova", "--by", "grp", "--strata", "grp", "--no-store"])
+        .assert()
+        .code(1);
+}
