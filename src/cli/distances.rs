@@ -23,15 +23,16 @@ use crate::store::Store;
 /// Arguments of `tally distances`.
 #[derive(Debug, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// Dissimilarity and transform.
     #[command(flatten)]
     pub distance: DistanceArgs,
     /// Output format.
     #[arg(long, value_enum, default_value_t)]
     pub format: FormatArg,
+    /// Which events, and what one row is (listed last: its help heading
+    /// would otherwise carry over to the flags after it).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// The dissimilarities between the rows of `m` under the flags' distance and

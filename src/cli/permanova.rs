@@ -58,9 +58,6 @@ impl From<SsArg> for SsType {
 /// Arguments of `tally permanova`.
 #[derive(Debug, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// The factor whose groups are compared (a built-in field or a site attribute).
     #[arg(long, value_name = "FIELD")]
     pub by: String,
@@ -82,6 +79,10 @@ pub struct Args {
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
+    /// Which events, and what one row is (listed last: its help heading
+    /// would otherwise carry over to the flags after it).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// The grouping of the rows of `m` by `field`; `flag` names the option in errors.
