@@ -11,16 +11,19 @@ use serde::Serialize;
 use super::gower::gower_centre;
 use super::linear_model::Grouping;
 use super::permutation::{self, PermutationOptions, PermutationResult, Permuter, Progress, Scheme};
-use super::{AnalysisError, DistanceMatrix};
+use super::{AnalysisError, DistanceMatrix, prec};
 
 /// Squared distances to the group centroid from G, valid with negative eigenvalues
 /// (METHODS.md §8.1): `z_i² = g_ii - (2/n_g) Σ_{k∈g} g_ik + (1/n_g²) Σ_{k,l∈g} g_kl`.
-/// Negative values (strongly non-Euclidean D) are clamped to 0; returns the distances
-/// `z_i` and the number clamped.
+/// Negative values are set to 0; returns the distances `z_i` and the number clamped,
+/// counting only values below `-EIG_ZERO · max_i |g_ii|` (a non-Euclidean D), not the
+/// rounding error of a sample that sits on its centroid.
 pub fn distances_to_centroids(g: &DMatrix<f64>, groups: &Grouping) -> (Vec<f64>, usize) {
     let n = g.nrows();
     let mut z = vec![0.0; n];
     let mut clamped = 0;
+    let scale = (0..n).map(|i| g[(i, i)].abs()).fold(0.0, f64::max);
+    let floor = -prec::EIG_ZERO * scale;
     for grp in 0..groups.n_groups() {
         let m = groups.members(grp);
         let ng = m.len() as f64;
@@ -31,7 +34,7 @@ pub fn distances_to_centroids(g: &DMatrix<f64>, groups: &Grouping) -> (Vec<f64>,
         let block: f64 = row_sums.iter().sum();
         for (&i, rs) in m.iter().zip(&row_sums) {
             let z2 = g[(i, i)] - 2.0 * rs / ng + block / (ng * ng);
-            if z2 < 0.0 {
+            if z2 < floor {
                 clamped += 1;
             }
             z[i] = z2.max(0.0).sqrt();
@@ -317,6 +320,19 @@ pub fn dispersion_pairwise(
 mod tests {
     use super::*;
     use crate::analysis::permanova::tests::{TOY, bray_curtis};
+
+    #[test]
+    fn a_sample_on_its_centroid_is_not_counted_as_clamped() {
+        // One variable, Euclidean: z_i = |x_i - mean_g| (Anderson 2006); 12 is the mean
+        // of 9, 12, 15, so its z is 0 up to rounding, which must not count as clamped.
+        let x: [f64; 6] = [9.0, 12.0, 15.0, 20.0, 26.0, 17.0];
+        let d = DistanceMatrix::from_fn(6, |i, k| (x[i] - x[k]).abs()).unwrap();
+        let g = Grouping::from_labels(&["a", "a", "a", "b", "b", "b"]);
+        let (z, clamped) = distances_to_centroids(&gower_centre(&d), &g);
+        assert_eq!(clamped, 0);
+        assert!(z[1].abs() < 1e-6);
+        assert!((z[0] - 3.0).abs() < 1e-10);
+    }
 
     #[test]
     fn toy_bray_curtis_distances_to_centroids() {

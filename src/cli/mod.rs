@@ -16,9 +16,12 @@ pub mod batches;
 pub mod check;
 pub mod common;
 pub mod demo;
+pub mod dispersion;
+pub mod distances;
 pub mod import;
 pub mod init;
 pub mod matrix;
+pub mod permanova;
 pub mod runs;
 pub mod selection;
 pub mod selections;
@@ -81,6 +84,12 @@ pub enum Command {
     Runs(runs::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
+    /// Dissimilarities between the rows of a selection.
+    Distances(distances::Args),
+    /// PERMANOVA: do groups differ in composition (location of their centroids)?
+    Permanova(permanova::Args),
+    /// Do groups differ in multivariate spread (distances to their centroid)?
+    Dispersion(dispersion::Args),
 }
 
 /// Run a parsed command line.
@@ -104,6 +113,9 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
+        Command::Distances(args) => distances::run(args, &open_store(&db)?, &mut out),
+        Command::Permanova(args) => permanova::run(args, &mut open_store(&db)?, &mut out),
+        Command::Dispersion(args) => dispersion::run(args, &mut open_store(&db)?, &mut out),
     };
     result?;
     out.flush()?;
