@@ -93,9 +93,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &db, &mut out),
-        Command::Import(args) => {
-            import::run(args, &mut open_store(&db)?, &mut std::io::stderr())
-        }
+        Command::Import(args) => import::run(args, &mut open_store(&db)?, &mut std::io::stderr()),
         Command::Batches(args) => batches::run(args, &mut open_store(&db)?, &mut out),
         Command::Summary(args) => summary::run(args, &mut open_store(&db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),

@@ -25,7 +25,9 @@ pub fn write_json(out: &mut dyn Write, value: &serde_json::Value) -> std::io::Re
 
 /// A finite f64 as JSON, or `null` when it is NaN or infinite.
 pub fn num(v: f64) -> serde_json::Value {
-    serde_json::Number::from_f64(v).map(serde_json::Value::Number).unwrap_or(serde_json::Value::Null)
+    serde_json::Number::from_f64(v)
+        .map(serde_json::Value::Number)
+        .unwrap_or(serde_json::Value::Null)
 }
 
 /// An optional f64 as JSON (`null` for `None` or a non-finite value).
@@ -37,7 +39,12 @@ pub fn opt_num(v: Option<f64>) -> serde_json::Value {
 pub fn new_table(header: &[&str]) -> comfy_table::Table {
     let mut t = comfy_table::Table::new();
     t.load_style(comfy_table::presets::UTF8_HORIZONTAL_ONLY);
-    t.set_header(header.iter().map(|h| comfy_table::Cell::new(h)).collect::<Vec<_>>());
+    t.set_header(
+        header
+            .iter()
+            .map(|h| comfy_table::Cell::new(h))
+            .collect::<Vec<_>>(),
+    );
     t
 }
 

@@ -25,7 +25,11 @@ impl TestEnv {
         S: AsRef<std::ffi::OsStr>,
     {
         let mut c = Command::cargo_bin("tally").expect("tally binary");
-        c.current_dir(self.dir.path()).env_remove("TALLY_DB").arg("--db").arg(&self.db).args(args);
+        c.current_dir(self.dir.path())
+            .env_remove("TALLY_DB")
+            .arg("--db")
+            .arg(&self.db)
+            .args(args);
         c
     }
 
