@@ -15,6 +15,7 @@ pub mod backup;
 pub mod batches;
 pub mod check;
 pub mod common;
+pub mod compare;
 pub mod demo;
 pub mod import;
 pub mod init;
@@ -82,6 +83,8 @@ pub enum Command {
     Runs(runs::Args),
     /// Split a dissimilarity into size only, shared, shape only and unexplained.
     Partition(partition::Args),
+    /// Size and shape of the difference between groups, with a plain-language verdict.
+    Compare(compare::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
 }
@@ -105,6 +108,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Partition(args) => partition::run(args, &mut open_store(&db)?, &mut out),
+        Command::Compare(args) => compare::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
     };
     result?;

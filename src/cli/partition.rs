@@ -43,7 +43,7 @@ pub const COMPARED: [(Distance, Transform); 5] = [
 pub const CAUTION: &str = "Caution: where total abundance changes, the spread of counts usually \
 changes with it (a mean-variance relationship), and a distance-based analysis can then read a \
 change of spread as a change of location (Warton & Hui 2017, Methods Ecol. Evol. 8:1408-1414). \
-Read these fractions together with the size test and the dispersion test (`tally compare`).";
+Read distance-based results together with the size test and the dispersion test.";
 
 /// What "shared" means, printed with every partition.
 pub const SHARED: &str = "\"Shared\" is variation that size and shape explain together: samples \
@@ -494,7 +494,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 params.permutations, r.scheme
             )?;
             writeln!(out, "{SHARED}")?;
-            writeln!(out, "{CAUTION}")?;
+            writeln!(out, "{CAUTION} (`tally compare` runs both.)")?;
         }
     }
     Ok(())
