@@ -25,6 +25,7 @@ pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
+pub mod verify;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]

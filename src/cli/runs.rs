@@ -38,6 +38,15 @@ pub enum Action {
         #[arg(long, value_enum, default_value_t = FormatArg::Table)]
         format: FormatArg,
     },
+    /// Reassemble a run's selection, check its fingerprint and recompute it with
+    /// the stored parameters and seed: `identical`, or what differs (exit code 1).
+    Verify {
+        /// Run id.
+        id: i64,
+        /// Output format.
+        #[arg(long, value_enum, default_value_t = FormatArg::Table)]
+        format: FormatArg,
+    },
     /// A stored number across runs, ordered by the period each run's data covers.
     Series {
         /// Kind of run.
@@ -163,6 +172,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 }
             }
         }
+        Action::Verify { id, format } => super::verify::run(id, format, store, out)?,
         Action::Series {
             kind,
             value,
