@@ -67,7 +67,9 @@ pub enum AnalysisError {
         min: usize,
     },
     /// The model leaves no residual degrees of freedom.
-    #[error("model saturated: {rank} model columns for {n} samples leave no residual degrees of freedom")]
+    #[error(
+        "model saturated: {rank} model columns for {n} samples leave no residual degrees of freedom"
+    )]
     Saturated {
         /// Rank of the full design including the intercept.
         rank: usize,

@@ -119,11 +119,18 @@ pub fn adjusted_r2(r2: f64, n: usize, m: usize) -> Option<f64> {
 /// [`AnalysisError::EmptySamples`] for rows with no organisms.
 pub fn profile_design(y: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
     let totals: Vec<f64> = (0..y.nrows()).map(|i| y.row(i).sum()).collect();
-    let empty: Vec<usize> = totals.iter().enumerate().filter(|(_, t)| **t <= 0.0).map(|(i, _)| i).collect();
+    let empty: Vec<usize> = totals
+        .iter()
+        .enumerate()
+        .filter(|(_, t)| **t <= 0.0)
+        .map(|(i, _)| i)
+        .collect();
     if !empty.is_empty() {
         return Err(AnalysisError::EmptySamples { rows: empty });
     }
-    Ok(DMatrix::from_fn(y.nrows(), y.ncols(), |i, j| y[(i, j)] / totals[i]))
+    Ok(DMatrix::from_fn(y.nrows(), y.ncols(), |i, j| {
+        y[(i, j)] / totals[i]
+    }))
 }
 
 /// The size design: ln(total) or total, one column.
@@ -132,7 +139,12 @@ pub fn profile_design(y: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
 /// [`AnalysisError::EmptySamples`] for rows with no organisms (ln 0 is undefined).
 pub fn size_design(y: &DMatrix<f64>, coding: SizeCoding) -> Result<DMatrix<f64>, AnalysisError> {
     let totals: Vec<f64> = (0..y.nrows()).map(|i| y.row(i).sum()).collect();
-    let empty: Vec<usize> = totals.iter().enumerate().filter(|(_, t)| **t <= 0.0).map(|(i, _)| i).collect();
+    let empty: Vec<usize> = totals
+        .iter()
+        .enumerate()
+        .filter(|(_, t)| **t <= 0.0)
+        .map(|(i, _)| i)
+        .collect();
     if !empty.is_empty() {
         return Err(AnalysisError::EmptySamples { rows: empty });
     }
@@ -148,11 +160,18 @@ pub fn size_design(y: &DMatrix<f64>, coding: SizeCoding) -> Result<DMatrix<f64>,
 /// # Errors
 /// [`AnalysisError::Saturated`] when size and shape together leave no residual
 /// degrees of freedom; dimension errors.
-pub fn fit(g: &DMatrix<f64>, s: &DMatrix<f64>, p: &DMatrix<f64>) -> Result<Partition, AnalysisError> {
+pub fn fit(
+    g: &DMatrix<f64>,
+    s: &DMatrix<f64>,
+    p: &DMatrix<f64>,
+) -> Result<Partition, AnalysisError> {
     let n = g.nrows();
     for m in [s, p] {
         if m.nrows() != n {
-            return Err(AnalysisError::DimensionMismatch { expected: n, found: m.nrows() });
+            return Err(AnalysisError::DimensionMismatch {
+                expected: n,
+                found: m.nrows(),
+            });
         }
     }
     let one = Basis::intercept(n);
@@ -178,7 +197,11 @@ pub fn fit(g: &DMatrix<f64>, s: &DMatrix<f64>, p: &DMatrix<f64>) -> Result<Parti
     let (r2s, r2p, r2b) = (ss_s / total, ss_p / total, ss_b / total);
     let (ms, mp, mb) = (bs.rank() - 1, bp.rank() - 1, rank_full - 1);
     let raw = combine(r2s, r2p, r2b);
-    let adj = match (adjusted_r2(r2s, n, ms), adjusted_r2(r2p, n, mp), adjusted_r2(r2b, n, mb)) {
+    let adj = match (
+        adjusted_r2(r2s, n, ms),
+        adjusted_r2(r2p, n, mp),
+        adjusted_r2(r2b, n, mb),
+    ) {
         (Some(a), Some(b), Some(c)) => combine(a, b, c),
         _ => return Err(AnalysisError::Saturated { rank: rank_full, n }),
     };
@@ -187,7 +210,8 @@ pub fn fit(g: &DMatrix<f64>, s: &DMatrix<f64>, p: &DMatrix<f64>) -> Result<Parti
     // Residual variation at rounding level means one set explains everything.
     let exhaustive = ss_res <= 1e-10 * total;
     let partial = |ss_extra: f64, df: usize| PartialTest {
-        pseudo_f: (!exhaustive && df > 0).then(|| (ss_extra / df as f64) / (ss_res / df_resid as f64)),
+        pseudo_f: (!exhaustive && df > 0)
+            .then(|| (ss_extra / df as f64) / (ss_res / df_resid as f64)),
         df,
         df_resid,
     };
@@ -300,18 +324,32 @@ pub fn shape_design(
             if profile_dim <= room {
                 return Ok((
                     profiles,
-                    ShapeDesign { kind: "profiles", axes: profile_dim, inertia_share: 1.0 },
+                    ShapeDesign {
+                        kind: "profiles",
+                        axes: profile_dim,
+                        inertia_share: 1.0,
+                    },
                 ));
             }
             room
         }
     };
     if k == 0 || k + 2 >= n {
-        return Err(AnalysisError::Saturated { rank: 2 + k.max(1), n });
+        return Err(AnalysisError::Saturated {
+            rank: 2 + k.max(1),
+            n,
+        });
     }
     let ca = ca_axes(y, k)?;
     let used = ca.coords.ncols();
-    Ok((ca.coords, ShapeDesign { kind: "ca-axes", axes: used, inertia_share: ca.share }))
+    Ok((
+        ca.coords,
+        ShapeDesign {
+            kind: "ca-axes",
+            axes: used,
+            inertia_share: ca.share,
+        },
+    ))
 }
 
 /// The size/shape partition of `d` (computed from `y`) with permutation tests of
@@ -327,7 +365,10 @@ pub fn partition(
 ) -> Result<PartitionResult, AnalysisError> {
     let n = y.nrows();
     if d.n() != n {
-        return Err(AnalysisError::DimensionMismatch { expected: n, found: d.n() });
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: d.n(),
+        });
     }
     let s = size_design(y, opts.size)?;
     let (p, shape) = shape_design(y, opts.shape_axes)?;
@@ -349,38 +390,43 @@ pub fn partition(
         ));
     }
     let permuter = Permuter::new(n, &opts.scheme, None)?;
-    let popts = PermutationOptions { permutations: opts.permutations, seed: opts.seed };
+    let popts = PermutationOptions {
+        permutations: opts.permutations,
+        seed: opts.seed,
+    };
     let one = Basis::intercept(n);
     let bs = one.extended(&s)?;
     let bp = one.extended(&p)?;
     let bsp = bs.extended(&p)?;
     let bps = bp.extended(&s)?;
-    let run = |reduced: &Basis, full: &Basis, t: &PartialTest| -> Result<UniqueTest, AnalysisError> {
-        if fitted.exhaustive || t.pseudo_f.is_none() || t.df == 0 {
-            return Ok(UniqueTest {
-                pseudo_f: None,
-                p_value: None,
+    let run =
+        |reduced: &Basis, full: &Basis, t: &PartialTest| -> Result<UniqueTest, AnalysisError> {
+            if fitted.exhaustive || t.pseudo_f.is_none() || t.df == 0 {
+                return Ok(UniqueTest {
+                    pseudo_f: None,
+                    p_value: None,
+                    df: t.df,
+                    df_resid: t.df_resid,
+                    permutations: 0,
+                    exact: false,
+                });
+            }
+            let term = PartialTerm::new(&g, reduced, full);
+            let identity: Vec<usize> = (0..n).collect();
+            let mut obs = [0.0];
+            term.f_batch(&identity, &mut obs);
+            let stat = |perms: &[usize], out: &mut [f64]| term.f_batch(perms, out);
+            let r: PermutationResult =
+                permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
+            Ok(UniqueTest {
+                pseudo_f: Some(obs[0]),
+                p_value: Some(r.p_value),
                 df: t.df,
                 df_resid: t.df_resid,
-                permutations: 0,
-                exact: false,
-            });
-        }
-        let term = PartialTerm::new(&g, reduced, full);
-        let identity: Vec<usize> = (0..n).collect();
-        let mut obs = [0.0];
-        term.f_batch(&identity, &mut obs);
-        let stat = |perms: &[usize], out: &mut [f64]| term.f_batch(perms, out);
-        let r: PermutationResult = permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
-        Ok(UniqueTest {
-            pseudo_f: Some(obs[0]),
-            p_value: Some(r.p_value),
-            df: t.df,
-            df_resid: t.df_resid,
-            permutations: r.permutations,
-            exact: r.exact,
-        })
-    };
+                permutations: r.permutations,
+                exact: r.exact,
+            })
+        };
     let size_only = run(&bp, &bps, &fitted.size_test)?;
     let shape_only = run(&bs, &bsp, &fitted.shape_test)?;
     if fitted.exhaustive {
@@ -391,7 +437,10 @@ pub fn partition(
         );
     }
     let adj = fitted.adjusted_fractions;
-    if [adj.size_only, adj.shared, adj.shape_only, adj.unexplained].iter().any(|v| *v < 0.0) {
+    if [adj.size_only, adj.shared, adj.shape_only, adj.unexplained]
+        .iter()
+        .any(|v| *v < 0.0)
+    {
         notes.push(
             "an adjusted fraction is negative: an estimate of a part near zero, reported as computed"
                 .into(),

@@ -18,7 +18,8 @@ pub struct Args {}
 /// `$TALLY_DB`, so a real store named there cannot be replaced by accident),
 /// else `./tally-demo.db`.
 pub fn demo_path(flag: Option<&Path>) -> PathBuf {
-    flag.map(Path::to_path_buf).unwrap_or_else(|| PathBuf::from("tally-demo.db"))
+    flag.map(Path::to_path_buf)
+        .unwrap_or_else(|| PathBuf::from("tally-demo.db"))
 }
 
 /// Create a fresh store at `path`, replacing an existing file only when it is a tally store.
@@ -28,7 +29,10 @@ pub fn demo_path(flag: Option<&Path>) -> PathBuf {
 pub fn fresh_store(path: &Path) -> anyhow::Result<Store> {
     if path.exists() {
         if let Err(e) = Store::open(path) {
-            bail!("{} exists and is not a tally store; not replacing it ({e})", path.display());
+            bail!(
+                "{} exists and is not a tally store; not replacing it ({e})",
+                path.display()
+            );
         }
         for suffix in ["", "-wal", "-shm"] {
             let mut p = path.as_os_str().to_owned();
@@ -48,10 +52,21 @@ pub fn fresh_store(path: &Path) -> anyhow::Result<Store> {
 /// Import errors (the embedded data is checked by the test suite).
 pub fn load_demo(store: &mut Store) -> anyhow::Result<()> {
     let files = DemoFiles::embedded();
-    let kinds = [ImportKind::Sites, ImportKind::Protocols, ImportKind::Taxa, ImportKind::Records];
+    let kinds = [
+        ImportKind::Sites,
+        ImportKind::Protocols,
+        ImportKind::Taxa,
+        ImportKind::Records,
+    ];
     for ((name, text), kind) in files.files().into_iter().zip(kinds) {
-        let report = import_bytes(store, kind, name, text.as_bytes(), &ImportOptions::default())
-            .with_context(|| format!("importing demo file {name}"))?;
+        let report = import_bytes(
+            store,
+            kind,
+            name,
+            text.as_bytes(),
+            &ImportOptions::default(),
+        )
+        .with_context(|| format!("importing demo file {name}"))?;
         super::note(&format!(
             "imported {name}: {} rows (batch {})",
             report.rows, report.batch_id
@@ -69,7 +84,17 @@ pub fn run(_args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::
     let mut store = fresh_store(&path)?;
     load_demo(&mut store)?;
     store.checkpoint()?;
-    writeln!(out, "Wren Valley demo store (invented data): {}", path.display())?;
-    super::summary::run(super::summary::Args { format: super::FormatArg::Table }, &mut store, out)?;
+    writeln!(
+        out,
+        "Wren Valley demo store (invented data): {}",
+        path.display()
+    )?;
+    super::summary::run(
+        super::summary::Args {
+            format: super::FormatArg::Table,
+        },
+        &mut store,
+        out,
+    )?;
     Ok(())
 }

@@ -18,6 +18,11 @@ pub struct Args {}
 pub fn run(_args: Args, db: &Path, out: &mut dyn Write) -> anyhow::Result<()> {
     let store = Store::create(db).with_context(|| format!("creating store {}", db.display()))?;
     store.checkpoint()?;
-    writeln!(out, "created store {} (schema version {})", db.display(), store.schema_version()?)?;
+    writeln!(
+        out,
+        "created store {} (schema version {})",
+        db.display(),
+        store.schema_version()?
+    )?;
     Ok(())
 }

@@ -15,6 +15,7 @@ pub mod backup;
 pub mod batches;
 pub mod check;
 pub mod common;
+pub mod compare;
 pub mod demo;
 pub mod dispersion;
 pub mod distances;
@@ -22,10 +23,12 @@ pub mod import;
 pub mod init;
 pub mod matrix;
 pub mod permanova;
+pub mod partition;
 pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
+pub mod verify;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -82,6 +85,10 @@ pub enum Command {
     Selections(selections::Args),
     /// Stored results: list, show, follow a number across runs.
     Runs(runs::Args),
+    /// Split a dissimilarity into size only, shared, shape only and unexplained.
+    Partition(partition::Args),
+    /// Size and shape of the difference between groups, with a plain-language verdict.
+    Compare(compare::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
     /// Dissimilarities between the rows of a selection.
@@ -102,9 +109,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &db, &mut out),
-        Command::Import(args) => {
-            import::run(args, &mut open_store(&db)?, &mut std::io::stderr())
-        }
+        Command::Import(args) => import::run(args, &mut open_store(&db)?, &mut std::io::stderr()),
         Command::Batches(args) => batches::run(args, &mut open_store(&db)?, &mut out),
         Command::Summary(args) => summary::run(args, &mut open_store(&db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),
@@ -112,6 +117,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Matrix(args) => matrix::run(args, &open_store(&db)?, &mut out),
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
+        Command::Partition(args) => partition::run(args, &mut open_store(&db)?, &mut out),
+        Command::Compare(args) => compare::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
         Command::Distances(args) => distances::run(args, &open_store(&db)?, &mut out),
         Command::Permanova(args) => permanova::run(args, &mut open_store(&db)?, &mut out),

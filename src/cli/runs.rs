@@ -38,6 +38,15 @@ pub enum Action {
         #[arg(long, value_enum, default_value_t = FormatArg::Table)]
         format: FormatArg,
     },
+    /// Reassemble a run's selection, check its fingerprint and recompute it with
+    /// the stored parameters and seed: `identical`, or what differs (exit code 1).
+    Verify {
+        /// Run id.
+        id: i64,
+        /// Output format.
+        #[arg(long, value_enum, default_value_t = FormatArg::Table)]
+        format: FormatArg,
+    },
     /// A stored number across runs, ordered by the period each run's data covers.
     Series {
         /// Kind of run.
@@ -82,7 +91,15 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 }
                 FormatArg::Csv => {
                     let mut w = csv::Writer::from_writer(out);
-                    w.write_record(["id", "kind", "created_at", "period_start", "period_end", "seed", "fingerprint"])?;
+                    w.write_record([
+                        "id",
+                        "kind",
+                        "created_at",
+                        "period_start",
+                        "period_end",
+                        "seed",
+                        "fingerprint",
+                    ])?;
                     for r in &runs {
                         w.write_record([
                             r.id.to_string(),
@@ -97,7 +114,8 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     w.flush()?;
                 }
                 FormatArg::Table => {
-                    let mut t = new_table(&["run", "kind", "stored", "data from", "data to", "seed"]);
+                    let mut t =
+                        new_table(&["run", "kind", "stored", "data from", "data to", "seed"]);
                     for r in &runs {
                         t.add_row(vec![
                             r.id.to_string(),
@@ -125,12 +143,27 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     w.flush()?;
                 }
                 FormatArg::Table => {
-                    writeln!(out, "run {} — {} (tally {}, stored {})", r.id, r.kind, r.tool_version, r.created_at)?;
+                    writeln!(
+                        out,
+                        "run {} — {} (tally {}, stored {})",
+                        r.id, r.kind, r.tool_version, r.created_at
+                    )?;
                     writeln!(out, "selection:  {}", r.selection)?;
                     writeln!(out, "parameters: {}", r.parameters)?;
-                    writeln!(out, "seed:       {}", r.seed.map(|s| s.to_string()).unwrap_or_else(|| "none".into()))?;
-                    writeln!(out, "data:       {} .. {}, fingerprint {}",
-                        r.period_start.as_deref().unwrap_or("?"), r.period_end.as_deref().unwrap_or("?"), r.fingerprint)?;
+                    writeln!(
+                        out,
+                        "seed:       {}",
+                        r.seed
+                            .map(|s| s.to_string())
+                            .unwrap_or_else(|| "none".into())
+                    )?;
+                    writeln!(
+                        out,
+                        "data:       {} .. {}, fingerprint {}",
+                        r.period_start.as_deref().unwrap_or("?"),
+                        r.period_end.as_deref().unwrap_or("?"),
+                        r.fingerprint
+                    )?;
                     let mut t = new_table(&["stored number", "value"]);
                     for (n, v) in &r.values {
                         t.add_row(vec![n.clone(), fmt_opt(*v)]);
@@ -139,7 +172,13 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 }
             }
         }
-        Action::Series { kind, value, selection, format } => {
+        Action::Verify { id, format } => super::verify::run(id, format, store, out)?,
+        Action::Series {
+            kind,
+            value,
+            selection,
+            format,
+        } => {
             let sel = match selection {
                 Some(name) => Some(serde_json::to_value(store.selection(&name)?)?),
                 None => None,

@@ -121,7 +121,9 @@ pub const BUILTIN_FIELDS: &[&str] = &[
 impl CountMatrix {
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
-        (0..self.values.nrows()).map(|i| self.values.row(i).sum()).collect()
+        (0..self.values.nrows())
+            .map(|i| self.values.row(i).sum())
+            .collect()
     }
 
     /// Every field name that [`CountMatrix::field_values`] accepts for this
@@ -233,6 +235,115 @@ impl CountMatrix {
                 }),
             })
             .collect()
+    }
+
+    /// The label of a period of years: `2008-2015`, or `2010` for one year.
+    pub fn period_label(period: (i32, i32)) -> String {
+        if period.0 == period.1 {
+            period.0.to_string()
+        } else {
+            format!("{}-{}", period.0, period.1)
+        }
+    }
+
+    /// The matrix with a field `period` (usable wherever a field name is: `--by
+    /// period`), naming the period of years (inclusive ranges `(first, last)`)
+    /// each row falls in, e.g. `2008-2015`. Rows outside every period are dropped
+    /// with a note. The value is kept with the row's attributes under the key
+    /// `period` and replaces a site attribute of that name (with a note).
+    ///
+    /// # Errors
+    /// [`MatrixError::FieldUnavailable`] for overlapping or reversed periods and
+    /// for a row whose years (`--unit site` pools several) fall in more than one
+    /// period or straddle a period's end; [`MatrixError::Empty`] when no row is in
+    /// any period.
+    pub fn with_periods(&self, periods: &[(i32, i32)]) -> Result<CountMatrix, MatrixError> {
+        let bad = |label: &str, why: String| MatrixError::FieldUnavailable {
+            field: "period".into(),
+            label: label.to_string(),
+            why,
+        };
+        let mut sorted = periods.to_vec();
+        sorted.sort_unstable();
+        for (k, p) in sorted.iter().enumerate() {
+            if p.0 > p.1 {
+                return Err(bad(
+                    "(all)",
+                    format!("the period {}..{} ends before it starts", p.0, p.1),
+                ));
+            }
+            if k > 0 && sorted[k - 1].1 >= p.0 {
+                return Err(bad(
+                    "(all)",
+                    format!(
+                        "the periods {}..{} and {}..{} overlap",
+                        sorted[k - 1].0,
+                        sorted[k - 1].1,
+                        p.0,
+                        p.1
+                    ),
+                ));
+            }
+        }
+        let mut keep = Vec::new();
+        let mut samples = Vec::new();
+        let mut outside = Vec::new();
+        let mut replaced = false;
+        for (i, s) in self.samples.iter().enumerate() {
+            let first = periods.iter().find(|p| p.0 <= s.year && s.year <= p.1);
+            let last = periods
+                .iter()
+                .find(|p| p.0 <= s.last_year && s.last_year <= p.1);
+            match (first, last) {
+                (Some(a), Some(b)) if a == b => {
+                    let mut m = s.clone();
+                    replaced |= m
+                        .attributes
+                        .insert("period".into(), Self::period_label(*a))
+                        .is_some();
+                    samples.push(m);
+                    keep.push(i);
+                }
+                (None, None) if s.year == s.last_year => outside.push(s.label.clone()),
+                _ => {
+                    return Err(bad(
+                        &s.label,
+                        format!(
+                            "the row pools years {}..{}, which do not lie within one period \
+                             (choose a unit with one year per row)",
+                            s.year, s.last_year
+                        ),
+                    ));
+                }
+            }
+        }
+        if keep.is_empty() {
+            return Err(MatrixError::Empty {
+                why: "no row falls in any of the periods given".into(),
+            });
+        }
+        let values = DMatrix::from_fn(keep.len(), self.values.ncols(), |i, j| {
+            self.values[(keep[i], j)]
+        });
+        let mut notes = self.notes.clone();
+        if !outside.is_empty() {
+            let shown: Vec<&str> = outside.iter().take(5).map(String::as_str).collect();
+            notes.push(format!(
+                "{} row(s) outside every period dropped ({}{})",
+                outside.len(),
+                shown.join(", "),
+                if outside.len() > 5 { ", …" } else { "" }
+            ));
+        }
+        if replaced {
+            notes.push("the site attribute 'period' is replaced by the periods given".into());
+        }
+        Ok(CountMatrix {
+            samples,
+            taxa: self.taxa.clone(),
+            values,
+            notes,
+        })
     }
 
     /// SHA-256 (lowercase hex) of a canonical serialisation of the row labels,
@@ -349,6 +460,32 @@ mod tests {
             let m = matrix(&strings("labels"), &strings("taxa"), &values);
             assert_eq!(m.fingerprint(), c["fingerprint"].as_str().unwrap());
         }
+    }
+
+    #[test]
+    fn periods_become_a_field_and_rows_outside_are_dropped() {
+        let s = |v: &[&str]| v.iter().map(|x| x.to_string()).collect::<Vec<_>>();
+        let mut m = matrix(
+            &s(&["a", "b", "c", "d"]),
+            &s(&["x"]),
+            &[vec![1.0], vec![2.0], vec![3.0], vec![4.0]],
+        );
+        for (smp, y) in m.samples.iter_mut().zip([2008, 2015, 2016, 2030]) {
+            smp.year = y;
+            smp.last_year = y;
+        }
+        let p = m.with_periods(&[(2008, 2015), (2016, 2025)]).unwrap();
+        assert_eq!(
+            p.field_values("period").unwrap(),
+            s(&["2008-2015", "2008-2015", "2016-2025"])
+        );
+        assert_eq!(p.values.nrows(), 3);
+        assert_eq!(p.values[(2, 0)], 3.0);
+        assert!(p.notes.iter().any(|n| n.contains("1 row(s) outside")));
+        assert!(m.with_periods(&[(2008, 2016), (2016, 2025)]).is_err());
+        assert!(m.with_periods(&[(1990, 1999)]).is_err());
+        m.samples[0].last_year = 2016;
+        assert!(m.with_periods(&[(2008, 2015), (2016, 2025)]).is_err());
     }
 
     #[test]

@@ -25,7 +25,9 @@ pub fn write_json(out: &mut dyn Write, value: &serde_json::Value) -> std::io::Re
 
 /// A finite f64 as JSON, or `null` when it is NaN or infinite.
 pub fn num(v: f64) -> serde_json::Value {
-    serde_json::Number::from_f64(v).map(serde_json::Value::Number).unwrap_or(serde_json::Value::Null)
+    serde_json::Number::from_f64(v)
+        .map(serde_json::Value::Number)
+        .unwrap_or(serde_json::Value::Null)
 }
 
 /// An optional f64 as JSON (`null` for `None` or a non-finite value).

@@ -47,7 +47,10 @@ impl Store {
         }
         let conn = Connection::open(path)?;
         conn.pragma_update(None, "application_id", APPLICATION_ID)?;
-        let mut store = Store { conn, path: Some(path.to_path_buf()) };
+        let mut store = Store {
+            conn,
+            path: Some(path.to_path_buf()),
+        };
         store.prepare()?;
         Ok(store)
     }
@@ -62,7 +65,10 @@ impl Store {
             return Err(StoreError::Missing(path.to_path_buf()));
         }
         if path.is_dir() {
-            return Err(StoreError::NotAStore(path.to_path_buf(), "it is a directory".into()));
+            return Err(StoreError::NotAStore(
+                path.to_path_buf(),
+                "it is a directory".into(),
+            ));
         }
         let not_a_store = |why: &str| StoreError::NotAStore(path.to_path_buf(), why.to_string());
         let conn = Connection::open_with_flags(
@@ -74,9 +80,14 @@ impl Store {
             .pragma_query_value(None, "application_id", |r| r.get(0))
             .map_err(|_| not_a_store("not an SQLite database"))?;
         if id != APPLICATION_ID {
-            return Err(not_a_store(&format!("application id {id:#x}, expected {APPLICATION_ID:#x}")));
+            return Err(not_a_store(&format!(
+                "application id {id:#x}, expected {APPLICATION_ID:#x}"
+            )));
         }
-        let mut store = Store { conn, path: Some(path.to_path_buf()) };
+        let mut store = Store {
+            conn,
+            path: Some(path.to_path_buf()),
+        };
         store.prepare()?;
         Ok(store)
     }
@@ -103,10 +114,13 @@ impl Store {
         self.conn.pragma_update(None, "temp_store", "MEMORY")?;
         if self.path.is_some() {
             let _mode: String =
-                self.conn.pragma_update_and_check(None, "journal_mode", "WAL", |r| r.get(0))?;
+                self.conn
+                    .pragma_update_and_check(None, "journal_mode", "WAL", |r| r.get(0))?;
             self.conn.pragma_update(None, "synchronous", "NORMAL")?;
         }
-        embedded::migrations::runner().set_grouped(true).run(&mut self.conn)?;
+        embedded::migrations::runner()
+            .set_grouped(true)
+            .run(&mut self.conn)?;
         Ok(())
     }
 
@@ -158,7 +172,10 @@ impl Store {
         for name in names {
             out.push_str(&format!("## {name}\n"));
             // Table names come from sqlite_schema, not from users; quoted as identifiers.
-            let sql = format!("SELECT * FROM \"{}\" ORDER BY 1, 2", name.replace('"', "\"\""));
+            let sql = format!(
+                "SELECT * FROM \"{}\" ORDER BY 1, 2",
+                name.replace('"', "\"\"")
+            );
             let mut stmt = self.conn.prepare(&sql)?;
             let ncol = stmt.column_count();
             let mut rows = stmt.query([])?;
@@ -181,7 +198,8 @@ impl Store {
     /// SQLite errors.
     pub fn checkpoint(&self) -> Result<()> {
         if self.path.is_some() {
-            self.conn.execute_batch("PRAGMA wal_checkpoint(TRUNCATE); PRAGMA optimize;")?;
+            self.conn
+                .execute_batch("PRAGMA wal_checkpoint(TRUNCATE); PRAGMA optimize;")?;
         }
         Ok(())
     }
@@ -201,7 +219,10 @@ mod tests {
         drop(s);
         let s = Store::open(&path).unwrap();
         assert_eq!(s.schema_version().unwrap(), v);
-        let fk: i64 = s.conn().pragma_query_value(None, "foreign_keys", |r| r.get(0)).unwrap();
+        let fk: i64 = s
+            .conn()
+            .pragma_query_value(None, "foreign_keys", |r| r.get(0))
+            .unwrap();
         assert_eq!(fk, 1);
     }
 
@@ -211,11 +232,21 @@ mod tests {
         let missing = dir.path().join("none.db");
         assert!(matches!(Store::open(&missing), Err(StoreError::Missing(_))));
         let text = dir.path().join("notes.txt");
-        std::fs::write(&text, "hello, this is not a database at all, just some text\n").unwrap();
+        std::fs::write(
+            &text,
+            "hello, this is not a database at all, just some text\n",
+        )
+        .unwrap();
         assert!(matches!(Store::open(&text), Err(StoreError::NotAStore(..))));
         let other = dir.path().join("other.db");
-        Connection::open(&other).unwrap().execute_batch("CREATE TABLE x(a)").unwrap();
-        assert!(matches!(Store::open(&other), Err(StoreError::NotAStore(..))));
+        Connection::open(&other)
+            .unwrap()
+            .execute_batch("CREATE TABLE x(a)")
+            .unwrap();
+        assert!(matches!(
+            Store::open(&other),
+            Err(StoreError::NotAStore(..))
+        ));
     }
 
     #[test]

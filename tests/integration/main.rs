@@ -1,4 +1,5 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
+mod compare;
 mod demo_data;
 mod distance_properties;
 mod engine_cli;

@@ -1,0 +1,1 @@
+//! End-to-end tests of `tally partition`, `tally compare` and `tally runs verify`.
