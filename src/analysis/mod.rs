@@ -13,13 +13,14 @@ pub mod error;
 pub mod gower;
 pub mod linear_model;
 pub mod ordination;
-pub mod partition;
 mod pairwise;
+pub mod partition;
 pub mod permanova;
 pub mod permutation;
 pub mod prec;
 pub mod size_test;
 pub mod transform;
+pub mod trend;
 
 pub use dissimilarity::{Distance, DistanceMatrix};
 pub use error::AnalysisError;
