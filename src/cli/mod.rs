@@ -23,6 +23,7 @@ pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
+pub mod trend;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -81,6 +82,8 @@ pub enum Command {
     Runs(runs::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
+    /// Trends across years: fewer animals, different animals, or both, and since when.
+    Trend(trend::Args),
 }
 
 /// Run a parsed command line.
@@ -104,6 +107,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
+        Command::Trend(args) => trend::run(args, &mut open_store(&db)?, &mut out),
     };
     result?;
     out.flush()?;
