@@ -21,6 +21,7 @@ pub mod prec;
 pub mod rarefy;
 pub mod size_test;
 pub mod transform;
+pub mod trend;
 
 pub use dissimilarity::{Distance, DistanceMatrix};
 pub use error::AnalysisError;

@@ -139,11 +139,47 @@ pub fn store_run(
     result: &serde_json::Value,
     values: Vec<(String, Option<f64>)>,
 ) -> anyhow::Result<Option<i64>> {
+    let period_start = matrix.samples.iter().map(|s| s.first_date.clone()).min();
+    let period_end = matrix.samples.iter().map(|s| s.last_date.clone()).max();
+    let id = store_run_dated(
+        store,
+        run,
+        kind,
+        selection,
+        matrix,
+        parameters,
+        seed,
+        result,
+        values,
+        (period_start, period_end),
+    )?;
+    if let Some(id) = id {
+        super::note(&format!("stored as run {id}"));
+    }
+    Ok(id)
+}
+
+/// As [`store_run`], with the period the run covers given explicitly (e.g. one
+/// year of a trend) and without the note on stderr (the caller announces).
+///
+/// # Errors
+/// SQLite errors.
+#[allow(clippy::too_many_arguments)]
+pub fn store_run_dated(
+    store: &mut Store,
+    run: &RunArgs,
+    kind: &str,
+    selection: &Selection,
+    matrix: &CountMatrix,
+    parameters: serde_json::Value,
+    seed: Option<u64>,
+    result: &serde_json::Value,
+    values: Vec<(String, Option<f64>)>,
+    (period_start, period_end): (Option<String>, Option<String>),
+) -> anyhow::Result<Option<i64>> {
     if run.no_store {
         return Ok(None);
     }
-    let period_start = matrix.samples.iter().map(|s| s.first_date.clone()).min();
-    let period_end = matrix.samples.iter().map(|s| s.last_date.clone()).max();
     let id = store
         .save_run(&NewRun {
             kind: kind.to_string(),
@@ -158,7 +194,6 @@ pub fn store_run(
         })
         .context("storing the run")?;
     store.checkpoint()?;
-    super::note(&format!("stored as run {id}"));
     Ok(Some(id))
 }
 

@@ -29,6 +29,7 @@ pub mod selection;
 pub mod selections;
 pub mod summary;
 pub mod verify;
+pub mod trend;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]
@@ -97,6 +98,8 @@ pub enum Command {
     Permanova(permanova::Args),
     /// Do groups differ in multivariate spread (distances to their centroid)?
     Dispersion(dispersion::Args),
+    /// Trends across years: fewer animals, different animals, or both, and since when.
+    Trend(trend::Args),
 }
 
 /// Run a parsed command line.
@@ -123,6 +126,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Distances(args) => distances::run(args, &open_store(&db)?, &mut out),
         Command::Permanova(args) => permanova::run(args, &mut open_store(&db)?, &mut out),
         Command::Dispersion(args) => dispersion::run(args, &mut open_store(&db)?, &mut out),
+        Command::Trend(args) => trend::run(args, &mut open_store(&db)?, &mut out),
     };
     result?;
     out.flush()?;

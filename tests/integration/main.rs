@@ -8,5 +8,6 @@ mod reference_distances;
 mod reference_models;
 mod import;
 mod store_cli;
+mod trend_cli;
 mod util;
 mod architecture;

@@ -1,0 +1,184 @@
+//! `tally trend` end to end on the demo store: the three reach stories of
+//! demo-data/README.md (planted by the generator, so the truth is known).
+
+use serde_json::Value;
+
+use crate::util::TestEnv;
+
+fn demo() -> TestEnv {
+    let env = TestEnv::new();
+    env.stdout(["demo"]);
+    env
+}
+
+fn group<'a>(v: &'a Value, name: &str) -> &'a Value {
+    v["groups"]
+        .as_array()
+        .expect("groups")
+        .iter()
+        .find(|g| g["group"] == name)
+        .unwrap_or_else(|| panic!("no group {name}"))
+}
+
+#[test]
+fn demo_reaches_tell_their_stories() {
+    let env = demo();
+    let out = env.stdout([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--every",
+        "year",
+        "--split-by",
+        "reach",
+        "--breakpoint",
+        "auto",
+        "--permutations",
+        "199",
+        "--seed",
+        "11",
+        "--format",
+        "json",
+    ]);
+    let v: Value = serde_json::from_str(&out).expect("json");
+    // demo-data/README.md stories 1-3: lower loses 40 % from 2016 with the same
+    // composition; middle changes composition from 2019 at constant totals;
+    // upper is stable.
+    let lower = group(&v, "lower");
+    let middle = group(&v, "middle");
+    let upper = group(&v, "upper");
+    assert_eq!(lower["diagnosis"], "abundance", "{}", lower["decision"]);
+    assert_eq!(middle["diagnosis"], "composition", "{}", middle["decision"]);
+    assert_eq!(upper["diagnosis"], "none", "{}", upper["decision"]);
+    let year = |g: &Value, aspect: &str| g["breakpoints"][aspect]["year"].as_i64().unwrap();
+    assert!(
+        (year(lower, "size") - 2016).abs() <= 1,
+        "lower size break {}",
+        year(lower, "size")
+    );
+    assert!(
+        (year(middle, "shape") - 2019).abs() <= 1,
+        "middle shape break {}",
+        year(middle, "shape")
+    );
+    // The planted step is ×0.6 (−40 %); the step estimate is near it.
+    let step = lower["breakpoints"]["size"]["change_pct"].as_f64().unwrap();
+    assert!((-50.0..-30.0).contains(&step), "lower step {step} %");
+    // Keys and shapes of the JSON.
+    for g in [lower, middle, upper] {
+        for k in ["slope_pct_per_year", "p_value", "ci_low", "ci_high"] {
+            assert!(g["size_trend"][k].is_number(), "size_trend.{k}");
+        }
+        for k in ["r2", "p_value"] {
+            assert!(g["shape_trend"][k].is_number(), "shape_trend.{k}");
+        }
+        let periods = g["periods"].as_array().unwrap();
+        assert_eq!(periods.len(), 18);
+        for k in [
+            "period",
+            "abundance",
+            "change_pct",
+            "shape_distance",
+            "size_part",
+            "shape_part",
+            "n",
+            "sites",
+        ] {
+            assert!(!periods[5][k].is_null(), "periods[].{k}");
+        }
+    }
+    // S10 has no events in 2012-2013 (README story 5): 5 sites those years.
+    let p2012 = &middle["periods"].as_array().unwrap()[4];
+    assert_eq!(
+        (p2012["period"].as_str(), p2012["sites"].as_u64()),
+        (Some("2012"), Some(5))
+    );
+    // After 2016 the lower reach's abundance is about 0.6 of the baseline's.
+    let late: Vec<f64> = lower["periods"].as_array().unwrap()[10..]
+        .iter()
+        .map(|p| p["change_pct"].as_f64().unwrap())
+        .collect();
+    let mean = late.iter().sum::<f64>() / late.len() as f64;
+    assert!(
+        (-55.0..-25.0).contains(&mean),
+        "lower change after 2018: {mean} %"
+    );
+
+    // Each trend and each period is stored: a series of size parts across years.
+    let s = env.stdout([
+        "runs",
+        "series",
+        "--kind",
+        "trend-period",
+        "--value",
+        "size_part",
+        "--format",
+        "json",
+    ]);
+    let s: Value = serde_json::from_str(&s).unwrap();
+    assert_eq!(s["points"].as_array().unwrap().len(), 3 * 18);
+    let t = env.stdout(["runs", "list", "--kind", "trend", "--format", "json"]);
+    let t: Value = serde_json::from_str(&t).unwrap();
+    assert_eq!(t.as_array().unwrap().len(), 3);
+}
+
+#[test]
+fn single_selection_table_and_seasons() {
+    let env = demo();
+    let table = env.stdout([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--site-where",
+        "reach=lower",
+        "--permutations",
+        "99",
+        "--seed",
+        "3",
+        "--no-store",
+    ]);
+    assert!(table.contains("diagnosis: "), "{table}");
+    assert!(table.contains("seed 3"), "{table}");
+    assert!(table.contains("whole years"), "{table}");
+    let out = env.stdout([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--site-where",
+        "reach=lower",
+        "--every",
+        "season",
+        "--baseline",
+        "2008..2010",
+        "--permutations",
+        "99",
+        "--seed",
+        "3",
+        "--no-store",
+        "--format",
+        "json",
+    ]);
+    let v: Value = serde_json::from_str(&out).unwrap();
+    let periods = v["periods"].as_array().unwrap();
+    assert_eq!(periods.len(), 36);
+    assert_eq!(periods[0]["period"], "2008-spring");
+    assert_eq!(periods[1]["period"], "2008-autumn");
+    assert!(["abundance", "both"].contains(&v["diagnosis"].as_str().unwrap()));
+    // A breakpoint year without years on both sides is refused.
+    env.cmd([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--breakpoint",
+        "2008",
+        "--permutations",
+        "99",
+        "--no-store",
+    ])
+    .assert()
+    .failure();
+}
