@@ -19,6 +19,7 @@ pub mod demo;
 pub mod import;
 pub mod init;
 pub mod matrix;
+pub mod ordinate;
 pub mod runs;
 pub mod selection;
 pub mod selections;
@@ -79,6 +80,8 @@ pub enum Command {
     Selections(selections::Args),
     /// Stored results: list, show, follow a number across runs.
     Runs(runs::Args),
+    /// Ordination (PCoA, CA, CCA) with group centroid ellipses and an SVG plot.
+    Ordinate(ordinate::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
 }
@@ -103,6 +106,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Matrix(args) => matrix::run(args, &open_store(&db)?, &mut out),
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
+        Command::Ordinate(args) => ordinate::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
     };
     result?;
