@@ -20,6 +20,7 @@ pub mod import;
 pub mod init;
 pub mod matrix;
 pub mod ordinate;
+pub mod report;
 pub mod runs;
 pub mod selection;
 pub mod selections;
@@ -82,6 +83,8 @@ pub enum Command {
     Runs(runs::Args),
     /// Ordination (PCoA, CA, CCA) with group centroid ellipses and an SVG plot.
     Ordinate(ordinate::Args),
+    /// Write one self-contained HTML report of a selection.
+    Report(report::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
 }
@@ -107,6 +110,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Ordinate(args) => ordinate::run(args, &mut open_store(&db)?, &mut out),
+        Command::Report(args) => report::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
     };
     result?;

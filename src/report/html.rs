@@ -54,6 +54,9 @@ pub struct OrdinationPart {
     pub plot: OrdinationPlot,
     /// The `tally ordinate --format json` object.
     pub result: Value,
+    /// A separate test of composition against constraints shown under the
+    /// plot (a `tally ordinate --method cca` JSON object), if one was run.
+    pub test: Option<Value>,
 }
 
 /// Everything the report shows.
@@ -462,11 +465,12 @@ fn glance(out: &mut String, input: &ReportInput) {
     }
     if let Some(os) = input.ordination.done() {
         for o in os {
-            if let Some(t) = o.result.get("test").filter(|t| t.is_object()) {
+            let cca = o.test.as_ref().unwrap_or(&o.result);
+            if let Some(t) = cca.get("test").filter(|t| t.is_object()) {
                 cards.push_str(&format!(
-                    "<div class=\"card\"><h3>{}</h3><p>Constraints explain {:.1}% of the inertia; pseudo-F {} , p = {}</p></div>\n",
+                    "<div class=\"card\"><h3>{}</h3><p>Composition against the constraints (CCA): {:.1}% of the inertia, pseudo-F {}, p = {}</p></div>\n",
                     esc(&o.label),
-                    100.0 * o.result["constrained_share"].as_f64().unwrap_or(f64::NAN),
+                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN),
                     f(&t["pseudo_f"], 3),
                     p(&t["p_value"])
                 ));
@@ -713,9 +717,19 @@ fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
                 &o.plot.title,
                 &caption,
             ));
-            if let Some(t) = r.get("test").filter(|t| t.is_object()) {
+            for cca in std::iter::once(r).chain(o.test.as_ref()) {
+                let Some(t) = cca.get("test").filter(|t| t.is_object()) else {
+                    continue;
+                };
+                let names: Vec<String> = cca["constraints"]
+                    .as_array()
+                    .into_iter()
+                    .flatten()
+                    .map(|c| text_of(&c["field"]))
+                    .collect();
                 out.push_str(&format!(
-                    "<p>Test of the constraints: pseudo-F = {} ({} and {} df), p = {} from {} {} permutations ({}, seed {}). The constraints carry {:.1}% of the total inertia.</p>\n",
+                    "<p>CCA test of composition against {}: pseudo-F = {} ({} and {} df), p = {} from {} {} permutations ({}, seed {}). The constraints carry {:.1}% of the total inertia.</p>\n",
+                    esc(&names.join(", ")),
                     f(&t["pseudo_f"], 4),
                     f(&t["df_constraints"], 0),
                     f(&t["df_residual"], 0),
@@ -724,7 +738,7 @@ fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
                     if t["exact"].as_bool() == Some(true) { "exact" } else { "random" },
                     esc(&text_of(&t["scheme"])),
                     esc(&text_of(&t["seed"])),
-                    100.0 * r["constrained_share"].as_f64().unwrap_or(f64::NAN)
+                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN)
                 ));
             }
         }
