@@ -4,5 +4,6 @@ mod distance_properties;
 mod matrix_cli;
 mod reference_distances;
 mod reference_models;
+mod report;
 mod store_cli;
 mod util;
