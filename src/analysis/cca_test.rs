@@ -227,7 +227,7 @@ mod tests {
         }
         heap_permutations(k - 1, v, out);
         for i in 0..k - 1 {
-            if k % 2 == 0 {
+            if k.is_multiple_of(2) {
                 v.swap(i, k - 1);
             } else {
                 v.swap(0, k - 1);
