@@ -6,6 +6,7 @@
 //! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
+pub mod cca_test;
 pub mod dispersion;
 pub mod dissimilarity;
 pub mod ellipse;

@@ -24,6 +24,8 @@ pub mod init;
 pub mod matrix;
 pub mod permanova;
 pub mod partition;
+pub mod ordinate;
+pub mod report;
 pub mod runs;
 pub mod selection;
 pub mod selections;
@@ -90,6 +92,10 @@ pub enum Command {
     Partition(partition::Args),
     /// Size and shape of the difference between groups, with a plain-language verdict.
     Compare(compare::Args),
+    /// Ordination (PCoA, CA, CCA) with group centroid ellipses and an SVG plot.
+    Ordinate(ordinate::Args),
+    /// Write one self-contained HTML report of a selection.
+    Report(report::Args),
     /// Build the invented Wren Valley demo store and analyse it.
     Demo(demo::Args),
     /// Dissimilarities between the rows of a selection.
@@ -122,6 +128,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Partition(args) => partition::run(args, &mut open_store(&db)?, &mut out),
         Command::Compare(args) => compare::run(args, &mut open_store(&db)?, &mut out),
+        Command::Ordinate(args) => ordinate::run(args, &mut open_store(&db)?, &mut out),
+        Command::Report(args) => report::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),
         Command::Distances(args) => distances::run(args, &open_store(&db)?, &mut out),
         Command::Permanova(args) => permanova::run(args, &mut open_store(&db)?, &mut out),

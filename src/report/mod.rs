@@ -2,6 +2,7 @@
 //! Everything writes to `impl Write`; nothing here computes statistics.
 
 pub mod format;
+pub mod html;
 pub mod svg;
 
 pub use format::OutputFormat;

@@ -7,6 +7,7 @@ mod matrix_cli;
 mod reference_distances;
 mod reference_models;
 mod import;
+mod report;
 mod store_cli;
 mod trend_cli;
 mod util;

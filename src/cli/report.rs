@@ -1,0 +1,281 @@
+//! `tally report`: gather the summary and the analyses of a selection and
+//! write one self-contained HTML file (`report::html`).
+//!
+//! The store summary, the ordination and the totals are computed here now.
+//! The comparison (`tally compare`), the partition (`tally partition`) and the
+//! trends (`tally trend`) enter through the hook functions marked `HOOK` below,
+//! which take those commands' JSON; until a command is wired in, its part is
+//! shown as not available (with the reason), never as a result.
+
+use std::io::Write;
+use std::path::PathBuf;
+
+use anyhow::Context;
+use serde_json::Value;
+
+use super::FormatArg;
+use super::common::{DistanceArg, DistanceArgs, RunArgs, TransformArg};
+use super::ordinate::{self, MethodArg, Ordination, Periods, parse_periods, write_new_file};
+use super::selection::{SelectionArgs, flags_of};
+use crate::report::html::{self, Labelled, OrdinationPart, Part, ReportInput};
+use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
+use crate::store::Store;
+
+/// Arguments of `tally report`.
+#[derive(Debug, Clone, clap::Args)]
+#[command(group(clap::ArgGroup::new("grouping").required(true).args(["by", "split_by"])))]
+pub struct Args {
+    /// Which events, and what one row is.
+    #[command(flatten)]
+    pub selection: SelectionArgs,
+    /// Compare the groups of this field (`period` with `--periods`).
+    #[arg(long, value_name = "FIELD")]
+    pub by: Option<String>,
+    /// Follow each group of this field across the years.
+    #[arg(long, value_name = "FIELD")]
+    pub split_by: Option<String>,
+    /// Year ranges defining the field `period`, e.g. 2008..2015,2016..2025.
+    #[arg(long, value_name = "A..B,C..D", value_parser = parse_periods)]
+    pub periods: Option<Periods>,
+    /// The HTML file to write.
+    #[arg(long, value_name = "FILE.html")]
+    pub out: PathBuf,
+    /// Replace an existing file.
+    #[arg(long)]
+    pub force: bool,
+    /// Permutations, seed, storage of the runs made for the report.
+    #[command(flatten)]
+    pub run: RunArgs,
+}
+
+/// The `tally summary --format json` object of the store.
+///
+/// # Errors
+/// SQLite errors.
+pub fn summary_json(store: &mut Store) -> anyhow::Result<Value> {
+    let mut buf = Vec::new();
+    super::summary::run(
+        super::summary::Args {
+            format: FormatArg::Json,
+        },
+        store,
+        &mut buf,
+    )?;
+    Ok(serde_json::from_slice(&buf)?)
+}
+
+/// Ordination arguments for a report: `method` on `selection`, grouped by `by`.
+pub fn ordinate_args(
+    selection: &SelectionArgs,
+    method: MethodArg,
+    by: Option<String>,
+    periods: Option<Periods>,
+    constraints: Vec<String>,
+    run: &RunArgs,
+) -> ordinate::Args {
+    ordinate::Args {
+        selection: selection.clone(),
+        method,
+        by,
+        periods,
+        constraints,
+        axes: 2,
+        plot: None,
+        force: false,
+        distance: DistanceArgs {
+            distance: DistanceArg::BrayCurtis,
+            transform: TransformArg::None,
+        },
+        run: run.clone(),
+    }
+}
+
+/// The report part of a computed ordination (`None` without two axes).
+pub fn ordination_part(
+    o: &Ordination,
+    label: &str,
+    test: Option<&Ordination>,
+) -> Option<OrdinationPart> {
+    Some(OrdinationPart {
+        label: label.to_string(),
+        plot: o.plot.clone()?,
+        result: o.json.clone(),
+        test: test.map(|t| t.json.clone()),
+    })
+}
+
+/// Box plots of the sample totals of an ordination's matrix, per group.
+pub fn totals_part(o: &Ordination, title: &str) -> Part<TotalsPlot> {
+    let totals = o.matrix.totals();
+    let groups = o
+        .group_names
+        .iter()
+        .enumerate()
+        .map(|(g, name)| TotalsGroup {
+            name: name.clone(),
+            values: (0..totals.len())
+                .filter(|&i| o.group_of[i] == g)
+                .map(|i| totals[i])
+                .collect(),
+        })
+        .collect();
+    let measure = if o.selection.per_effort {
+        let unit = o
+            .matrix
+            .samples
+            .first()
+            .map(|s| s.effort_unit.clone())
+            .unwrap_or_default();
+        TotalsMeasure::PerEffort {
+            unit: unit.trim_end_matches('s').to_string(),
+        }
+    } else {
+        TotalsMeasure::Counts
+    };
+    Part::Done(TotalsPlot {
+        title: title.to_string(),
+        subtitle: ordinate::describe_selection(&o.selection, &o.matrix),
+        measure,
+        groups,
+    })
+}
+
+// ---------------------------------------------------------------- HOOKS
+// Each hook turns a command's JSON result into its report part. The
+// integrator calls them with `compare::compute`, `partition::compute` and
+// `trend::compute` once those commands are part of the build.
+
+/// HOOK(compare): one `tally compare` JSON result, labelled (e.g. `lower reach`).
+pub fn compare_entry(label: &str, result: Value) -> Labelled {
+    Labelled {
+        label: label.to_string(),
+        value: result,
+    }
+}
+
+/// HOOK(partition): a `tally partition` JSON result (single or `--compare-distances`).
+pub fn partition_entry(result: Value) -> Part<Value> {
+    Part::Done(result)
+}
+
+/// HOOK(trend): a `tally trend` JSON result (single or with `--split-by` groups).
+pub fn trend_entry(result: Value) -> Part<Value> {
+    Part::Done(result)
+}
+
+/// What a part says while its command is not part of this build.
+pub fn not_in_build(command: &str) -> String {
+    format!(
+        "`tally {command}` is not part of this build of tally, so this part could not be computed."
+    )
+}
+
+/// The run id a command put in its JSON (`run_id`), if any.
+pub fn run_id_of(v: &Value) -> Option<i64> {
+    v.get("run_id").and_then(Value::as_i64)
+}
+
+/// Build the report input for `args`.
+///
+/// # Errors
+/// Selection, field and kernel errors of the parts computed here.
+pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
+    let summary = summary_json(store)?;
+    let field = args
+        .by
+        .clone()
+        .or_else(|| args.split_by.clone())
+        .context("--by or --split-by is required")?;
+    let o = ordinate::compute(
+        store,
+        &ordinate_args(
+            &args.selection,
+            MethodArg::Ca,
+            Some(field.clone()),
+            args.periods.clone(),
+            vec![],
+            &args.run,
+        ),
+    )
+    .context("ordination for the report")?;
+    let selection_text = ordinate::describe_selection(&o.selection, &o.matrix);
+    let flags = flags_of(&o.selection);
+    let periods = args
+        .periods
+        .as_ref()
+        .map(|p| {
+            format!(
+                " --periods {}",
+                p.0.iter()
+                    .map(|(a, b)| format!("{a}..{b}"))
+                    .collect::<Vec<_>>()
+                    .join(",")
+            )
+        })
+        .unwrap_or_default();
+    let mut parameters = vec![
+        ("store summary".to_string(), "tally summary".to_string()),
+        (
+            "ordination".to_string(),
+            format!("tally ordinate {flags} --method ca --by {field}{periods}"),
+        ),
+    ];
+    let ordination = match ordination_part(&o, &format!("Correspondence analysis by {field}"), None)
+    {
+        Some(p) => Part::Done(vec![p]),
+        None => Part::Unavailable("the correspondence analysis has fewer than two axes".into()),
+    };
+    let totals = totals_part(&o, &format!("Sample totals by {field}"));
+    // HOOK(compare): with --by, Part::Done(vec![compare_entry(label, compare::compute(store, &compare_args)?)]).
+    let compare = if args.by.is_some() {
+        Part::Unavailable(not_in_build("compare"))
+    } else {
+        Part::NotRequested
+    };
+    // HOOK(partition): partition_entry(partition::compute(store, &partition_args)?).
+    let partition = if args.by.is_some() {
+        Part::Unavailable(not_in_build("partition"))
+    } else {
+        Part::NotRequested
+    };
+    // HOOK(trend): with --split-by, trend_entry(trend::compute(store, &trend_args)?).
+    let trends = if args.split_by.is_some() {
+        Part::Unavailable(not_in_build("trend"))
+    } else {
+        Part::NotRequested
+    };
+    if args.split_by.is_some() {
+        parameters.push((
+            "trends".to_string(),
+            format!("tally trend {flags} --split-by {field}"),
+        ));
+    }
+    Ok(ReportInput {
+        title: "Community change report".to_string(),
+        selection_text,
+        summary,
+        compare,
+        partition,
+        ordination,
+        totals,
+        trends,
+        run_ids: Vec::new(),
+        parameters,
+        cautions: Vec::new(),
+    })
+}
+
+/// Run `tally report`.
+///
+/// # Errors
+/// As [`build`]; an existing output file without `--force`; I/O errors.
+pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    if args.out.exists() && !args.force {
+        anyhow::bail!("{} exists; give --force to replace it", args.out.display());
+    }
+    let input = build(store, &args)?;
+    let page = html::render(&input);
+    write_new_file(&args.out, &page, args.force)?;
+    writeln!(out, "report written to {}", args.out.display())?;
+    Ok(())
+}

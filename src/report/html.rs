@@ -1,0 +1,1002 @@
+//! The offline HTML report: one self-contained file with inline CSS and inline
+//! SVG, no scripts, no fonts, nothing fetched from anywhere and no web
+//! addresses at all, readable on a phone and printable.
+//!
+//! [`render`] is a pure function from a [`ReportInput`] to a `String`. The
+//! analysis parts arrive as the JSON the commands print (`tally compare`,
+//! `tally partition`, `tally trend`, `tally ordinate`, `tally summary`), so the
+//! report shows exactly what the commands computed; this module computes no
+//! statistic. Each part is a [`Part`]: not requested, requested but not
+//! available (with the reason, shown as such), or done.
+
+use serde_json::Value;
+
+use super::svg::{
+    self, OrdinationPlot, PartitionBar, PartitionPlot, TotalsPlot, TrendPlot, TrendPoint,
+};
+
+/// One part of the report.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Part<T> {
+    /// The user did not ask for it; the section says so.
+    NotRequested,
+    /// Asked for but not produced; the reason is shown (never a made-up result).
+    Unavailable(String),
+    /// The result.
+    Done(T),
+}
+
+impl<T> Part<T> {
+    /// The result, if done.
+    pub fn done(&self) -> Option<&T> {
+        match self {
+            Part::Done(t) => Some(t),
+            _ => None,
+        }
+    }
+}
+
+/// A JSON result with the label of what it is about (e.g. `lower reach`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Labelled {
+    /// What the result is about.
+    pub label: String,
+    /// The command's JSON output.
+    pub value: Value,
+}
+
+/// One ordination: its plot input and the `tally ordinate` JSON.
+#[derive(Debug, Clone, PartialEq)]
+pub struct OrdinationPart {
+    /// What the ordination is of (a heading).
+    pub label: String,
+    /// Plot input (first two axes).
+    pub plot: OrdinationPlot,
+    /// The `tally ordinate --format json` object.
+    pub result: Value,
+    /// A separate test of composition against constraints shown under the
+    /// plot (a `tally ordinate --method cca` JSON object), if one was run.
+    pub test: Option<Value>,
+}
+
+/// Everything the report shows.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ReportInput {
+    /// Page title.
+    pub title: String,
+    /// The selection, in plain words.
+    pub selection_text: String,
+    /// `tally summary --format json` object.
+    pub summary: Value,
+    /// `tally compare` results, one per comparison run (e.g. per reach).
+    pub compare: Part<Vec<Labelled>>,
+    /// `tally partition` result (single, or with `partitions` from `--compare-distances`).
+    pub partition: Part<Value>,
+    /// Ordinations.
+    pub ordination: Part<Vec<OrdinationPart>>,
+    /// Totals per group.
+    pub totals: Part<TotalsPlot>,
+    /// `tally trend` result (single, or with `groups` from `--split-by`).
+    pub trends: Part<Value>,
+    /// Which stored run produced which part: (part, run id).
+    pub run_ids: Vec<(String, i64)>,
+    /// How each part was obtained: (part, parameters or command line).
+    pub parameters: Vec<(String, String)>,
+    /// Cautions added to [`standard_cautions`] for this report.
+    pub cautions: Vec<String>,
+}
+
+/// The cautions every report carries.
+pub fn standard_cautions() -> Vec<String> {
+    [
+        "A permutation p-value is the share of rearrangements of the samples, among those allowed by the design, that give a statistic at least as large as the one observed. A small value says the grouping is unlikely to be a coincidence of this arrangement; it does not measure how large or how important a difference is, and a large value does not show that there is no difference.",
+        "Size and shape are separated by construction: size is the total number of organisms of a sample, shape its relative composition. A shape-only distance cannot see totals, and any distance that sees totals mixes both. The split is a way of looking at the data, not a discovery about the animals.",
+        "A composition difference between groups can come from a different centre or from a different spread (dispersion). Read the dispersion test beside the composition test before concluding that the groups sit in different places.",
+        "Totals depend on sampling effort. Compare abundance only per unit effort and only within one protocol; rare taxa are missed more often in smaller samples, which can look like a change in composition.",
+        "Samples from the same sites in successive years are not independent replicates. These analyses are screening tools: conclusions about causes need a review of the sampling design and of the field records by someone who knows the program.",
+    ]
+    .into_iter()
+    .map(String::from)
+    .collect()
+}
+
+/// HTML-escape text.
+pub fn esc(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+}
+
+/// Prepare an SVG string from `report::svg` for inline use: drop the fixed
+/// size (CSS scales it through its viewBox), the namespace address (not
+/// needed inline in HTML) and label it for screen readers.
+pub fn inline_svg(svg: &str, label: &str) -> String {
+    let svg = svg.trim_start();
+    let svg = svg
+        .strip_prefix("<?xml")
+        .and_then(|r| r.find("?>").map(|e| &r[e + 2..]))
+        .unwrap_or(svg)
+        .trim_start();
+    match svg.find('>') {
+        Some(end) if svg.starts_with("<svg") => {
+            let head = &svg[..end];
+            let view = head
+                .find("viewBox=\"")
+                .and_then(|s| {
+                    let r = &head[s + 9..];
+                    r.find('"').map(|e| r[..e].to_string())
+                })
+                .unwrap_or_else(|| "0 0 760 540".to_string());
+            format!(
+                "<svg class=\"plot\" viewBox=\"{}\" role=\"img\" aria-label=\"{}\" preserveAspectRatio=\"xMidYMid meet\"{}",
+                esc(&view),
+                esc(label),
+                &svg[end..]
+            )
+        }
+        _ => String::new(),
+    }
+}
+
+fn f(v: &Value, digits: usize) -> String {
+    match v.as_f64() {
+        Some(x) => format!("{x:.digits$}"),
+        None => "—".to_string(),
+    }
+}
+
+/// A p-value printed in full (four significant digits, never "<0.001").
+fn p(v: &Value) -> String {
+    match v.as_f64() {
+        Some(x) if x >= 0.001 => format!("{x:.4}"),
+        Some(x) => format!("{x:.3e}"),
+        None => "—".to_string(),
+    }
+}
+
+fn yes_no(v: &Value) -> &'static str {
+    match v.as_bool() {
+        Some(true) => "<span class=\"tag yes\">yes</span>",
+        Some(false) => "<span class=\"tag no\">no</span>",
+        None => "—",
+    }
+}
+
+fn text_of(v: &Value) -> String {
+    match v {
+        Value::String(s) => s.clone(),
+        Value::Null => String::new(),
+        other => other.to_string(),
+    }
+}
+
+const CSS: &str = r#"
+:root{--ink:#222;--muted:#5b5b5b;--line:#d6d6d6;--paper:#fff;--band:#f3f1ea;--blue:#24589a;--amber:#e8a33a;--brick:#b3472c;--green:#2a8c6e}
+*{box-sizing:border-box}
+html{font-size:100%}
+body{margin:0;background:var(--paper);color:var(--ink);font-family:system-ui,-apple-system,"Segoe UI",Roboto,"Helvetica Neue",Arial,sans-serif;line-height:1.5}
+main{max-width:62rem;margin:0 auto;padding:1rem 1.1rem 3rem}
+header.top{border-bottom:4px solid var(--blue);padding-bottom:.6rem;margin-bottom:1.2rem}
+header.top h1{font-size:1.7rem;margin:.2rem 0}
+header.top p{margin:.2rem 0;color:var(--muted)}
+nav.toc{background:var(--band);border-radius:.4rem;padding:.5rem .9rem;margin:1rem 0}
+nav.toc ol{margin:.2rem 0;padding-left:1.3rem;columns:2;column-gap:2rem}
+nav.toc a{color:var(--blue)}
+section{margin:2rem 0;break-inside:auto}
+section>h2{font-size:1.3rem;border-left:6px solid var(--amber);padding-left:.55rem;margin:0 0 .7rem}
+h3{font-size:1.05rem;margin:1.2rem 0 .4rem}
+.notrun{color:var(--muted);font-style:italic;border:1px dashed var(--line);padding:.5rem .8rem;border-radius:.3rem}
+.glance{display:grid;grid-template-columns:repeat(auto-fit,minmax(15rem,1fr));gap:.8rem}
+.card{border:1px solid var(--line);border-radius:.4rem;padding:.7rem .9rem;background:#fafafa}
+.card h3{margin:0 0 .3rem}
+.card p{margin:.25rem 0}
+.tag{display:inline-block;padding:0 .45rem;border-radius:.7rem;font-size:.85rem;font-weight:600}
+.tag.yes{background:#fbe3c0;color:#6b3d00}
+.tag.no{background:#e4ecf6;color:#1d3f6b}
+.tag.diag{background:var(--blue);color:#fff}
+.scroll{overflow-x:auto;-webkit-overflow-scrolling:touch;margin:.5rem 0}
+table{border-collapse:collapse;font-size:.9rem;min-width:100%}
+th,td{padding:.3rem .55rem;border-bottom:1px solid var(--line);text-align:left;vertical-align:top}
+th{background:var(--band);font-weight:600}
+td.num,th.num{text-align:right;font-variant-numeric:tabular-nums}
+table.grid td{padding:.1rem .3rem;text-align:center;font-size:.8rem}
+table.grid td.zero{color:#bbb}
+figure{margin:1rem 0}
+svg.plot{display:block;width:100%;height:auto;max-width:760px;border:1px solid var(--line);border-radius:.3rem;background:#fff}
+figcaption{font-size:.85rem;color:var(--muted);margin-top:.3rem}
+ul.cautions li{margin:.45rem 0}
+code{font-family:ui-monospace,Menlo,Consolas,monospace;font-size:.85rem;background:var(--band);padding:0 .2rem;border-radius:.2rem;word-break:break-word}
+footer{margin-top:2.5rem;border-top:1px solid var(--line);padding-top:.6rem;color:var(--muted);font-size:.85rem}
+@media (max-width:40rem){main{padding:.7rem}header.top h1{font-size:1.35rem}nav.toc ol{columns:1}table{font-size:.8rem}}
+@media print{nav.toc{display:none}main{max-width:none;padding:0}section{break-inside:avoid-page}figure,table,.card{break-inside:avoid}svg.plot{max-width:100%;border:none}a{color:inherit;text-decoration:none}body{font-size:10.5pt}}
+"#;
+
+const SECTIONS: [(&str, &str); 9] = [
+    ("glance", "At a glance"),
+    ("store", "What the store holds"),
+    ("compare", "Abundance and composition compared"),
+    (
+        "partition",
+        "How much of the difference is size, how much shape",
+    ),
+    ("ordination", "Where the samples sit"),
+    ("totals", "Totals per group"),
+    ("trends", "Change across the years"),
+    ("provenance", "How each part was obtained"),
+    ("cautions", "Before drawing conclusions"),
+];
+
+fn open_section(out: &mut String, id: &str) {
+    let title = SECTIONS
+        .iter()
+        .find(|(i, _)| *i == id)
+        .map(|(_, t)| *t)
+        .unwrap_or(id);
+    out.push_str(&format!(
+        "<section id=\"{id}\" class=\"part\">\n<h2>{}</h2>\n",
+        esc(title)
+    ));
+}
+
+fn not_shown<T>(out: &mut String, part: &Part<T>, what: &str) -> bool {
+    match part {
+        Part::NotRequested => {
+            out.push_str(&format!(
+                "<p class=\"notrun\">Not run: {} was not requested for this report.</p>\n",
+                esc(what)
+            ));
+            true
+        }
+        Part::Unavailable(why) => {
+            out.push_str(&format!(
+                "<p class=\"notrun\">Not available: {}</p>\n",
+                esc(why)
+            ));
+            true
+        }
+        Part::Done(_) => false,
+    }
+}
+
+fn table(head: &[&str], rows: &[Vec<String>], numeric: &[bool]) -> String {
+    let mut s = String::from("<div class=\"scroll\"><table>\n<thead><tr>");
+    for (i, h) in head.iter().enumerate() {
+        let c = if numeric.get(i).copied().unwrap_or(false) {
+            " class=\"num\""
+        } else {
+            ""
+        };
+        s.push_str(&format!("<th{c}>{}</th>", esc(h)));
+    }
+    s.push_str("</tr></thead>\n<tbody>\n");
+    for r in rows {
+        s.push_str("<tr>");
+        for (i, cell) in r.iter().enumerate() {
+            let c = if numeric.get(i).copied().unwrap_or(false) {
+                " class=\"num\""
+            } else {
+                ""
+            };
+            // Cells are escaped by the callers (some hold tags).
+            s.push_str(&format!("<td{c}>{cell}</td>"));
+        }
+        s.push_str("</tr>\n");
+    }
+    s.push_str("</tbody></table></div>\n");
+    s
+}
+
+fn figure(svg_text: Result<String, svg::SvgError>, label: &str, caption: &str) -> String {
+    match svg_text {
+        Ok(s) => format!(
+            "<figure>\n{}\n<figcaption>{}</figcaption>\n</figure>\n",
+            inline_svg(&s, label),
+            esc(caption)
+        ),
+        Err(e) => format!(
+            "<p class=\"notrun\">The plot could not be drawn: {}</p>\n",
+            esc(&e.to_string())
+        ),
+    }
+}
+
+/// The trend objects of a trend result: the `groups` list, or the result itself.
+fn trend_groups(v: &Value) -> Vec<(String, &Value)> {
+    match v.get("groups").and_then(Value::as_array) {
+        Some(gs) => gs.iter().map(|g| (text_of(&g["group"]), g)).collect(),
+        None => vec![(String::new(), v)],
+    }
+}
+
+/// A period value as a position on the time axis (`2016`, `"2016"`, `"2016-spring"`).
+fn period_position(v: &Value) -> Option<f64> {
+    match v {
+        Value::Number(n) => n.as_f64(),
+        Value::String(s) => {
+            let digits: String = s.chars().take_while(|c| c.is_ascii_digit()).collect();
+            digits.parse::<f64>().ok()
+        }
+        _ => None,
+    }
+}
+
+/// The trend panel input of one trend object.
+fn trend_plot(label: &str, t: &Value, subtitle: &str) -> Option<TrendPlot> {
+    let periods = t.get("periods")?.as_array()?;
+    let mut points = Vec::new();
+    let mut with_interval = false;
+    for pe in periods {
+        let (Some(x), Some(a)) = (period_position(&pe["period"]), pe["abundance"].as_f64()) else {
+            continue;
+        };
+        let lo = pe["abundance_low"].as_f64().or(pe["ci_low"].as_f64());
+        let hi = pe["abundance_high"].as_f64().or(pe["ci_high"].as_f64());
+        with_interval |= lo.is_some() && hi.is_some();
+        points.push(TrendPoint {
+            period: x,
+            abundance: a,
+            lower: lo.unwrap_or(a),
+            upper: hi.unwrap_or(a),
+            shape_distance: pe["shape_distance"].as_f64(),
+        });
+    }
+    if points.is_empty() {
+        return None;
+    }
+    let baseline = match &t["baseline"] {
+        Value::Array(a) if a.len() == 2 => a[0].as_f64().zip(a[1].as_f64()),
+        Value::String(s) => s.split_once("..").and_then(|(a, b)| {
+            Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?))
+        }),
+        Value::Object(o) => o
+            .get("from")
+            .and_then(Value::as_f64)
+            .zip(o.get("to").and_then(Value::as_f64)),
+        _ => None,
+    }
+    .unwrap_or((points[0].period, points[0].period));
+    let breakpoints = t["breakpoints"]
+        .as_array()
+        .map(|b| {
+            b.iter()
+                .filter_map(|x| {
+                    x.as_f64().or_else(|| {
+                        ["year", "period", "at"]
+                            .iter()
+                            .find_map(|k| x.get(*k).and_then(period_position_ref))
+                    })
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    Some(TrendPlot {
+        title: if label.is_empty() {
+            "Abundance and composition over time".into()
+        } else {
+            format!("{label}: abundance and composition over time")
+        },
+        subtitle: subtitle.to_string(),
+        abundance_label: t["abundance_label"]
+            .as_str()
+            .unwrap_or("Organisms per unit effort")
+            .to_string(),
+        interval_label: if with_interval {
+            "95% interval".into()
+        } else {
+            "no interval reported".into()
+        },
+        distance_label: "Shape distance to baseline".into(),
+        points,
+        baseline,
+        breakpoints,
+    })
+}
+
+fn period_position_ref(v: &Value) -> Option<f64> {
+    period_position(v)
+}
+
+/// Partition bars from a partition result (`partitions` list or one result)
+/// or from compare results (`combined.adjusted_fractions`).
+fn partition_bars_from_partition(v: &Value) -> Vec<PartitionBar> {
+    let list: Vec<&Value> = match v.get("partitions").and_then(Value::as_array) {
+        Some(a) => a.iter().collect(),
+        None => vec![v],
+    };
+    list.into_iter()
+        .filter_map(|x| {
+            let label = format!("{} ({})", text_of(&x["distance"]), text_of(&x["transform"]));
+            bar(&label, &x["adjusted_fractions"])
+        })
+        .collect()
+}
+
+fn bar(label: &str, a: &Value) -> Option<PartitionBar> {
+    Some(PartitionBar {
+        label: label.to_string(),
+        size_only: a["size_only"].as_f64()?,
+        shared: a["shared"].as_f64()?,
+        shape_only: a["shape_only"].as_f64()?,
+        unexplained: a["unexplained"].as_f64()?,
+    })
+}
+
+fn glance(out: &mut String, input: &ReportInput) {
+    open_section(out, "glance");
+    let mut cards = String::new();
+    if let Some(cs) = input.compare.done() {
+        for c in cs {
+            let first = c.value["comparisons"]
+                .as_array()
+                .and_then(|a| a.first())
+                .cloned()
+                .unwrap_or(Value::Null);
+            cards.push_str(&format!(
+                "<div class=\"card\"><h3>{}</h3><p>Abundance differs: {} · Composition differs: {}</p><p>{}</p></div>\n",
+                esc(&c.label),
+                yes_no(&first["abundance_differs"]),
+                yes_no(&first["composition_differs"]),
+                esc(&text_of(&c.value["verdict"]))
+            ));
+        }
+    }
+    if let Some(t) = input.trends.done() {
+        for (g, tv) in trend_groups(t) {
+            let d = text_of(&tv["diagnosis"]);
+            let meaning = match d.as_str() {
+                "abundance" => "organisms fewer or more, mix of taxa steady",
+                "composition" => "mix of taxa changing, numbers steady",
+                "both" => "numbers and mix of taxa both changing",
+                "none" => "no trend in numbers or in the mix of taxa",
+                _ => "",
+            };
+            cards.push_str(&format!(
+                "<div class=\"card\"><h3>Trend{}</h3><p><span class=\"tag diag\">{}</span> {}</p><p>Size: {} % per year (p = {}); shape: R² {} (p = {})</p></div>\n",
+                if g.is_empty() { String::new() } else { format!(": {}", esc(&g)) },
+                esc(&d),
+                esc(meaning),
+                f(&tv["size_trend"]["slope_pct_per_year"], 1),
+                p(&tv["size_trend"]["p_value"]),
+                f(&tv["shape_trend"]["r2"], 3),
+                p(&tv["shape_trend"]["p_value"]),
+            ));
+        }
+    }
+    if let Some(os) = input.ordination.done() {
+        for o in os {
+            let cca = o.test.as_ref().unwrap_or(&o.result);
+            if let Some(t) = cca.get("test").filter(|t| t.is_object()) {
+                cards.push_str(&format!(
+                    "<div class=\"card\"><h3>{}</h3><p>Composition against the constraints (CCA): {:.1}% of the inertia, pseudo-F {}, p = {}</p></div>\n",
+                    esc(&o.label),
+                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN),
+                    f(&t["pseudo_f"], 3),
+                    p(&t["p_value"])
+                ));
+            }
+        }
+    }
+    if cards.is_empty() {
+        out.push_str("<p class=\"notrun\">No comparison, trend or constrained ordination was run for this report, so there is no headline finding.</p>\n");
+    } else {
+        out.push_str(&format!("<div class=\"glance\">\n{cards}</div>\n"));
+    }
+    out.push_str("</section>\n");
+}
+
+fn store_part(out: &mut String, s: &Value) {
+    open_section(out, "store");
+    out.push_str(&format!(
+        "<p>{} sites, {} sampling events, {} taxon names, {} counts in {} import batch(es); events from {} to {}.</p>\n",
+        f(&s["sites"], 0),
+        f(&s["events"], 0),
+        f(&s["taxa"], 0),
+        f(&s["counts"], 0),
+        f(&s["batches"], 0),
+        esc(&text_of(&s["first_date"])),
+        esc(&text_of(&s["last_date"]))
+    ));
+    if let Some(ps) = s["protocols"].as_array() {
+        let rows: Vec<Vec<String>> = ps
+            .iter()
+            .map(|x| {
+                vec![
+                    esc(&text_of(&x["code"])),
+                    esc(&text_of(&x["effort_unit"])),
+                    f(&x["events"], 0),
+                    f(&x["total_effort"], 1),
+                ]
+            })
+            .collect();
+        out.push_str(&table(
+            &["Protocol", "Effort unit", "Events", "Total effort"],
+            &rows,
+            &[false, false, true, true],
+        ));
+    }
+    if let (Some(years), Some(cov)) = (s["years"].as_array(), s["coverage"].as_array()) {
+        out.push_str("<h3>Events per site and year</h3>\n<div class=\"scroll\"><table class=\"grid\"><thead><tr><th>Site</th>");
+        for y in years {
+            // Two-digit years keep the grid narrow on a phone.
+            let t = text_of(y);
+            let short = if t.len() == 4 {
+                format!("'{}", &t[2..])
+            } else {
+                t
+            };
+            out.push_str(&format!("<th>{}</th>", esc(&short)));
+        }
+        out.push_str("</tr></thead><tbody>\n");
+        for c in cov {
+            out.push_str(&format!("<tr><th>{}</th>", esc(&text_of(&c["site"]))));
+            for e in c["events"].as_array().into_iter().flatten() {
+                let n = e.as_i64().unwrap_or(0);
+                if n == 0 {
+                    out.push_str("<td class=\"zero\">·</td>");
+                } else {
+                    out.push_str(&format!("<td>{n}</td>"));
+                }
+            }
+            out.push_str("</tr>\n");
+        }
+        out.push_str("</tbody></table></div>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
+    open_section(out, "compare");
+    if !not_shown(out, part, "the comparison of abundance and composition") {
+        for c in part.done().into_iter().flatten() {
+            let v = &c.value;
+            out.push_str(&format!("<h3>{}</h3>\n", esc(&c.label)));
+            out.push_str(&format!(
+                "<p><strong>Verdict:</strong> {}</p>\n",
+                esc(&text_of(&v["verdict"]))
+            ));
+            let size = &v["size"];
+            let shape = &v["shape"];
+            let comb = &v["combined"];
+            let rows = vec![
+                vec![
+                    "Abundance (size)".into(),
+                    format!(
+                        "ratio {} (95% CI {}–{})",
+                        f(&size["ratio"], 3),
+                        f(&size["ci_low"], 3),
+                        f(&size["ci_high"], 3)
+                    ),
+                    p(&size["p_value"]),
+                ],
+                vec![
+                    format!("Composition (shape, {})", esc(&text_of(&shape["distance"]))),
+                    format!("pseudo-F {}", f(&shape["pseudo_f"], 3)),
+                    p(&shape["p_value"]),
+                ],
+                vec![
+                    "Spread of composition (dispersion)".into(),
+                    String::new(),
+                    p(&shape["dispersion_p_value"]),
+                ],
+                vec![
+                    format!(
+                        "Combined ({}, {})",
+                        esc(&text_of(&comb["distance"])),
+                        esc(&text_of(&comb["transform"]))
+                    ),
+                    format!("pseudo-F {}", f(&comb["pseudo_f"], 3)),
+                    p(&comb["p_value"]),
+                ],
+            ];
+            out.push_str(&table(
+                &["Test", "Effect", "p-value"],
+                &rows,
+                &[false, false, true],
+            ));
+            if let Some(cs) = v["comparisons"].as_array().filter(|a| !a.is_empty()) {
+                let rows: Vec<Vec<String>> = cs
+                    .iter()
+                    .map(|x| {
+                        vec![
+                            esc(&text_of(&x["group"])),
+                            esc(&text_of(&x["reference"])),
+                            yes_no(&x["abundance_differs"]).to_string(),
+                            yes_no(&x["composition_differs"]).to_string(),
+                            esc(&text_of(&x["verdict"])),
+                        ]
+                    })
+                    .collect();
+                out.push_str(&table(
+                    &[
+                        "Group",
+                        "Against",
+                        "Abundance differs",
+                        "Composition differs",
+                        "In words",
+                    ],
+                    &rows,
+                    &[],
+                ));
+            }
+        }
+    }
+    out.push_str("</section>\n");
+}
+
+fn partition_part(out: &mut String, input: &ReportInput) {
+    open_section(out, "partition");
+    // The partition of the combined dissimilarity of each comparison, then a
+    // separate partition run if there is one.
+    let mut bars = Vec::new();
+    if let Some(cs) = input.compare.done() {
+        for c in cs {
+            if let Some(b) = bar(&c.label, &c.value["combined"]["adjusted_fractions"]) {
+                bars.push(b);
+            }
+        }
+    }
+    let from_compare = !bars.is_empty();
+    if from_compare {
+        out.push_str(&figure(
+            svg::partition_svg(&PartitionPlot {
+                title: "Size and shape in the combined dissimilarity".into(),
+                subtitle: input.selection_text.clone(),
+                bars,
+            }),
+            "Partition of the combined dissimilarity into size and shape",
+            "One bar per comparison: the adjusted shares of the combined dissimilarity explained by size alone, by size and shape together, by shape alone, and left unexplained.",
+        ));
+    }
+    match &input.partition {
+        Part::Done(v) => {
+            let bars = partition_bars_from_partition(v);
+            if bars.is_empty() {
+                out.push_str("<p class=\"notrun\">The partition result holds no adjusted fractions to draw.</p>\n");
+            } else {
+                let rows: Vec<Vec<String>> = bars
+                    .iter()
+                    .map(|b| {
+                        vec![
+                            esc(&b.label),
+                            format!("{:.3}", b.size_only),
+                            format!("{:.3}", b.shared),
+                            format!("{:.3}", b.shape_only),
+                            format!("{:.3}", b.unexplained),
+                        ]
+                    })
+                    .collect();
+                out.push_str(&figure(
+                    svg::partition_svg(&PartitionPlot {
+                        title: "Size and shape, by dissimilarity".into(),
+                        subtitle: input.selection_text.clone(),
+                        bars,
+                    }),
+                    "Size and shape partition by dissimilarity",
+                    "One bar per dissimilarity and transform.",
+                ));
+                out.push_str(&table(
+                    &[
+                        "Dissimilarity",
+                        "Size only",
+                        "Shared",
+                        "Shape only",
+                        "Unexplained",
+                    ],
+                    &rows,
+                    &[false, true, true, true, true],
+                ));
+            }
+        }
+        other if !from_compare => {
+            not_shown(out, other, "the size/shape partition");
+        }
+        _ => {}
+    }
+    out.push_str("</section>\n");
+}
+
+fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
+    open_section(out, "ordination");
+    if !not_shown(out, part, "an ordination") {
+        for o in part.done().into_iter().flatten() {
+            let r = &o.result;
+            out.push_str(&format!("<h3>{}</h3>\n", esc(&o.label)));
+            let mut caption = format!(
+                "Each point is a sample; each ellipse is the 95% confidence region of a group's centre, not of its samples. Axis shares are of the {}.",
+                text_of(&r["share_of"])
+            );
+            if let Some(s) = r["negative_eigenvalue_share"].as_f64() {
+                caption.push_str(&format!(
+                    " Negative eigenvalues carry {:.1}% of the absolute eigenvalue sum; the plot shows the positive part only.",
+                    100.0 * s
+                ));
+            }
+            out.push_str(&figure(
+                svg::ordination_svg(&o.plot),
+                &o.plot.title,
+                &caption,
+            ));
+            for cca in std::iter::once(r).chain(o.test.as_ref()) {
+                let Some(t) = cca.get("test").filter(|t| t.is_object()) else {
+                    continue;
+                };
+                let names: Vec<String> = cca["constraints"]
+                    .as_array()
+                    .into_iter()
+                    .flatten()
+                    .map(|c| text_of(&c["field"]))
+                    .collect();
+                out.push_str(&format!(
+                    "<p>CCA test of composition against {}: pseudo-F = {} ({} and {} df), p = {} from {} {} permutations ({}, seed {}). The constraints carry {:.1}% of the total inertia.</p>\n",
+                    esc(&names.join(", ")),
+                    f(&t["pseudo_f"], 4),
+                    f(&t["df_constraints"], 0),
+                    f(&t["df_residual"], 0),
+                    p(&t["p_value"]),
+                    f(&t["permutations"], 0),
+                    if t["exact"].as_bool() == Some(true) { "exact" } else { "random" },
+                    esc(&text_of(&t["scheme"])),
+                    esc(&text_of(&t["seed"])),
+                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN)
+                ));
+            }
+        }
+    }
+    out.push_str("</section>\n");
+}
+
+fn trends_part(out: &mut String, input: &ReportInput) {
+    open_section(out, "trends");
+    if !not_shown(out, &input.trends, "a trend analysis") {
+        for (g, t) in input.trends.done().map(trend_groups).unwrap_or_default() {
+            if !g.is_empty() {
+                out.push_str(&format!("<h3>{}</h3>\n", esc(&g)));
+            }
+            out.push_str(&format!(
+                "<p>Diagnosis: <span class=\"tag diag\">{}</span> — size trend {} % per year (p = {}), shape trend R² {} (p = {}).</p>\n",
+                esc(&text_of(&t["diagnosis"])),
+                f(&t["size_trend"]["slope_pct_per_year"], 2),
+                p(&t["size_trend"]["p_value"]),
+                f(&t["shape_trend"]["r2"], 3),
+                p(&t["shape_trend"]["p_value"]),
+            ));
+            match trend_plot(&g, t, &input.selection_text) {
+                Some(plot) => out.push_str(&figure(
+                    svg::trend_svg(&plot),
+                    &plot.title,
+                    "Top: organisms per unit effort. Bottom: distance of each period's composition from the baseline composition.",
+                )),
+                None => out.push_str("<p class=\"notrun\">No period values to draw.</p>\n"),
+            }
+            if let Some(ps) = t["periods"].as_array() {
+                let rows: Vec<Vec<String>> = ps
+                    .iter()
+                    .map(|x| {
+                        vec![
+                            esc(&text_of(&x["period"])),
+                            f(&x["abundance"], 2),
+                            f(&x["change_pct"], 1),
+                            f(&x["shape_distance"], 3),
+                            f(&x["size_part"], 3),
+                            f(&x["shape_part"], 3),
+                        ]
+                    })
+                    .collect();
+                out.push_str(&table(
+                    &[
+                        "Period",
+                        "Abundance",
+                        "Change %",
+                        "Shape distance",
+                        "Size part",
+                        "Shape part",
+                    ],
+                    &rows,
+                    &[false, true, true, true, true, true],
+                ));
+            }
+        }
+    }
+    out.push_str("</section>\n");
+}
+
+/// Render the report.
+pub fn render(input: &ReportInput) -> String {
+    let mut out = String::new();
+    out.push_str("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n");
+    out.push_str(&format!(
+        "<title>{}</title>\n<style>{CSS}</style>\n</head>\n<body>\n<main>\n",
+        esc(&input.title)
+    ));
+    out.push_str(&format!(
+        "<header class=\"top\"><h1>{}</h1><p>{}</p><p>Made by tally {} from the store's data; every number below was computed by the commands named in “How each part was obtained”.</p></header>\n",
+        esc(&input.title),
+        esc(&input.selection_text),
+        esc(crate::VERSION)
+    ));
+    out.push_str("<nav class=\"toc\"><strong>Contents</strong><ol>");
+    for (id, t) in SECTIONS {
+        out.push_str(&format!("<li><a href=\"#{id}\">{}</a></li>", esc(t)));
+    }
+    out.push_str("</ol></nav>\n");
+    glance(&mut out, input);
+    store_part(&mut out, &input.summary);
+    compare_part(&mut out, &input.compare);
+    partition_part(&mut out, input);
+    ordination_part(&mut out, &input.ordination);
+    open_section(&mut out, "totals");
+    if !not_shown(&mut out, &input.totals, "the totals plot")
+        && let Part::Done(t) = &input.totals
+    {
+        out.push_str(&figure(
+            svg::totals_svg(t),
+            &t.title,
+            "Box plots of sample totals on a logarithmic axis.",
+        ));
+    }
+    out.push_str("</section>\n");
+    trends_part(&mut out, input);
+    open_section(&mut out, "provenance");
+    let mut rows: Vec<Vec<String>> = input
+        .parameters
+        .iter()
+        .map(|(part, how)| {
+            let ids: Vec<String> = input
+                .run_ids
+                .iter()
+                .filter(|(p, _)| p == part)
+                .map(|(_, id)| id.to_string())
+                .collect();
+            vec![
+                esc(part),
+                format!("<code>{}</code>", esc(how)),
+                ids.join(", "),
+            ]
+        })
+        .collect();
+    for (part, id) in &input.run_ids {
+        if !input.parameters.iter().any(|(p, _)| p == part) {
+            rows.push(vec![esc(part), String::new(), id.to_string()]);
+        }
+    }
+    if rows.is_empty() {
+        out.push_str("<p class=\"notrun\">No analysis parameters were recorded.</p>\n");
+    } else {
+        out.push_str(&table(&["Part", "Obtained with", "Stored run"], &rows, &[]));
+        out.push_str("<p>Show a stored run with <code>tally runs show ID</code>.</p>\n");
+    }
+    out.push_str("</section>\n");
+    open_section(&mut out, "cautions");
+    out.push_str("<ul class=\"cautions\">\n");
+    for c in standard_cautions().iter().chain(&input.cautions) {
+        out.push_str(&format!("<li>{}</li>\n", esc(c)));
+    }
+    out.push_str("</ul>\n</section>\n");
+    out.push_str("<footer>This file is self-contained: it needs no network and runs no scripts. Print it or send it as it is.</footer>\n");
+    out.push_str("</main>\n</body>\n</html>\n");
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use serde_json::json;
+
+    fn compare_json(abund: bool, comp: bool) -> Value {
+        json!({
+            "size": {"ratio": 0.61, "ci_low": 0.52, "ci_high": 0.72, "p_value": 0.0001},
+            "shape": {"distance": "hellinger", "pseudo_f": 1.1, "p_value": 0.38, "dispersion_p_value": 0.5},
+            "combined": {"distance": "bray-curtis", "transform": "sqrt", "pseudo_f": 9.0, "p_value": 0.0001,
+                         "adjusted_fractions": {"size_only": 0.2, "shared": 0.05, "shape_only": 0.02, "unexplained": 0.73}},
+            "verdict": "abundance lower <x0.61>; composition not different",
+            "comparisons": [{"group": "2016–2025", "reference": "2008–2015",
+                             "abundance_differs": abund, "composition_differs": comp}],
+            "run_id": 3
+        })
+    }
+
+    fn trend_json() -> Value {
+        let periods: Vec<Value> = (2008..2026)
+            .map(|y| json!({"period": y, "abundance": 100.0 - (y - 2008) as f64, "change_pct": -1.0,
+                            "shape_distance": 0.01 * (y - 2008) as f64, "size_part": 0.1, "shape_part": 0.2}))
+            .collect();
+        json!({"groups": [
+            {"group": "lower", "diagnosis": "abundance", "size_trend": {"slope_pct_per_year": -3.2, "p_value": 0.001},
+             "shape_trend": {"r2": 0.02, "p_value": 0.6}, "breakpoints": [2016], "periods": periods.clone()},
+            {"group": "middle", "diagnosis": "composition", "size_trend": {"slope_pct_per_year": 0.1, "p_value": 0.7},
+             "shape_trend": {"r2": 0.5, "p_value": 0.001}, "breakpoints": [{"year": 2019}], "periods": periods}
+        ]})
+    }
+
+    fn input() -> ReportInput {
+        ReportInput {
+            title: "Wren & Valley".into(),
+            selection_text: "kick samples, per minute".into(),
+            summary: json!({"sites": 2, "events": 3, "taxa": 4, "counts": 5, "batches": 1,
+                            "first_date": "2008-04-01", "last_date": "2009-05-01", "years": [2008, 2009],
+                            "protocols": [{"code": "kick", "effort_unit": "minutes", "events": 3, "total_effort": 9.0}],
+                            "coverage": [{"site": "S01", "events": [1, 0]}, {"site": "S02", "events": [1, 1]}]}),
+            compare: Part::Done(vec![
+                Labelled {
+                    label: "lower reach".into(),
+                    value: compare_json(true, false),
+                },
+                Labelled {
+                    label: "middle reach".into(),
+                    value: compare_json(false, true),
+                },
+            ]),
+            partition: Part::Done(json!({"partitions": [
+                {"distance": "bray-curtis", "transform": "none",
+                 "adjusted_fractions": {"size_only": 0.1, "shared": -0.02, "shape_only": 0.4, "unexplained": 0.52}},
+                {"distance": "hellinger", "transform": "none",
+                 "adjusted_fractions": {"size_only": 0.0, "shared": 0.0, "shape_only": 0.6, "unexplained": 0.4}}]})),
+            ordination: Part::NotRequested,
+            totals: Part::Unavailable("every total is zero".into()),
+            trends: Part::Done(trend_json()),
+            run_ids: vec![("compare lower reach".into(), 3)],
+            parameters: vec![(
+                "compare lower reach".into(),
+                "tally compare --by period".into(),
+            )],
+            cautions: vec!["Invented data.".into()],
+        }
+    }
+
+    #[test]
+    fn report_holds_every_section_and_nothing_external() {
+        let html = render(&input());
+        for (id, title) in SECTIONS {
+            assert!(html.contains(&format!("<section id=\"{id}\"")), "{id}");
+            assert!(html.contains(&esc(title)), "{title}");
+        }
+        assert!(!html.contains("http"));
+        assert!(!html.to_lowercase().contains("<script"));
+        assert!(!html.contains("@import") && !html.contains("url("));
+        // Escaping of user text.
+        assert!(html.contains("Wren &amp; Valley"));
+        assert!(html.contains("abundance lower &lt;x0.61&gt;"));
+        // Parts as given: two comparison cards, the trend diagnoses, the not-run notices.
+        assert!(html.contains("Not run: an ordination was not requested"));
+        assert!(html.contains("Not available: every total is zero"));
+        assert_eq!(
+            html.matches("<span class=\"tag diag\">abundance</span>")
+                .count(),
+            2
+        );
+        assert_eq!(
+            html.matches("<span class=\"tag diag\">composition</span>")
+                .count(),
+            2
+        );
+        // Partition: one chart from the comparisons, one from the partition run;
+        // two trend panels; every inline SVG scales by its viewBox.
+        assert_eq!(html.matches("<svg class=\"plot\" viewBox=").count(), 4);
+        assert!(!html.contains("<svg width"));
+        assert!(html.contains("Invented data."));
+        assert!(html.contains("tally compare --by period"));
+        assert!(html.contains("@media print") && html.contains("@media (max-width"));
+    }
+
+    #[test]
+    fn inline_svg_drops_size_and_namespace() {
+        let s = "<?xml version=\"1.0\"?>\n<svg width=\"760\" height=\"540\" viewBox=\"0 0 760 540\" xmlns=\"http://www.w3.org/2000/svg\">\n<rect/></svg>";
+        let i = inline_svg(s, "a \"plot\"");
+        assert!(i.starts_with("<svg class=\"plot\" viewBox=\"0 0 760 540\""));
+        assert!(i.contains("aria-label=\"a &quot;plot&quot;\""));
+        assert!(!i.contains("http") && !i.contains("width="));
+        assert!(i.ends_with("<rect/></svg>"));
+    }
+
+    #[test]
+    fn trend_plot_reads_periods_baseline_and_breakpoints() {
+        let t = trend_json();
+        let g = &t["groups"][1];
+        let plot = trend_plot("middle", g, "x").unwrap();
+        assert_eq!(plot.points.len(), 18);
+        assert_eq!(plot.breakpoints, vec![2019.0]);
+        assert_eq!(plot.baseline, (2008.0, 2008.0));
+        assert_eq!(plot.interval_label, "no interval reported");
+    }
+}

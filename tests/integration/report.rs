@@ -1,0 +1,349 @@
+//! End to end: `tally ordinate` (plots, JSON, the CCA test), `tally report`,
+//! the demo's report and stories, and rendering the report in headless Chromium.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use serde_json::Value;
+
+use crate::util::TestEnv;
+
+const SEL: [&str; 5] = ["--protocol", "kick", "--per-effort", "--unit", "site-year"];
+
+fn demo_env() -> TestEnv {
+    let env = TestEnv::new();
+    env.stdout(["demo"]);
+    env
+}
+
+fn args<'a>(command: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
+    let mut v: Vec<&str> = vec![command];
+    v.extend_from_slice(&SEL);
+    v.extend_from_slice(extra);
+    v
+}
+
+#[test]
+fn ordinate_plot_is_xml_with_groups_and_ellipses() {
+    let env = demo_env();
+    let plot = env.path("ca.svg");
+    let plot_s = plot.to_string_lossy().to_string();
+    let out = env.stdout(args(
+        "ordinate",
+        &[
+            "--method", "ca", "--by", "reach", "--plot", &plot_s, "--format", "json",
+        ],
+    ));
+    let v: Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["method"], "ca");
+    let svg = std::fs::read_to_string(&plot).unwrap();
+    let doc = roxmltree::Document::parse(&svg).expect("plot must be well-formed XML");
+    let groups: Vec<_> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("g") && n.attribute("class") == Some("group"))
+        .collect();
+    let labels: Vec<&str> = groups
+        .iter()
+        .filter_map(|g| g.attribute("data-label"))
+        .collect();
+    assert_eq!(labels, ["lower", "middle", "upper"]);
+    for g in &groups {
+        let ellipses: Vec<_> = g
+            .descendants()
+            .filter(|n| n.has_tag_name("g") && n.attribute("class") == Some("ellipse"))
+            .collect();
+        assert_eq!(ellipses.len(), 1);
+        let lines = ellipses[0]
+            .descendants()
+            .filter(|n| n.has_tag_name("polyline") || n.has_tag_name("path"))
+            .count();
+        assert_eq!(lines, 1);
+    }
+    // Sample counts per group in the JSON add up to the samples, and the
+    // point markers of the plot are one per sample (circle, polygon…) per group.
+    let n = v["samples_n"].as_u64().unwrap();
+    let per_group: u64 = v["groups"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|g| g["n"].as_u64().unwrap())
+        .sum();
+    assert_eq!(per_group, n);
+    assert_eq!(v["samples"].as_array().unwrap().len() as u64, n);
+    // Shares of the CA axes lie in (0, 1) and decrease.
+    let s: Vec<f64> = v["axes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|a| a["share"].as_f64().unwrap())
+        .collect();
+    assert!(s[0] > s[1] && s[1] > 0.0 && s[0] + s[1] < 1.0);
+    // An existing plot is not replaced without --force.
+    let o = env
+        .cmd(args(
+            "ordinate",
+            &["--method", "ca", "--by", "reach", "--plot", &plot_s],
+        ))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--force"));
+    env.stdout(args(
+        "ordinate",
+        &[
+            "--method", "ca", "--by", "reach", "--plot", &plot_s, "--force",
+        ],
+    ));
+}
+
+#[test]
+fn pcoa_states_negative_eigenvalues_and_csv_has_axes() {
+    let env = demo_env();
+    let out = env.stdout(args(
+        "ordinate",
+        &[
+            "--site-where",
+            "reach=upper",
+            "--method",
+            "pcoa",
+            "--by",
+            "habitat",
+            "--format",
+            "json",
+        ],
+    ));
+    let v: Value = serde_json::from_str(&out).unwrap();
+    // Bray-Curtis is not Euclidean: some negative eigenvalues (METHODS.md §3.2).
+    let share = v["negative_eigenvalue_share"].as_f64().unwrap();
+    assert!(share > 0.0 && share < 0.5, "{share}");
+    assert!(!v["negative_eigenvalues"].as_array().unwrap().is_empty());
+    // Euclidean distance on Hellinger-transformed data is Euclidean: no negative share.
+    let out = env.stdout(args(
+        "ordinate",
+        &[
+            "--site-where",
+            "reach=upper",
+            "--method",
+            "pcoa",
+            "--distance",
+            "euclidean",
+            "--transform",
+            "hellinger",
+            "--format",
+            "json",
+        ],
+    ));
+    let v: Value = serde_json::from_str(&out).unwrap();
+    assert!(v["negative_eigenvalue_share"].as_f64().unwrap() < 1e-9);
+    let csv = env.stdout(args(
+        "ordinate",
+        &["--method", "pcoa", "--axes", "3", "--format", "csv"],
+    ));
+    let mut lines = csv.lines();
+    assert_eq!(
+        lines.next(),
+        Some("record,label,site,year,group,axis1,axis2,axis3")
+    );
+    assert!(lines.next().unwrap().starts_with("eigenvalue,"));
+    assert!(lines.next().unwrap().starts_with("share,"));
+    assert!(lines.next().unwrap().starts_with("sample,"));
+}
+
+#[test]
+fn cca_tests_the_constraints_and_stores_a_run() {
+    let env = demo_env();
+    let run = |reach: &str| -> Value {
+        let w = format!("reach={reach}");
+        let out = env.stdout(args(
+            "ordinate",
+            &[
+                "--site-where",
+                &w,
+                "--method",
+                "cca",
+                "--constraint",
+                "period",
+                "--constraint",
+                "habitat",
+                "--periods",
+                "2008..2015,2016..2025",
+                "--permutations",
+                "199",
+                "--seed",
+                "5",
+                "--format",
+                "json",
+            ],
+        ));
+        serde_json::from_str(&out).unwrap()
+    };
+    let middle = run("middle");
+    let t = &middle["test"];
+    assert_eq!(t["permutations"], 199);
+    assert_eq!(t["seed"], 5);
+    assert_eq!(t["df_constraints"], 2);
+    // demo-data/README.md: the middle reach changes composition from 2019 (and
+    // habitats differ by construction), so 0 of 199 permutations should reach it.
+    assert!(t["p_value"].as_f64().unwrap() <= 0.01);
+    let share = middle["constrained_share"].as_f64().unwrap();
+    let sum = middle["constrained_inertia"].as_f64().unwrap()
+        + middle["unconstrained_inertia"].as_f64().unwrap();
+    assert!((sum - middle["total"].as_f64().unwrap()).abs() < 1e-9);
+    assert!(share > 0.0 && share < 1.0);
+    let runs = env.stdout(["runs", "list", "--format", "json"]);
+    assert!(runs.contains("\"ordinate\""), "{runs}");
+}
+
+fn sections_present(html: &str) {
+    for id in [
+        "glance",
+        "store",
+        "compare",
+        "partition",
+        "ordination",
+        "totals",
+        "trends",
+        "provenance",
+        "cautions",
+    ] {
+        assert!(
+            html.contains(&format!("<section id=\"{id}\"")),
+            "section {id} missing"
+        );
+    }
+    assert!(
+        !html.contains("http"),
+        "the report must not hold a web address"
+    );
+    assert!(!html.to_lowercase().contains("<script"));
+    assert!(html.contains("<svg class=\"plot\""));
+}
+
+#[test]
+fn report_is_one_self_contained_file() {
+    let env = demo_env();
+    let out = env.path("r.html");
+    let out_s = out.to_string_lossy().to_string();
+    env.stdout(args("report", &["--by", "reach", "--out", &out_s]));
+    let html = std::fs::read_to_string(&out).unwrap();
+    sections_present(&html);
+    assert!(html.contains("Correspondence analysis by reach"));
+    // The trend part was not asked for with --by; the comparison was.
+    assert!(html.contains("Not run: a trend analysis was not requested"));
+    let o = env
+        .cmd(args("report", &["--by", "reach", "--out", &out_s]))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    // Neither --by nor --split-by: a usage error.
+    let o = env
+        .cmd(args("report", &["--out", "x.html"]))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+}
+
+#[test]
+fn demo_recovers_the_stories_it_can_test_and_writes_its_report() {
+    let env = demo_env();
+    let report = env.dir.path().join("tally-demo-report.html");
+    let html = std::fs::read_to_string(&report).unwrap();
+    sections_present(&html);
+    let mut store = tally::store::Store::open(&env.db).unwrap();
+    let a = tally::cli::demo::analyse(&mut store).unwrap();
+    let by: std::collections::HashMap<&str, &tally::cli::demo::ReachFinding> =
+        a.reaches.iter().map(|r| (r.reach.as_str(), r)).collect();
+    // demo-data/README.md stories: lower loses ~40 % per minute from 2016 with
+    // composition unchanged; middle changes composition at constant totals;
+    // upper is stable.
+    assert!(
+        by["lower"].totals_ratio < 0.75,
+        "{}",
+        by["lower"].totals_ratio
+    );
+    assert!(by["lower"].composition_p > 0.05);
+    assert!((0.85..1.2).contains(&by["middle"].totals_ratio));
+    assert!(by["middle"].composition_p < 0.05);
+    assert!((0.85..1.15).contains(&by["upper"].totals_ratio));
+    assert!(by["upper"].composition_p > 0.05);
+}
+
+fn chromium() -> Option<PathBuf> {
+    let path = std::env::var_os("PATH")?;
+    for dir in std::env::split_paths(&path) {
+        for name in ["chromium", "chromium-browser"] {
+            let p = dir.join(name);
+            if p.is_file() {
+                return Some(p);
+            }
+        }
+    }
+    None
+}
+
+/// Decode a PNG and return (width, height, grey levels).
+fn grey_pixels(png_path: &Path) -> (u32, u32, Vec<f64>) {
+    let decoder = png::Decoder::new(std::fs::File::open(png_path).unwrap());
+    let mut reader = decoder.read_info().unwrap();
+    let mut buf = vec![0; reader.output_buffer_size()];
+    let info = reader.next_frame(&mut buf).unwrap();
+    let channels = info.color_type.samples();
+    assert_eq!(info.bit_depth, png::BitDepth::Eight);
+    let px = buf[..info.buffer_size()]
+        .chunks(channels)
+        .map(|c| {
+            c.iter()
+                .take(3.min(channels))
+                .map(|&v| f64::from(v))
+                .sum::<f64>()
+                / 3.0_f64.min(channels as f64)
+        })
+        .collect();
+    (info.width, info.height, px)
+}
+
+#[test]
+fn report_renders_in_headless_chromium() {
+    let Some(browser) = chromium() else {
+        println!("notice: chromium is not installed; the rendering test is skipped");
+        return;
+    };
+    let env = demo_env();
+    let report = env.dir.path().join("tally-demo-report.html");
+    let shot = env.path("report.png");
+    let profile = tempfile::tempdir().unwrap();
+    let status = Command::new(browser)
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-quic",
+            "--no-first-run",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+        ])
+        .arg(format!("--user-data-dir={}", profile.path().display()))
+        .arg(format!("--screenshot={}", shot.display()))
+        .arg("--window-size=1200,2000")
+        .arg(format!("file://{}", report.display()))
+        .output()
+        .unwrap();
+    assert!(
+        shot.exists(),
+        "no screenshot: {}",
+        String::from_utf8_lossy(&status.stderr)
+    );
+    let (w, h, px) = grey_pixels(&shot);
+    assert_eq!((w, h), (1200, 2000));
+    let mean = px.iter().sum::<f64>() / px.len() as f64;
+    let var = px.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / px.len() as f64;
+    // A blank page is one colour: variance 0. A rendered report has text and
+    // rules on white: mostly light, with a clear share of dark pixels.
+    assert!(var > 100.0, "grey variance {var}");
+    let dark = px.iter().filter(|v| **v < 128.0).count() as f64 / px.len() as f64;
+    assert!(
+        dark > 0.005 && mean > 150.0,
+        "dark share {dark}, mean {mean}"
+    );
+}
