@@ -650,7 +650,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
             .collect();
         let reference: Vec<usize> = (0..n)
             .filter(|&i| {
-                in_baseline(i) && data.season.map(|s| s[i]) == season && !(data.year[i] == year)
+                in_baseline(i) && data.season.map(|s| s[i]) == season && data.year[i] != year
             })
             .collect();
         let mut sites: Vec<usize> = members.iter().map(|&i| data.site[i]).collect();
