@@ -1432,7 +1432,6 @@ mod tests {
             let right = (0..20)
                 .filter(|&s| run_sim(100 + s, size, shape, None, None).diagnosis == want)
                 .count();
-            eprintln!("{want:?}: right in {right} of 20 seeds");
             assert!(right >= q.max(16), "{want:?}: right in {right} of 20 seeds");
         }
         // A stated trend is estimated: −5 % per year lies inside most intervals.
@@ -1443,7 +1442,6 @@ mod tests {
                 r.size_trend.ci_low <= want && want <= r.size_trend.ci_high
             })
             .count();
-        eprintln!("interval covered the true slope in {covered} of 20 seeds");
         assert!(
             covered >= 15,
             "interval covered the true slope in {covered} of 20 seeds"
@@ -1484,9 +1482,6 @@ mod tests {
         let shape_hi = runs.iter().filter(|r| r.shape_trend.p_value > 0.95).count();
         assert!((lo..=hi).contains(&size_hi), "size p > 0.95: {size_hi}");
         assert!((lo..=hi).contains(&shape_hi), "shape p > 0.95: {shape_hi}");
-        eprintln!(
-            "null: size {size} shape {shape} wrong {wrong} of 200; upper tails {size_hi} {shape_hi}"
-        );
     }
 
     #[test]
@@ -1507,7 +1502,6 @@ mod tests {
             }
             assert_eq!(b.size.candidates, 12 - 3);
         }
-        eprintln!("step: located {located}, right {right} of 20");
         assert!(located >= 16, "located in {located} of 20");
         assert!(right >= 16, "right in {right} of 20");
     }
