@@ -229,3 +229,15 @@ impl Progress {
         }
     }
 }
+
+/// Arguments of a command built from a command line, as the user would type it
+/// after the command name (the demo and the report run commands this way, so
+/// what they do is exactly what the printed command lines do).
+///
+/// # Errors
+/// The words do not parse as arguments of `A`.
+pub fn args_from<A: clap::Args + clap::FromArgMatches>(words: &[&str]) -> anyhow::Result<A> {
+    let cmd = A::augment_args(clap::Command::new("tally"));
+    let m = cmd.try_get_matches_from(std::iter::once("tally").chain(words.iter().copied()))?;
+    Ok(A::from_arg_matches(&m)?)
+}

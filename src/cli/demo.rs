@@ -205,9 +205,15 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     } else {
         Part::Done(compare)
     };
-    // HOOK(trend): report::trend_entry(trend::compute(store, &trend_args)?) with
-    // `--protocol kick --per-effort --every year --split-by reach --breakpoint auto`.
-    let trends: Part<serde_json::Value> = Part::Unavailable(report::not_in_build("trend"));
+    let seed = DEMO_SEED.to_string();
+    let perms = DEMO_PERMUTATIONS.to_string();
+    let trend_words = [
+        "--protocol", "kick", "--per-effort", "--every", "year", "--split-by", "reach",
+        "--breakpoint", "auto", "--permutations", &perms, "--seed", &seed,
+    ];
+    let trend_args: super::trend::Args = super::common::args_from(&trend_words)?;
+    let trends = report::trend_entry(super::trend::compute(store, &trend_args)?);
+    parameters.push(("trends".to_string(), format!("tally trend {}", trend_words.join(" "))));
     let totals = Part::Done(TotalsPlot {
         title: "Organisms per minute, by reach and period".into(),
         subtitle: "kick samples pooled per site and year, per minute of kicking".into(),

@@ -238,16 +238,21 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
     } else {
         Part::NotRequested
     };
-    // HOOK(trend): with --split-by, trend_entry(trend::compute(store, &trend_args)?).
-    let trends = if args.split_by.is_some() {
-        Part::Unavailable(not_in_build("trend"))
-    } else {
-        Part::NotRequested
+    let trends = match &args.split_by {
+        Some(split) => {
+            let mut t: super::trend::Args = super::common::args_from(&[
+                "--split-by", split, "--every", "year", "--breakpoint", "auto",
+            ])?;
+            t.selection = args.selection.clone();
+            t.run = args.run.clone();
+            trend_entry(super::trend::compute(store, &t).context("trends for the report")?)
+        }
+        None => Part::NotRequested,
     };
     if args.split_by.is_some() {
         parameters.push((
             "trends".to_string(),
-            format!("tally trend {flags} --split-by {field}"),
+            format!("tally trend {flags} --split-by {field} --every year --breakpoint auto"),
         ));
     }
     Ok(ReportInput {
