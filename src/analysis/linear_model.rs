@@ -278,9 +278,10 @@ impl Basis {
 
     /// The basis of `[self, X]`: the columns of `self` followed by new orthonormal
     /// columns spanning what `X` adds. Rank detection: columns of X are scaled to unit
-    /// length, projected off the current basis (twice, for stability), and a direction
-    /// of the remainder counts when its singular value exceeds
-    /// `prec::RANK_TOL × s_max(X scaled)` (METHODS.md §5.1, §12.2).
+    /// length and projected off the current basis (twice, for stability); a
+    /// column-pivoted Gram-Schmidt of the remainders then accepts a direction while
+    /// its remaining norm exceeds `prec::RANK_TOL × s_max(X scaled)` (METHODS.md
+    /// §5.1, §12.2).
     ///
     /// # Errors
     /// [`AnalysisError::DimensionMismatch`] when X has another number of rows;
@@ -305,19 +306,56 @@ impl Basis {
         }
         let xs = DMatrix::from_columns(&cols);
         let s_max = xs.singular_values().max();
-        let mut r = xs;
-        for _ in 0..2 {
-            let coef = self.q.transpose() * &r;
-            r -= &self.q * coef;
-        }
-        let svd = nalgebra::linalg::SVD::try_new(r, true, false, f64::EPSILON, 0)
-            .ok_or_else(|| AnalysisError::Numerical("svd did not converge".into()))?;
-        let u = svd.u.as_ref().expect("invariant: U was requested");
+        // Remainders of the scaled columns off the current basis; then a
+        // column-pivoted Gram-Schmidt (largest remaining norm first, every
+        // projection done twice): a direction counts while its remaining norm
+        // exceeds RANK_TOL × s_max. (An SVD of the remainder was used before; on
+        // rank-deficient remainders its left singular vectors were not always
+        // orthogonal to the current basis.)
+        let mut rest: Vec<nalgebra::DVector<f64>> = cols
+            .into_iter()
+            .map(|mut c| {
+                for _ in 0..2 {
+                    let coef = self.q.transpose() * &c;
+                    c -= &self.q * coef;
+                }
+                c
+            })
+            .collect();
         let mut new_cols: Vec<_> = self.q.column_iter().map(|c| c.into_owned()).collect();
-        for (j, &s) in svd.singular_values.iter().enumerate() {
-            if s > prec::RANK_TOL * s_max {
-                new_cols.push(u.column(j).into_owned());
+        let tol = prec::RANK_TOL * s_max;
+        while !rest.is_empty() {
+            let (k, norm) =
+                rest.iter()
+                    .enumerate()
+                    .map(|(k, c)| (k, c.norm()))
+                    .fold(
+                        (0, -1.0),
+                        |best, cur| if cur.1 > best.1 { cur } else { best },
+                    );
+            if !(norm > tol) {
+                break;
             }
+            let mut u = rest.swap_remove(k);
+            // Re-orthogonalise against everything accepted so far, then normalise.
+            for _ in 0..2 {
+                for q in &new_cols {
+                    let d = q.dot(&u);
+                    u -= q * d;
+                }
+            }
+            let un = u.norm();
+            if !(un > tol) {
+                continue;
+            }
+            u /= un;
+            for c in rest.iter_mut() {
+                for _ in 0..2 {
+                    let d = u.dot(c);
+                    *c -= &u * d;
+                }
+            }
+            new_cols.push(u);
         }
         Ok(Basis {
             q: DMatrix::from_columns(&new_cols),
@@ -629,5 +667,40 @@ mod tests {
         assert!((sum + t.residual.ss - t.total.ss).abs() < 1e-10);
         assert_eq!(t.residual.df, 4);
         assert!((t.total.ss - g.trace()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn extended_basis_stays_orthonormal_on_rank_deficient_blocks() {
+        // Row profiles sum to 1 (the intercept), so [1, ln t, profiles] is rank
+        // deficient by one; the basis must still be orthonormal, and its projection
+        // must equal the least-squares fit of statsmodels (partition_ols.json).
+        let fx: serde_json::Value =
+            serde_json::from_str(include_str!("../../tests/reference/partition_ols.json")).unwrap();
+        for c in fx["cases"].as_array().unwrap() {
+            let rows: Vec<Vec<f64>> = c["counts"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|r| {
+                    r.as_array()
+                        .unwrap()
+                        .iter()
+                        .map(|v| v.as_f64().unwrap())
+                        .collect()
+                })
+                .collect();
+            let (n, p) = (rows.len(), rows[0].len());
+            let t: Vec<f64> = rows.iter().map(|r| r.iter().sum()).collect();
+            let s = DMatrix::from_fn(n, 1, |i, _| t[i].ln());
+            let prof = DMatrix::from_fn(n, p, |i, j| rows[i][j] / t[i]);
+            let b = Basis::intercept(n)
+                .extended(&s)
+                .unwrap()
+                .extended(&prof)
+                .unwrap();
+            assert_eq!(b.rank(), p + 1);
+            let qtq = b.q().transpose() * b.q();
+            assert!((qtq - DMatrix::<f64>::identity(p + 1, p + 1)).norm() < 1e-12);
+        }
     }
 }
