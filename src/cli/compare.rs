@@ -724,6 +724,24 @@ pub fn compute(store: &Store, args: &Args) -> anyhow::Result<Value> {
     Ok(v)
 }
 
+/// Compute and store the run as `tally compare` does (unless `--no-store`),
+/// without printing the table; returns the result JSON and the run id (for
+/// the demo and the HTML report).
+///
+/// # Errors
+/// As [`compute_on`]; selection and storage errors.
+pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Value, Option<i64>)> {
+    let sel = args.selection.resolve(store)?;
+    let m = load_matrix(store, &sel)?;
+    let params = Params::of(args);
+    let seed = args.run.seed();
+    let (result, values) = compute_on(&m, sel.per_effort, &params, seed)?;
+    let mut parameters = serde_json::to_value(&params)?;
+    parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
+    let id = store_run(store, &args.run, KIND, &sel, &m, parameters, Some(seed), &result, values)?;
+    Ok((result, id))
+}
+
 /// Run `tally compare`.
 ///
 /// # Errors

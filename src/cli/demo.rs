@@ -101,6 +101,12 @@ pub struct ReachFinding {
     pub composition_p: f64,
     /// Stored run of that test.
     pub run_id: Option<i64>,
+    /// The verdict of `tally compare` (periods 2008–2015 against 2016–2025).
+    pub verdict: String,
+    /// Stored run of that comparison.
+    pub compare_run_id: Option<i64>,
+    /// The diagnosis of `tally trend` for the reach (abundance, composition, both, none).
+    pub diagnosis: String,
 }
 
 /// The demo's analyses: the report input and the findings per reach.
@@ -194,12 +200,50 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             totals_ratio: means[1] / means[0],
             composition_p: test.permutation.p_value,
             run_id,
+            verdict: String::new(),
+            compare_run_id: None,
+            diagnosis: String::new(),
         });
-        // HOOK(compare): compare.push(report::compare_entry(&label, compare::compute(store, &compare_args)?))
-        // with `--protocol kick --per-effort --unit site-year --site-where reach=<reach>
-        //  --periods 2008..2015,2016..2025 --by period`.
-        let _ = &mut compare;
+        let seed = DEMO_SEED.to_string();
+        let perms = DEMO_PERMUTATIONS.to_string();
+        let where_reach = format!("reach={reach}");
+        let words = [
+            "--protocol", "kick", "--per-effort", "--unit", "site-year", "--site-where",
+            &where_reach, "--periods", "2008..2015,2016..2025", "--by", "period",
+            "--permutations", &perms, "--seed", &seed,
+        ];
+        let compare_args: super::compare::Args = super::common::args_from(&words)?;
+        let (result, id) = super::compare::compute_and_store(store, &compare_args)?;
+        if let Some(id) = id {
+            run_ids.push((format!("{label}: size and shape comparison"), id));
+        }
+        parameters.push((
+            format!("{label}: size and shape comparison"),
+            format!("tally compare {}", words.join(" ")),
+        ));
+        if let Some(last) = reaches.last_mut() {
+            last.verdict = result["verdict"].as_str().unwrap_or_default().to_string();
+            last.compare_run_id = id;
+        }
+        compare.push(report::compare_entry(&label, result));
     }
+    let seed = DEMO_SEED.to_string();
+    let perms = DEMO_PERMUTATIONS.to_string();
+    let partition_words = [
+        "--protocol", "kick", "--per-effort", "--unit", "site-year", "--compare-distances",
+        "--permutations", &perms, "--seed", &seed,
+    ];
+    let partition_args: super::partition::Args = super::common::args_from(&partition_words)?;
+    let (partition_result, partition_id) =
+        super::partition::compute_and_store(store, &partition_args)?;
+    if let Some(id) = partition_id {
+        run_ids.push(("size/shape partition of five dissimilarities".to_string(), id));
+    }
+    parameters.push((
+        "size/shape partition".to_string(),
+        format!("tally partition {}", partition_words.join(" ")),
+    ));
+    let partition = report::partition_entry(partition_result);
     let compare = if compare.is_empty() {
         Part::Unavailable(report::not_in_build("compare"))
     } else {
@@ -212,7 +256,16 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
         "--breakpoint", "auto", "--permutations", &perms, "--seed", &seed,
     ];
     let trend_args: super::trend::Args = super::common::args_from(&trend_words)?;
-    let trends = report::trend_entry(super::trend::compute(store, &trend_args)?);
+    let trend_json = super::trend::compute(store, &trend_args)?;
+    for r in reaches.iter_mut() {
+        let group = trend_json["groups"]
+            .as_array()
+            .and_then(|g| g.iter().find(|x| x["group"] == r.reach.as_str()));
+        if let Some(g) = group {
+            r.diagnosis = g["diagnosis"].as_str().unwrap_or_default().to_string();
+        }
+    }
+    let trends = report::trend_entry(trend_json);
     parameters.push(("trends".to_string(), format!("tally trend {}", trend_words.join(" "))));
     let totals = Part::Done(TotalsPlot {
         title: "Organisms per minute, by reach and period".into(),
@@ -226,7 +279,7 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             selection_text: "Kick samples per minute of kicking, pooled per site and year, 2008–2025; before 2016 and from 2016 on".into(),
             summary,
             compare,
-            partition: Part::NotRequested,
+            partition,
             ordination: Part::Done(parts),
             totals,
             trends,
@@ -267,9 +320,19 @@ pub fn run(_args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::
             r.reach, r.totals_ratio, r.composition_p, DEMO_PERMUTATIONS, DEMO_SEED
         )?;
     }
-    if a.report.compare.done().is_none() {
-        writeln!(out, "  (the size/shape comparison and the trends need `tally compare` and `tally trend`, not in this build)")?;
+    writeln!(out)?;
+    writeln!(out, "Size and shape, 2008–2015 against 2016–2025 (tally compare):")?;
+    for r in &a.reaches {
+        let run = r.compare_run_id.map(|id| format!(" [run {id}]")).unwrap_or_default();
+        writeln!(out, "  {} reach: {}{run}", r.reach, r.verdict)?;
     }
+    writeln!(out)?;
+    writeln!(out, "Across the years (tally trend, with a breakpoint search):")?;
+    for r in &a.reaches {
+        writeln!(out, "  {} reach: {}", r.reach, r.diagnosis)?;
+    }
+    writeln!(out)?;
+    writeln!(out, "These are permutation tests on invented data; read docs/methods.md before drawing conclusions from real data.")?;
     writeln!(out, "report: {}", rp.display())?;
     writeln!(out, "store:  {}", path.display())?;
     writeln!(out, "next:   docs/demo.md walks through the same steps command by command")?;
