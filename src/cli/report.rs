@@ -1,11 +1,11 @@
 //! `tally report`: gather the summary and the analyses of a selection and
 //! write one self-contained HTML file (`report::html`).
 //!
-//! The store summary, the ordination and the totals are computed here now.
-//! The comparison (`tally compare`), the partition (`tally partition`) and the
-//! trends (`tally trend`) enter through the hook functions marked `HOOK` below,
-//! which take those commands' JSON; until a command is wired in, its part is
-//! shown as not available (with the reason), never as a result.
+//! With `--by`: the store summary, a correspondence analysis, the totals, the
+//! size and shape comparison (`tally compare`) and the five-way partition
+//! (`tally partition --compare-distances`); with `--split-by`: the trends
+//! (`tally trend`). Each part is computed by the same code as its command, from
+//! the same arguments, and the report lists those command lines and run ids.
 
 use std::io::Write;
 use std::path::PathBuf;
@@ -140,12 +140,9 @@ pub fn totals_part(o: &Ordination, title: &str) -> Part<TotalsPlot> {
     })
 }
 
-// ---------------------------------------------------------------- HOOKS
-// Each hook turns a command's JSON result into its report part. The
-// integrator calls them with `compare::compute`, `partition::compute` and
-// `trend::compute` once those commands are part of the build.
+// Each of these turns a command's JSON result into its report part.
 
-/// HOOK(compare): one `tally compare` JSON result, labelled (e.g. `lower reach`).
+/// One `tally compare` JSON result, labelled (e.g. `lower reach`).
 pub fn compare_entry(label: &str, result: Value) -> Labelled {
     Labelled {
         label: label.to_string(),
@@ -153,21 +150,14 @@ pub fn compare_entry(label: &str, result: Value) -> Labelled {
     }
 }
 
-/// HOOK(partition): a `tally partition` JSON result (single or `--compare-distances`).
+/// A `tally partition` JSON result (single or `--compare-distances`).
 pub fn partition_entry(result: Value) -> Part<Value> {
     Part::Done(result)
 }
 
-/// HOOK(trend): a `tally trend` JSON result (single or with `--split-by` groups).
+/// A `tally trend` JSON result (single or with `--split-by` groups).
 pub fn trend_entry(result: Value) -> Part<Value> {
     Part::Done(result)
-}
-
-/// What a part says while its command is not part of this build.
-pub fn not_in_build(command: &str) -> String {
-    format!(
-        "`tally {command}` is not part of this build of tally, so this part could not be computed."
-    )
 }
 
 /// The run id a command put in its JSON (`run_id`), if any.
@@ -226,17 +216,40 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
         None => Part::Unavailable("the correspondence analysis has fewer than two axes".into()),
     };
     let totals = totals_part(&o, &format!("Sample totals by {field}"));
-    // HOOK(compare): with --by, Part::Done(vec![compare_entry(label, compare::compute(store, &compare_args)?)]).
-    let compare = if args.by.is_some() {
-        Part::Unavailable(not_in_build("compare"))
-    } else {
-        Part::NotRequested
-    };
-    // HOOK(partition): partition_entry(partition::compute(store, &partition_args)?).
-    let partition = if args.by.is_some() {
-        Part::Unavailable(not_in_build("partition"))
-    } else {
-        Part::NotRequested
+    let mut run_ids = Vec::new();
+    let (compare, partition) = match &args.by {
+        Some(by) => {
+            let mut c: super::compare::Args = super::common::args_from(&["--by", by])?;
+            c.selection = args.selection.clone();
+            c.run = args.run.clone();
+            c.periods = args.periods.as_ref().map(|p| super::compare::Periods(p.0.clone()));
+            let (cr, cid) = super::compare::compute_and_store(store, &c)
+                .context("size and shape comparison for the report")?;
+            let mut p: super::partition::Args = super::common::args_from(&["--compare-distances"])?;
+            p.selection = args.selection.clone();
+            p.run = args.run.clone();
+            let (pr, pid) = super::partition::compute_and_store(store, &p)
+                .context("size/shape partition for the report")?;
+            if let Some(id) = cid {
+                run_ids.push((format!("comparison by {by}"), id));
+            }
+            if let Some(id) = pid {
+                run_ids.push(("size/shape partition".to_string(), id));
+            }
+            parameters.push((
+                "comparison".to_string(),
+                format!("tally compare {flags} --by {by}{periods}"),
+            ));
+            parameters.push((
+                "partition".to_string(),
+                format!("tally partition {flags} --compare-distances"),
+            ));
+            (
+                Part::Done(vec![compare_entry(&format!("by {by}"), cr)]),
+                partition_entry(pr),
+            )
+        }
+        None => (Part::NotRequested, Part::NotRequested),
     };
     let trends = match &args.split_by {
         Some(split) => {
@@ -264,7 +277,7 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
         ordination,
         totals,
         trends,
-        run_ids: Vec::new(),
+        run_ids,
         parameters,
         cautions: Vec::new(),
     })
