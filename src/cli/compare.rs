@@ -21,7 +21,7 @@ use serde_json::{Value, json};
 use super::FormatArg;
 use super::common::{DistanceArg, RunArgs, TransformArg, store_run};
 use super::note;
-use super::partition::{CAUTION, scheme_of};
+use super::partition::{CAUTION, StoredValues, scheme_of};
 use super::selection::{SelectionArgs, load_matrix};
 use crate::analysis::dispersion::{DispersionOptions, DispersionResult, Permute, dispersion};
 use crate::analysis::linear_model::{Grouping, SsType};
@@ -416,7 +416,7 @@ pub fn compute_on(
     per_effort: bool,
     p: &Params,
     seed: u64,
-) -> anyhow::Result<(Value, Vec<(String, Option<f64>)>)> {
+) -> anyhow::Result<(Value, StoredValues)> {
     if !(p.alpha > 0.0 && p.alpha < 1.0) {
         bail!("--alpha must be between 0 and 1, got {}", p.alpha);
     }

@@ -39,6 +39,9 @@ pub const COMPARED: [(Distance, Transform); 5] = [
     (Distance::Hellinger, Transform::None),
 ];
 
+/// Headline numbers of a run (name, value), as stored in `run_value`.
+pub type StoredValues = Vec<(String, Option<f64>)>;
+
 /// The caution printed beside every size/shape result (METHODS.md §6.3).
 pub const CAUTION: &str = "Caution: where total abundance changes, the spread of counts usually \
 changes with it (a mean-variance relationship), and a distance-based analysis can then read a \
@@ -229,7 +232,7 @@ pub fn compute_on(
     m: &CountMatrix,
     params: &Params,
     seed: u64,
-) -> anyhow::Result<(Value, Vec<(String, Option<f64>)>, Vec<PartitionResult>)> {
+) -> anyhow::Result<(Value, StoredValues, Vec<PartitionResult>)> {
     let scheme = scheme_of(m, params.strata.as_deref())?;
     let opts = PartitionOptions {
         size: params.size.into(),

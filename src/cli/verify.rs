@@ -138,7 +138,7 @@ pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let seed = r
         .seed
         .ok_or_else(|| anyhow!("run {id} has no stored seed"))?;
-    let (result, values): (Value, Option<Vec<(String, Option<f64>)>>) = match r.kind.as_str() {
+    let (result, values): (Value, Option<partition::StoredValues>) = match r.kind.as_str() {
         partition::KIND => {
             let p: partition::Params = serde_json::from_value(r.parameters.clone())
                 .context("reading the stored partition parameters")?;
