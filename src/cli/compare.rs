@@ -940,3 +940,30 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     }
     Ok(())
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn p_values_keep_two_significant_digits_and_never_round_to_zero() {
+        assert_eq!(fmt_p(0.0003), "0.0003");
+        assert_eq!(fmt_p(0.41), "0.41");
+        assert_eq!(fmt_p(0.002), "0.002");
+        assert_eq!(fmt_p(0.0123), "0.012");
+        assert_eq!(fmt_p(0.998), "0.998");
+        assert_eq!(fmt_p(1.0), "1");
+        assert_eq!(fmt_p(1.0 / 100_000.0), "0.00001");
+    }
+
+    #[test]
+    fn periods_parse_as_year_ranges() {
+        assert_eq!(
+            parse_periods("2008..2015,2016..2025").unwrap(),
+            Periods(vec![(2008, 2015), (2016, 2025)])
+        );
+        assert_eq!(parse_periods("2010").unwrap(), Periods(vec![(2010, 2010)]));
+        assert!(parse_periods("2015..2008").is_err());
+        assert!(parse_periods("early,late").is_err());
+    }
+}

@@ -192,6 +192,7 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
             shape_rej += 1;
         }
     }
+    eprintln!("pure shape: abundance {size_rej}/{reps}, composition {shape_rej}/{reps}");
     assert!(
         size_rej <= 15,
         "pure shape: abundance said to differ in {size_rej}/{reps}"
