@@ -254,9 +254,20 @@ pub fn compute_on(
             .compute_after(t, &m.values)
             .with_context(|| format!("computing {} after {}", d.name(), t.name()))?;
         let r = partition(&m.values, &dm, &opts, Some(&cb)).map_err(|e| match e {
-            crate::analysis::AnalysisError::Saturated { rank, n } => anyhow::anyhow!(
-                "size and shape together would use {rank} model columns for {n} samples, leaving no \
-                 residual variation to test against: select more samples, or fewer shape axes with --shape-axes"
+            crate::analysis::AnalysisError::Saturated { rank, n } if rank >= n || params.shape_axes.is_some() => {
+                anyhow::anyhow!(
+                    "model saturated: size and {} shape dimension(s) need {rank} model columns (intercept \
+                     included) for {n} samples, leaving no residual variation to test against; select more \
+                     samples or fewer shape axes (--shape-axes K with K <= {})",
+                    rank.saturating_sub(2),
+                    n.saturating_sub(3)
+                )
+            }
+            crate::analysis::AnalysisError::Saturated { n, .. } => anyhow::anyhow!(
+                "with {n} samples, size and even one shape axis would leave fewer than 10 residual degrees \
+                 of freedom (adjusted fractions would be unstable); select more samples, or accept fewer \
+                 residual degrees of freedom with --shape-axes K (K <= {})",
+                n.saturating_sub(3)
             ),
             other => anyhow::Error::new(other),
         })?;
