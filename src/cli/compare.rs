@@ -117,9 +117,6 @@ fn parse_rarefy(s: &str) -> Result<String, String> {
 /// Arguments of `tally compare`.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// The field whose values are the groups (e.g. period, reach, habitat, site).
     #[arg(long, value_name = "FIELD")]
     pub by: String,
@@ -155,6 +152,10 @@ pub struct Args {
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
+    /// Which events, and what one row is (last, so that its help heading does
+    /// not carry over to the analysis flags).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// Every analysis parameter of a compare run (stored with the run; enough to replay it).

@@ -75,9 +75,6 @@ impl From<SizeArg> for SizeCoding {
 /// Arguments of `tally partition`.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// Dissimilarity and transform.
     #[command(flatten)]
     pub distance: DistanceArgs,
@@ -99,6 +96,10 @@ pub struct Args {
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
+    /// Which events, and what one row is (last, so that its help heading does
+    /// not carry over to the analysis flags).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// Every analysis parameter of a partition run (stored with the run; enough to replay it).
