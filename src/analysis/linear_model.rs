@@ -333,7 +333,7 @@ impl Basis {
                         (0, -1.0),
                         |best, cur| if cur.1 > best.1 { cur } else { best },
                     );
-            if !(norm > tol) {
+            if norm.is_nan() || norm <= tol {
                 break;
             }
             let mut u = rest.swap_remove(k);
@@ -345,7 +345,7 @@ impl Basis {
                 }
             }
             let un = u.norm();
-            if !(un > tol) {
+            if un.is_nan() || un <= tol {
                 continue;
             }
             u /= un;

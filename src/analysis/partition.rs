@@ -376,9 +376,14 @@ pub fn partition(
     let fitted = fit(&g, &s, &p)?;
     let mut notes = Vec::new();
     if shape.kind == "ca-axes" {
+        let why = match opts.shape_axes {
+            ShapeAxes::Auto { .. } => {
+                "so that size and shape leave enough residual degrees of freedom"
+            }
+            ShapeAxes::Fixed(_) => "as asked",
+        };
         notes.push(format!(
-            "shape represented by the {} leading correspondence-analysis axes ({:.1}% of profile inertia), \
-             so that size and shape leave enough residual degrees of freedom",
+            "shape represented by the {} leading correspondence-analysis axes ({:.1}% of profile inertia), {why}",
             shape.axes,
             100.0 * shape.inertia_share
         ));

@@ -21,7 +21,7 @@ use serde_json::{Value, json};
 use super::FormatArg;
 use super::common::{DistanceArg, RunArgs, TransformArg, store_run};
 use super::note;
-use super::partition::{CAUTION, scheme_of};
+use super::partition::{CAUTION, StoredValues, scheme_of};
 use super::selection::{SelectionArgs, load_matrix};
 use crate::analysis::dispersion::{DispersionOptions, DispersionResult, Permute, dispersion};
 use crate::analysis::linear_model::{Grouping, SsType};
@@ -117,9 +117,6 @@ fn parse_rarefy(s: &str) -> Result<String, String> {
 /// Arguments of `tally compare`.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// The field whose values are the groups (e.g. period, reach, habitat, site).
     #[arg(long, value_name = "FIELD")]
     pub by: String,
@@ -155,6 +152,10 @@ pub struct Args {
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
+    /// Which events, and what one row is (last, so that its help heading does
+    /// not carry over to the analysis flags).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// Every analysis parameter of a compare run (stored with the run; enough to replay it).
@@ -416,7 +417,7 @@ pub fn compute_on(
     per_effort: bool,
     p: &Params,
     seed: u64,
-) -> anyhow::Result<(Value, Vec<(String, Option<f64>)>)> {
+) -> anyhow::Result<(Value, StoredValues)> {
     if !(p.alpha > 0.0 && p.alpha < 1.0) {
         bail!("--alpha must be between 0 and 1, got {}", p.alpha);
     }
@@ -957,4 +958,31 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn p_values_keep_two_significant_digits_and_never_round_to_zero() {
+        assert_eq!(fmt_p(0.0003), "0.0003");
+        assert_eq!(fmt_p(0.41), "0.41");
+        assert_eq!(fmt_p(0.002), "0.002");
+        assert_eq!(fmt_p(0.0123), "0.012");
+        assert_eq!(fmt_p(0.998), "0.998");
+        assert_eq!(fmt_p(1.0), "1");
+        assert_eq!(fmt_p(1.0 / 100_000.0), "0.00001");
+    }
+
+    #[test]
+    fn periods_parse_as_year_ranges() {
+        assert_eq!(
+            parse_periods("2008..2015,2016..2025").unwrap(),
+            Periods(vec![(2008, 2015), (2016, 2025)])
+        );
+        assert_eq!(parse_periods("2010").unwrap(), Periods(vec![(2010, 2010)]));
+        assert!(parse_periods("2015..2008").is_err());
+        assert!(parse_periods("early,late").is_err());
+    }
 }

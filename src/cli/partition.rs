@@ -39,6 +39,9 @@ pub const COMPARED: [(Distance, Transform); 5] = [
     (Distance::Hellinger, Transform::None),
 ];
 
+/// Headline numbers of a run (name, value), as stored in `run_value`.
+pub type StoredValues = Vec<(String, Option<f64>)>;
+
 /// The caution printed beside every size/shape result (METHODS.md §6.3).
 pub const CAUTION: &str = "Caution: where total abundance changes, the spread of counts usually \
 changes with it (a mean-variance relationship), and a distance-based analysis can then read a \
@@ -72,9 +75,6 @@ impl From<SizeArg> for SizeCoding {
 /// Arguments of `tally partition`.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Args {
-    /// Which events, and what one row is.
-    #[command(flatten)]
-    pub selection: SelectionArgs,
     /// Dissimilarity and transform.
     #[command(flatten)]
     pub distance: DistanceArgs,
@@ -96,6 +96,10 @@ pub struct Args {
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
+    /// Which events, and what one row is (last, so that its help heading does
+    /// not carry over to the analysis flags).
+    #[command(flatten)]
+    pub selection: SelectionArgs,
 }
 
 /// Every analysis parameter of a partition run (stored with the run; enough to replay it).
@@ -229,7 +233,7 @@ pub fn compute_on(
     m: &CountMatrix,
     params: &Params,
     seed: u64,
-) -> anyhow::Result<(Value, Vec<(String, Option<f64>)>, Vec<PartitionResult>)> {
+) -> anyhow::Result<(Value, StoredValues, Vec<PartitionResult>)> {
     let scheme = scheme_of(m, params.strata.as_deref())?;
     let opts = PartitionOptions {
         size: params.size.into(),
@@ -251,9 +255,20 @@ pub fn compute_on(
             .compute_after(t, &m.values)
             .with_context(|| format!("computing {} after {}", d.name(), t.name()))?;
         let r = partition(&m.values, &dm, &opts, Some(&cb)).map_err(|e| match e {
-            crate::analysis::AnalysisError::Saturated { rank, n } => anyhow::anyhow!(
-                "size and shape together would use {rank} model columns for {n} samples, leaving no \
-                 residual variation to test against: select more samples, or fewer shape axes with --shape-axes"
+            crate::analysis::AnalysisError::Saturated { rank, n } if rank >= n || params.shape_axes.is_some() => {
+                anyhow::anyhow!(
+                    "model saturated: size and {} shape dimension(s) need {rank} model columns (intercept \
+                     included) for {n} samples, leaving no residual variation to test against; select more \
+                     samples or fewer shape axes (--shape-axes K with K <= {})",
+                    rank.saturating_sub(2),
+                    n.saturating_sub(3)
+                )
+            }
+            crate::analysis::AnalysisError::Saturated { n, .. } => anyhow::anyhow!(
+                "with {n} samples, size and even one shape axis would leave fewer than 10 residual degrees \
+                 of freedom (adjusted fractions would be unstable); select more samples, or accept fewer \
+                 residual degrees of freedom with --shape-axes K (K <= {})",
+                n.saturating_sub(3)
             ),
             other => anyhow::Error::new(other),
         })?;

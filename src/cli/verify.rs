@@ -57,6 +57,12 @@ pub struct VerifyReport {
     pub differences: Vec<Difference>,
     /// Differences that are not text-only.
     pub numbers_differing: usize,
+    /// Largest relative difference `|a − b| / max(|a|, |b|)` among differing
+    /// numbers (`None` when none differ); below about 1e-12 it is rounding, as
+    /// when the run was stored by another version of tally.
+    pub max_relative_difference: Option<f64>,
+    /// Version of tally that stored the run.
+    pub stored_by: String,
     /// True when the fingerprint matches and no number differs.
     pub identical: bool,
 }
@@ -138,7 +144,7 @@ pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let seed = r
         .seed
         .ok_or_else(|| anyhow!("run {id} has no stored seed"))?;
-    let (result, values): (Value, Option<Vec<(String, Option<f64>)>>) = match r.kind.as_str() {
+    let (result, values): (Value, Option<partition::StoredValues>) = match r.kind.as_str() {
         partition::KIND => {
             let p: partition::Params = serde_json::from_value(r.parameters.clone())
                 .context("reading the stored partition parameters")?;
@@ -223,11 +229,20 @@ pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     }
     let fingerprint_matches = fingerprint == r.fingerprint;
     let numbers_differing = differences.iter().filter(|d| !d.text_only).count();
+    let max_relative_difference = differences
+        .iter()
+        .filter_map(|d| match (d.stored.as_f64(), d.recomputed.as_f64()) {
+            (Some(a), Some(b)) => Some((a - b).abs() / a.abs().max(b.abs()).max(f64::MIN_POSITIVE)),
+            _ => None,
+        })
+        .reduce(f64::max);
     Ok(VerifyReport {
         run_id: id,
         kind: r.kind,
         identical: fingerprint_matches && numbers_differing == 0,
         numbers_differing,
+        max_relative_difference,
+        stored_by: r.tool_version,
         stored_fingerprint: r.fingerprint,
         fingerprint,
         fingerprint_matches,
@@ -288,6 +303,19 @@ pub fn run(id: i64, format: FormatArg, store: &Store, out: &mut dyn Write) -> an
                     "result: {} of {} stored numbers differ:",
                     rep.numbers_differing, rep.compared
                 )?;
+                if let Some(rel) = rep.max_relative_difference {
+                    writeln!(
+                        out,
+                        "largest relative difference {rel:.1e}{} (stored by tally {}, now {})",
+                        if rel < 1e-12 {
+                            ", at rounding level"
+                        } else {
+                            ""
+                        },
+                        rep.stored_by,
+                        crate::VERSION
+                    )?;
+                }
             }
             if texts > 0 {
                 writeln!(

@@ -183,13 +183,16 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
             }
         }
         let (v, _) = compute_on(&synthetic(y, &labels), false, &params, seed).unwrap();
+        assert!(v["abundance_differs"].is_boolean() && v["size"]["p_value"].is_number());
         if v["abundance_differs"] == true {
+            assert!(v["size"]["p_value"].as_f64().unwrap() <= 0.05);
             size_rej += 1;
         }
         if v["composition_differs"] == true {
             shape_rej += 1;
         }
     }
+    eprintln!("pure shape: abundance {size_rej}/{reps}, composition {shape_rej}/{reps}");
     assert!(
         size_rej <= 15,
         "pure shape: abundance said to differ in {size_rej}/{reps}"
@@ -489,4 +492,92 @@ fn rarefying_refuses_counts_per_effort_and_runs_on_raw_counts() {
     // Stored as run 1 (the refused command stored nothing) and reproduced.
     let rep = json_of(&env.stdout(["runs", "verify", "1", "--format", "json"]));
     assert_eq!(rep["identical"], true, "{rep}");
+}
+
+#[test]
+fn runs_that_store_their_arguments_are_replayed_by_the_binary() {
+    // A run of another kind that records its command line under `argv` is replayed by
+    // running the same binary again with the stored seed; here the command is a
+    // partition, stored under a kind verify has no in-process replay for.
+    use tally::matrix::Unit;
+    use tally::store::Store;
+    use tally::store::query::Selection;
+    use tally::store::runs::NewRun;
+    let env = demo_env();
+    let argv = [
+        "partition",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--unit",
+        "site-year",
+        "--site-where",
+        "reach=upper",
+        "--permutations",
+        "99",
+        "--seed",
+        "11",
+    ];
+    let mut args = argv.to_vec();
+    args.extend(["--format", "json", "--no-store"]);
+    let result = json_of(&env.stdout(&args));
+    let m = json_of(&env.stdout([
+        "matrix",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--unit",
+        "site-year",
+        "--site-where",
+        "reach=upper",
+        "--format",
+        "json",
+    ]));
+    let sel = Selection {
+        protocol: Some("kick".into()),
+        per_effort: true,
+        unit: Some(Unit::SiteYear),
+        site_where: vec![("reach".into(), "upper".into())],
+        ..Selection::default()
+    };
+    let mut store = Store::open(&env.db).unwrap();
+    let id = store
+        .save_run(&NewRun {
+            kind: "replayed".into(),
+            selection: serde_json::to_value(&sel).unwrap(),
+            parameters: serde_json::json!({ "argv": argv }),
+            seed: Some(11),
+            fingerprint: m["fingerprint"].as_str().unwrap().to_string(),
+            period_start: None,
+            period_end: None,
+            result: result.clone(),
+            values: vec![],
+        })
+        .unwrap();
+    drop(store);
+    let rep = json_of(&env.stdout(["runs", "verify", &id.to_string(), "--format", "json"]));
+    assert_eq!(rep["identical"], true, "{rep}");
+    assert!(rep["compared"].as_u64().unwrap() > 20);
+    // Without recorded arguments the kind cannot be replayed, and verify says why.
+    let mut store = Store::open(&env.db).unwrap();
+    let id = store
+        .save_run(&NewRun {
+            kind: "replayed".into(),
+            selection: serde_json::to_value(&sel).unwrap(),
+            parameters: serde_json::json!({}),
+            seed: Some(11),
+            fingerprint: String::new(),
+            period_start: None,
+            period_end: None,
+            result,
+            values: vec![],
+        })
+        .unwrap();
+    drop(store);
+    let o = env
+        .cmd(["runs", "verify", &id.to_string()])
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("cannot be replayed"));
 }
