@@ -152,7 +152,14 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             site_where: vec![("reach".into(), reach.into())],
             ..SelectionArgs::default()
         };
-        let ca_args = report::ordinate_args(&sel, MethodArg::Ca, None, Some(periods.clone()), vec![], &run);
+        let ca_args = report::ordinate_args(
+            &sel,
+            MethodArg::Ca,
+            None,
+            Some(periods.clone()),
+            vec![],
+            &run,
+        );
         let ca = ordinate::compute(store, &ca_args)?;
         let cca_args = report::ordinate_args(
             &sel,
@@ -163,15 +170,31 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             &run,
         );
         let cca = ordinate::compute(store, &cca_args)?;
-        let test = cca.test.as_ref().context("invariant: a CCA carries its test")?;
+        let test = cca
+            .test
+            .as_ref()
+            .context("invariant: a CCA carries its test")?;
         let values = vec![
-            ("constrained_share".to_string(), cca.json["constrained_share"].as_f64()),
+            (
+                "constrained_share".to_string(),
+                cca.json["constrained_share"].as_f64(),
+            ),
             ("pseudo_f".to_string(), Some(test.pseudo_f)),
             ("p_value".to_string(), Some(test.permutation.p_value)),
         ];
         let params = serde_json::json!({"method": "cca", "constraints": ["period"],
             "periods": DEMO_PERIODS.to_vec(), "permutations": DEMO_PERMUTATIONS});
-        let run_id = store_run(store, &run, "ordinate", &cca.selection, &cca.matrix, params, cca.seed, &cca.json, values)?;
+        let run_id = store_run(
+            store,
+            &run,
+            "ordinate",
+            &cca.selection,
+            &cca.matrix,
+            params,
+            cca.seed,
+            &cca.json,
+            values,
+        )?;
         let label = format!("{reach} reach");
         if let Some(id) = run_id {
             run_ids.push((format!("{label}: composition test"), id));
@@ -185,15 +208,23 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             format!("{label}: composition test"),
             format!("tally ordinate {flags} --method cca --constraint period --periods 2008..2015,2016..2025 --permutations {DEMO_PERMUTATIONS} --seed {DEMO_SEED}"),
         ));
-        if let Some(p) = report::ordination_part(&ca, &format!("{label}: samples by period"), Some(&cca)) {
+        if let Some(p) =
+            report::ordination_part(&ca, &format!("{label}: samples by period"), Some(&cca))
+        {
             parts.push(p);
         }
         let totals = ca.matrix.totals();
         let mut means = Vec::new();
         for (g, name) in ca.group_names.iter().enumerate() {
-            let v: Vec<f64> = (0..totals.len()).filter(|&i| ca.group_of[i] == g).map(|i| totals[i]).collect();
+            let v: Vec<f64> = (0..totals.len())
+                .filter(|&i| ca.group_of[i] == g)
+                .map(|i| totals[i])
+                .collect();
             means.push(geometric_mean(&v));
-            boxes.push(TotalsGroup { name: format!("{reach} {name}"), values: v });
+            boxes.push(TotalsGroup {
+                name: format!("{reach} {name}"),
+                values: v,
+            });
         }
         reaches.push(ReachFinding {
             reach: reach.to_string(),
@@ -208,9 +239,21 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
         let perms = DEMO_PERMUTATIONS.to_string();
         let where_reach = format!("reach={reach}");
         let words = [
-            "--protocol", "kick", "--per-effort", "--unit", "site-year", "--site-where",
-            &where_reach, "--periods", "2008..2015,2016..2025", "--by", "period",
-            "--permutations", &perms, "--seed", &seed,
+            "--protocol",
+            "kick",
+            "--per-effort",
+            "--unit",
+            "site-year",
+            "--site-where",
+            &where_reach,
+            "--periods",
+            "2008..2015,2016..2025",
+            "--by",
+            "period",
+            "--permutations",
+            &perms,
+            "--seed",
+            &seed,
         ];
         let compare_args: super::compare::Args = super::common::args_from(&words)?;
         let (result, id) = super::compare::compute_and_store(store, &compare_args)?;
@@ -230,14 +273,25 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     let seed = DEMO_SEED.to_string();
     let perms = DEMO_PERMUTATIONS.to_string();
     let partition_words = [
-        "--protocol", "kick", "--per-effort", "--unit", "site-year", "--compare-distances",
-        "--permutations", &perms, "--seed", &seed,
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--unit",
+        "site-year",
+        "--compare-distances",
+        "--permutations",
+        &perms,
+        "--seed",
+        &seed,
     ];
     let partition_args: super::partition::Args = super::common::args_from(&partition_words)?;
     let (partition_result, partition_id) =
         super::partition::compute_and_store(store, &partition_args)?;
     if let Some(id) = partition_id {
-        run_ids.push(("size/shape partition of five dissimilarities".to_string(), id));
+        run_ids.push((
+            "size/shape partition of five dissimilarities".to_string(),
+            id,
+        ));
     }
     parameters.push((
         "size/shape partition".to_string(),
@@ -248,8 +302,19 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     let seed = DEMO_SEED.to_string();
     let perms = DEMO_PERMUTATIONS.to_string();
     let trend_words = [
-        "--protocol", "kick", "--per-effort", "--every", "year", "--split-by", "reach",
-        "--breakpoint", "auto", "--permutations", &perms, "--seed", &seed,
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--every",
+        "year",
+        "--split-by",
+        "reach",
+        "--breakpoint",
+        "auto",
+        "--permutations",
+        &perms,
+        "--seed",
+        &seed,
     ];
     let trend_args: super::trend::Args = super::common::args_from(&trend_words)?;
     let trend_json = super::trend::compute(store, &trend_args)?;
@@ -262,11 +327,16 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
         }
     }
     let trends = report::trend_entry(trend_json);
-    parameters.push(("trends".to_string(), format!("tally trend {}", trend_words.join(" "))));
+    parameters.push((
+        "trends".to_string(),
+        format!("tally trend {}", trend_words.join(" ")),
+    ));
     let totals = Part::Done(TotalsPlot {
         title: "Organisms per minute, by reach and period".into(),
         subtitle: "kick samples pooled per site and year, per minute of kicking".into(),
-        measure: TotalsMeasure::PerEffort { unit: "minute".into() },
+        measure: TotalsMeasure::PerEffort {
+            unit: "minute".into(),
+        },
         groups: boxes,
     });
     Ok(DemoAnalysis {
@@ -301,14 +371,27 @@ pub fn run(_args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::
     let mut store = fresh_store(&path)?;
     load_demo(&mut store)?;
     store.checkpoint()?;
-    writeln!(out, "Wren Valley demo store (invented data): {}", path.display())?;
-    super::summary::run(super::summary::Args { format: super::FormatArg::Table }, &mut store, out)?;
+    writeln!(
+        out,
+        "Wren Valley demo store (invented data): {}",
+        path.display()
+    )?;
+    super::summary::run(
+        super::summary::Args {
+            format: super::FormatArg::Table,
+        },
+        &mut store,
+        out,
+    )?;
     let a = analyse(&mut store)?;
     let page = html::render(&a.report);
     let rp = report_path(&path);
     std::fs::write(&rp, page).with_context(|| format!("writing {}", rp.display()))?;
     writeln!(out)?;
-    writeln!(out, "What the demo found (kick samples per minute, site-years, 2008–2015 against 2016–2025):")?;
+    writeln!(
+        out,
+        "What the demo found (kick samples per minute, site-years, 2008–2015 against 2016–2025):"
+    )?;
     for r in &a.reaches {
         writeln!(
             out,
@@ -317,20 +400,35 @@ pub fn run(_args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::
         )?;
     }
     writeln!(out)?;
-    writeln!(out, "Size and shape, 2008–2015 against 2016–2025 (tally compare):")?;
+    writeln!(
+        out,
+        "Size and shape, 2008–2015 against 2016–2025 (tally compare):"
+    )?;
     for r in &a.reaches {
-        let run = r.compare_run_id.map(|id| format!(" [run {id}]")).unwrap_or_default();
+        let run = r
+            .compare_run_id
+            .map(|id| format!(" [run {id}]"))
+            .unwrap_or_default();
         writeln!(out, "  {} reach: {}{run}", r.reach, r.verdict)?;
     }
     writeln!(out)?;
-    writeln!(out, "Across the years (tally trend, with a breakpoint search):")?;
+    writeln!(
+        out,
+        "Across the years (tally trend, with a breakpoint search):"
+    )?;
     for r in &a.reaches {
         writeln!(out, "  {} reach: {}", r.reach, r.diagnosis)?;
     }
     writeln!(out)?;
-    writeln!(out, "These are permutation tests on invented data; read docs/methods.md before drawing conclusions from real data.")?;
+    writeln!(
+        out,
+        "These are permutation tests on invented data; read docs/methods.md before drawing conclusions from real data."
+    )?;
     writeln!(out, "report: {}", rp.display())?;
     writeln!(out, "store:  {}", path.display())?;
-    writeln!(out, "next:   docs/demo.md walks through the same steps command by command")?;
+    writeln!(
+        out,
+        "next:   docs/demo.md walks through the same steps command by command"
+    )?;
     Ok(())
 }

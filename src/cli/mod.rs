@@ -22,16 +22,16 @@ pub mod distances;
 pub mod import;
 pub mod init;
 pub mod matrix;
-pub mod permanova;
-pub mod partition;
 pub mod ordinate;
+pub mod partition;
+pub mod permanova;
 pub mod report;
 pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
-pub mod verify;
 pub mod trend;
+pub mod verify;
 
 /// tally: size and shape of community change for long-term monitoring programs.
 #[derive(Debug, Parser)]

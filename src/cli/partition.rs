@@ -328,7 +328,17 @@ pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Valu
     let (result, values, _) = compute_on(&m, &params, seed)?;
     let mut parameters = serde_json::to_value(&params)?;
     parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
-    let id = store_run(store, &args.run, KIND, &sel, &m, parameters, Some(seed), &result, values)?;
+    let id = store_run(
+        store,
+        &args.run,
+        KIND,
+        &sel,
+        &m,
+        parameters,
+        Some(seed),
+        &result,
+        values,
+    )?;
     Ok((result, id))
 }
 

@@ -222,7 +222,10 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
             let mut c: super::compare::Args = super::common::args_from(&["--by", by])?;
             c.selection = args.selection.clone();
             c.run = args.run.clone();
-            c.periods = args.periods.as_ref().map(|p| super::compare::Periods(p.0.clone()));
+            c.periods = args
+                .periods
+                .as_ref()
+                .map(|p| super::compare::Periods(p.0.clone()));
             let (cr, cid) = super::compare::compute_and_store(store, &c)
                 .context("size and shape comparison for the report")?;
             let mut p: super::partition::Args = super::common::args_from(&["--compare-distances"])?;
@@ -254,7 +257,12 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
     let trends = match &args.split_by {
         Some(split) => {
             let mut t: super::trend::Args = super::common::args_from(&[
-                "--split-by", split, "--every", "year", "--breakpoint", "auto",
+                "--split-by",
+                split,
+                "--every",
+                "year",
+                "--breakpoint",
+                "auto",
             ])?;
             t.selection = args.selection.clone();
             t.run = args.run.clone();

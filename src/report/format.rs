@@ -45,7 +45,12 @@ pub const TABLE_STYLE: comfy_table::TableStyle = comfy_table::TableStyle::new()
 pub fn new_table(header: &[&str]) -> comfy_table::Table {
     let mut t = comfy_table::Table::new();
     t.load_style(TABLE_STYLE);
-    t.set_header(header.iter().map(|h| comfy_table::Cell::new(h)).collect::<Vec<_>>());
+    t.set_header(
+        header
+            .iter()
+            .map(|h| comfy_table::Cell::new(h))
+            .collect::<Vec<_>>(),
+    );
     t
 }
 

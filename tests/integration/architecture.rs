@@ -17,14 +17,27 @@ fn rust_files(dir: &Path, out: &mut Vec<std::path::PathBuf>) {
 #[test]
 fn analysis_and_matrix_are_pure() {
     let forbidden = [
-        "rusqlite", "refinery", "clap", "comfy_table", "indicatif", "std::fs", "println!",
-        "eprintln!", "crate::store", "crate::cli", "crate::report",
+        "rusqlite",
+        "refinery",
+        "clap",
+        "comfy_table",
+        "indicatif",
+        "std::fs",
+        "println!",
+        "eprintln!",
+        "crate::store",
+        "crate::cli",
+        "crate::report",
     ];
     let root = crate::util::root();
     let mut files = Vec::new();
     rust_files(&root.join("src/analysis"), &mut files);
     rust_files(&root.join("src/matrix"), &mut files);
-    assert!(files.len() > 10, "expected the kernel sources, found {}", files.len());
+    assert!(
+        files.len() > 10,
+        "expected the kernel sources, found {}",
+        files.len()
+    );
     let mut problems = Vec::new();
     for f in &files {
         let text = std::fs::read_to_string(f).expect("readable source");
@@ -37,5 +50,9 @@ fn analysis_and_matrix_are_pure() {
             }
         }
     }
-    assert!(problems.is_empty(), "boundary crossed:\n{}", problems.join("\n"));
+    assert!(
+        problems.is_empty(),
+        "boundary crossed:\n{}",
+        problems.join("\n")
+    );
 }
