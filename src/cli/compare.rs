@@ -725,42 +725,20 @@ pub fn compute(store: &Store, args: &Args) -> anyhow::Result<Value> {
     Ok(v)
 }
 
-/// Compute and store the run as `tally compare` does (unless `--no-store`),
-/// without printing the table; returns the result JSON and the run id (for
-/// the demo and the HTML report).
-///
-/// # Errors
-/// As [`compute_on`]; selection and storage errors.
-pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Value, Option<i64>)> {
+/// A computed and (unless `--no-store`) stored comparison.
+struct Executed {
+    sel: crate::store::Selection,
+    params: Params,
+    seed: u64,
+    result: Value,
+    run_id: Option<i64>,
+}
+
+/// Assemble, compute, print the notes and store the run.
+fn execute(store: &mut Store, args: &Args) -> anyhow::Result<Executed> {
     let sel = args.selection.resolve(store)?;
     let m = load_matrix(store, &sel)?;
     let params = Params::of(args);
-    let seed = args.run.seed();
-    let (result, values) = compute_on(&m, sel.per_effort, &params, seed)?;
-    let mut parameters = serde_json::to_value(&params)?;
-    parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
-    let id = store_run(
-        store,
-        &args.run,
-        KIND,
-        &sel,
-        &m,
-        parameters,
-        Some(seed),
-        &result,
-        values,
-    )?;
-    Ok((result, id))
-}
-
-/// Run `tally compare`.
-///
-/// # Errors
-/// As [`compute_on`]; I/O and storage errors.
-pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    let sel = args.selection.resolve(store)?;
-    let m = load_matrix(store, &sel)?;
-    let params = Params::of(&args);
     let seed = args.run.seed();
     let (result, values) = compute_on(&m, sel.per_effort, &params, seed)?;
     if let Some(Value::Array(ns)) = result.get("notes") {
@@ -770,7 +748,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     }
     let mut parameters = serde_json::to_value(&params)?;
     parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
-    store_run(
+    let run_id = store_run(
         store,
         &args.run,
         KIND,
@@ -781,6 +759,38 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         &result,
         values,
     )?;
+    Ok(Executed {
+        sel,
+        params,
+        seed,
+        result,
+        run_id,
+    })
+}
+
+/// Compute and store the run as `tally compare` does (unless `--no-store`),
+/// without printing the table; returns the result JSON and the run id (for
+/// the demo and the HTML report).
+///
+/// # Errors
+/// As [`compute_on`]; selection and storage errors.
+pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Value, Option<i64>)> {
+    let e = execute(store, args)?;
+    Ok((e.result, e.run_id))
+}
+
+/// Run `tally compare`.
+///
+/// # Errors
+/// As [`compute_on`]; I/O and storage errors.
+pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    let Executed {
+        sel,
+        params,
+        seed,
+        result,
+        ..
+    } = execute(store, &args)?;
     let comps = result["comparisons"]
         .as_array()
         .cloned()

@@ -314,42 +314,22 @@ fn p_text(t: &UniqueTest) -> String {
     }
 }
 
-/// Compute and store the run as `tally partition` does (unless `--no-store`),
-/// without printing the table; returns the result JSON and the run id (for
-/// the demo and the HTML report).
-///
-/// # Errors
-/// As [`compute_on`]; selection and storage errors.
-pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Value, Option<i64>)> {
+/// A computed and (unless `--no-store`) stored partition.
+struct Executed {
+    sel: crate::store::Selection,
+    m: CountMatrix,
+    params: Params,
+    seed: u64,
+    result: Value,
+    results: Vec<PartitionResult>,
+    run_id: Option<i64>,
+}
+
+/// Assemble, compute, print the notes and store the run.
+fn execute(store: &mut Store, args: &Args) -> anyhow::Result<Executed> {
     let sel = args.selection.resolve(store)?;
     let m = load_matrix(store, &sel)?;
     let params = Params::of(args);
-    let seed = args.run.seed();
-    let (result, values, _) = compute_on(&m, &params, seed)?;
-    let mut parameters = serde_json::to_value(&params)?;
-    parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
-    let id = store_run(
-        store,
-        &args.run,
-        KIND,
-        &sel,
-        &m,
-        parameters,
-        Some(seed),
-        &result,
-        values,
-    )?;
-    Ok((result, id))
-}
-
-/// Run `tally partition`.
-///
-/// # Errors
-/// Selection, assembly and analysis errors; I/O and storage errors.
-pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    let sel = args.selection.resolve(store)?;
-    let m = load_matrix(store, &sel)?;
-    let params = Params::of(&args);
     let seed = args.run.seed();
     let (result, values, results) = compute_on(&m, &params, seed)?;
     for r in &results {
@@ -359,7 +339,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     }
     let mut parameters = serde_json::to_value(&params)?;
     parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
-    store_run(
+    let run_id = store_run(
         store,
         &args.run,
         KIND,
@@ -370,6 +350,42 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         &result,
         values,
     )?;
+    Ok(Executed {
+        sel,
+        m,
+        params,
+        seed,
+        result,
+        results,
+        run_id,
+    })
+}
+
+/// Compute and store the run as `tally partition` does (unless `--no-store`),
+/// without printing the table; returns the result JSON and the run id (for
+/// the demo and the HTML report).
+///
+/// # Errors
+/// As [`compute_on`]; selection and storage errors.
+pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<(Value, Option<i64>)> {
+    let e = execute(store, args)?;
+    Ok((e.result, e.run_id))
+}
+
+/// Run `tally partition`.
+///
+/// # Errors
+/// Selection, assembly and analysis errors; I/O and storage errors.
+pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    let Executed {
+        sel,
+        m,
+        params,
+        seed,
+        result,
+        results,
+        ..
+    } = execute(store, &args)?;
     match args.run.format {
         FormatArg::Json => write_json(out, &result)?,
         FormatArg::Csv => {
