@@ -244,8 +244,9 @@ fn report_is_one_self_contained_file() {
 }
 
 #[test]
-fn demo_recovers_the_stories_it_can_test_and_writes_its_report() {
-    let env = demo_env();
+fn demo_recovers_the_stories_and_writes_its_report() {
+    let env = TestEnv::new();
+    let account = env.stdout(["demo"]);
     let report = env.dir.path().join("tally-demo-report.html");
     let html = std::fs::read_to_string(&report).unwrap();
     sections_present(&html);
@@ -266,6 +267,48 @@ fn demo_recovers_the_stories_it_can_test_and_writes_its_report() {
     assert!(by["middle"].composition_p < 0.05);
     assert!((0.85..1.15).contains(&by["upper"].totals_ratio));
     assert!(by["upper"].composition_p > 0.05);
+    // The same stories through `tally compare` (size test and shape PERMANOVA,
+    // 2008–2015 against 2016–2025) and `tally trend` (year permutations with a
+    // breakpoint search): simulation with known truth (demo-data/README.md).
+    let v = |r: &str| by[r].verdict.as_str();
+    assert!(v("lower").contains("abundance lower"), "{}", v("lower"));
+    assert!(
+        v("lower").contains("composition not different"),
+        "{}",
+        v("lower")
+    );
+    assert!(
+        v("middle").contains("abundance not different"),
+        "{}",
+        v("middle")
+    );
+    assert!(
+        v("middle").contains("composition different"),
+        "{}",
+        v("middle")
+    );
+    assert!(
+        v("upper").contains("abundance not different"),
+        "{}",
+        v("upper")
+    );
+    assert!(
+        v("upper").contains("composition not different"),
+        "{}",
+        v("upper")
+    );
+    assert_eq!(by["lower"].diagnosis, "abundance");
+    assert_eq!(by["middle"].diagnosis, "composition");
+    assert_eq!(by["upper"].diagnosis, "none");
+    assert!(by.values().all(|r| r.compare_run_id.is_some()));
+    // The account printed by the demo says the same.
+    for line in [
+        "lower reach: abundance",
+        "middle reach: composition",
+        "upper reach: none",
+    ] {
+        assert!(account.contains(line), "{line} missing from:\n{account}");
+    }
 }
 
 fn chromium() -> Option<PathBuf> {
