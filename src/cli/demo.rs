@@ -317,7 +317,7 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
         &seed,
     ];
     let trend_args: super::trend::Args = super::common::args_from(&trend_words)?;
-    let trend_json = super::trend::compute(store, &trend_args)?;
+    let trend_json = super::trend::compute_and_store(store, &trend_args)?;
     for r in reaches.iter_mut() {
         let group = trend_json["groups"]
             .as_array()

@@ -266,7 +266,9 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
             ])?;
             t.selection = args.selection.clone();
             t.run = args.run.clone();
-            trend_entry(super::trend::compute(store, &t).context("trends for the report")?)
+            trend_entry(
+                super::trend::compute_and_store(store, &t).context("trends for the report")?,
+            )
         }
         None => Part::NotRequested,
     };

@@ -468,6 +468,21 @@ pub fn compute(store: &Store, args: &Args) -> anyhow::Result<Value> {
     Ok(analyse(store, args, seed)?.1)
 }
 
+/// Compute and store the runs as `tally trend` does (one `trend` run per group
+/// and one `trend-period` run per period, unless `--no-store`), without
+/// printing; returns the JSON (for the demo and the HTML report).
+///
+/// # Errors
+/// Selection, assembly, analysis and storage errors.
+pub fn compute_and_store(store: &mut Store, args: &Args) -> anyhow::Result<Value> {
+    let seed = args.run.seed();
+    let (groups, json) = analyse(store, args, seed)?;
+    for g in &groups {
+        store_group(store, args, g, seed)?;
+    }
+    Ok(json)
+}
+
 fn parameters(args: &Args) -> Value {
     json!({
         "every": match args.every { Every::Year => "year", Every::Season => "season" },

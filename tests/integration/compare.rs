@@ -206,21 +206,9 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
     );
 }
 
-/// A store holding the demo data and no runs (`tally demo` itself stores the
-/// runs of its own analyses; these tests number their runs from 1).
+/// A store holding the demo data and no runs (these tests number their runs from 1).
 fn demo_env() -> TestEnv {
-    let env = TestEnv::new();
-    env.stdout(["init"]);
-    for (kind, file) in [
-        ("sites", "sites.csv"),
-        ("protocols", "protocols.csv"),
-        ("taxa", "taxa.csv"),
-        ("records", "records.csv"),
-    ] {
-        let path = crate::util::root().join("demo-data").join(file);
-        env.stdout(["import", kind, path.to_str().expect("UTF-8 path")]);
-    }
-    env
+    TestEnv::with_demo_data()
 }
 
 fn json_of(s: &str) -> Value {

@@ -5,10 +5,9 @@ use serde_json::Value;
 
 use crate::util::TestEnv;
 
+/// The demo data without the demo's own stored runs (the tests count runs).
 fn demo() -> TestEnv {
-    let env = TestEnv::new();
-    env.stdout(["demo"]);
-    env
+    TestEnv::with_demo_data()
 }
 
 fn group<'a>(v: &'a Value, name: &str) -> &'a Value {

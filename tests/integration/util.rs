@@ -16,6 +16,23 @@ impl TestEnv {
         TestEnv { dir, db }
     }
 
+    /// A store holding the demo data and no stored runs (`tally demo` itself
+    /// stores the runs of its analyses), built through `tally import`.
+    pub fn with_demo_data() -> TestEnv {
+        let env = TestEnv::new();
+        env.stdout(["init"]);
+        for (kind, file) in [
+            ("sites", "sites.csv"),
+            ("protocols", "protocols.csv"),
+            ("taxa", "taxa.csv"),
+            ("records", "records.csv"),
+        ] {
+            let path = root().join("demo-data").join(file);
+            env.stdout(["import", kind, path.to_str().expect("UTF-8 path")]);
+        }
+        env
+    }
+
     /// `tally --db <store> args…`, run in the temporary directory.
     pub fn cmd<I, S>(&self, args: I) -> assert_cmd::Command
     where
