@@ -337,8 +337,7 @@ fn execute(store: &mut Store, args: &Args) -> anyhow::Result<Executed> {
             note(n);
         }
     }
-    let mut parameters = serde_json::to_value(&params)?;
-    parameters["argv"] = json!(std::env::args().skip(1).collect::<Vec<_>>());
+    let parameters = serde_json::to_value(&params)?;
     let run_id = store_run(
         store,
         &args.run,
