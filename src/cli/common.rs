@@ -249,3 +249,47 @@ pub fn args_from<A: clap::Args + clap::FromArgMatches>(words: &[&str]) -> anyhow
     let m = cmd.try_get_matches_from(std::iter::once("tally").chain(words.iter().copied()))?;
     Ok(A::from_arg_matches(&m)?)
 }
+
+/// Year ranges that define the field `period` (`2008..2015,2016..2025`).
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+pub struct Periods(pub Vec<(i32, i32)>);
+
+impl Periods {
+    /// Label of the range holding `year`, e.g. `2008-2015`.
+    pub fn label_of(&self, year: i32) -> Option<String> {
+        self.0
+            .iter()
+            .find(|(a, b)| (*a..=*b).contains(&year))
+            .map(|(a, b)| CountMatrix::period_label((*a, *b)))
+    }
+}
+
+/// Parse `A..B,C..D` into non-overlapping ranges.
+///
+/// # Errors
+/// Malformed ranges, a range whose start is after its end, overlapping ranges.
+pub fn parse_periods(s: &str) -> Result<Periods, String> {
+    let mut out: Vec<(i32, i32)> = Vec::new();
+    for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
+        let (a, b) = match part.split_once("..") {
+            Some((a, b)) => (a.trim(), b.trim()),
+            None => (part, part),
+        };
+        let y = |t: &str| {
+            t.parse::<i32>()
+                .map_err(|_| format!("expected years A..B, got '{part}'"))
+        };
+        let (a, b) = (y(a)?, y(b)?);
+        if a > b {
+            return Err(format!("the first year is after the last in '{part}'"));
+        }
+        if out.iter().any(|(c, d)| a <= *d && *c <= b) {
+            return Err(format!("period '{part}' overlaps another"));
+        }
+        out.push((a, b));
+    }
+    if out.is_empty() {
+        return Err("no period given".into());
+    }
+    Ok(Periods(out))
+}

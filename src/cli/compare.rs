@@ -62,46 +62,7 @@ impl From<ShapeDistance> for Distance {
     }
 }
 
-/// Parse `2008..2015,2016..2025` (a single year `2010` is a one-year period).
-///
-/// # Errors
-/// Text that is not a comma-separated list of year ranges.
-pub fn parse_periods(s: &str) -> Result<Periods, String> {
-    let list = s
-        .split(',')
-        .filter(|p| !p.trim().is_empty())
-        .map(|p| {
-            let num = |t: &str| {
-                t.trim()
-                    .parse::<i32>()
-                    .map_err(|_| format!("expected periods like 2008..2015,2016..2025, got '{s}'"))
-            };
-            let (a, b) = match p.split_once("..") {
-                Some((a, b)) => (num(a)?, num(b)?),
-                None => {
-                    let a = num(p)?;
-                    (a, a)
-                }
-            };
-            if a > b {
-                return Err(format!("the period {a}..{b} ends before it starts"));
-            }
-            Ok((a, b))
-        })
-        .collect::<Result<Vec<_>, _>>()
-        .and_then(|v| {
-            if v.is_empty() {
-                Err("no period given".into())
-            } else {
-                Ok(v)
-            }
-        })?;
-    Ok(Periods(list))
-}
-
-/// The year periods of `--periods` (inclusive `(first, last)` ranges).
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Periods(pub Vec<(i32, i32)>);
+pub use super::common::{Periods, parse_periods};
 
 fn parse_rarefy(s: &str) -> Result<String, String> {
     let t = s.trim();

@@ -8,8 +8,9 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{Context, bail};
 
+use super::common::Periods;
 use super::common::{RunArgs, store_run};
-use super::ordinate::{self, MethodArg, Periods};
+use super::ordinate::{self, MethodArg};
 use super::report;
 use super::selection::{SelectionArgs, UnitArg, flags_of};
 use crate::demo::DemoFiles;

@@ -6,6 +6,7 @@
 //! [`compute`] does the work and returns an [`Ordination`] (also used by
 //! `tally report` and `tally demo`); [`run`] prints, plots and stores.
 
+pub use super::common::{Periods, parse_periods};
 use std::collections::BTreeSet;
 use std::io::Write;
 use std::path::PathBuf;
@@ -51,58 +52,6 @@ impl MethodArg {
             MethodArg::Cca => "cca",
         }
     }
-}
-
-/// Year ranges that define the field `period` (`2008..2015,2016..2025`).
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Periods(pub Vec<(i32, i32)>);
-
-impl Periods {
-    /// Label of the range holding `year`, e.g. `2008–2015`.
-    pub fn label_of(&self, year: i32) -> Option<String> {
-        self.0
-            .iter()
-            .find(|(a, b)| (*a..=*b).contains(&year))
-            .map(|(a, b)| period_label(*a, *b))
-    }
-}
-
-fn period_label(a: i32, b: i32) -> String {
-    if a == b {
-        a.to_string()
-    } else {
-        format!("{a}–{b}")
-    }
-}
-
-/// Parse `A..B,C..D` into non-overlapping ranges.
-///
-/// # Errors
-/// Malformed ranges, a range whose start is after its end, overlapping ranges.
-pub fn parse_periods(s: &str) -> Result<Periods, String> {
-    let mut out: Vec<(i32, i32)> = Vec::new();
-    for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
-        let (a, b) = match part.split_once("..") {
-            Some((a, b)) => (a.trim(), b.trim()),
-            None => (part, part),
-        };
-        let y = |t: &str| {
-            t.parse::<i32>()
-                .map_err(|_| format!("expected years A..B, got '{part}'"))
-        };
-        let (a, b) = (y(a)?, y(b)?);
-        if a > b {
-            return Err(format!("the first year is after the last in '{part}'"));
-        }
-        if out.iter().any(|(c, d)| a <= *d && *c <= b) {
-            return Err(format!("period '{part}' overlaps another"));
-        }
-        out.push((a, b));
-    }
-    if out.is_empty() {
-        return Err("no period given".into());
-    }
-    Ok(Periods(out))
 }
 
 /// Arguments of `tally ordinate`.
@@ -210,7 +159,7 @@ pub fn describe_selection(sel: &Selection, m: &CountMatrix) -> String {
     let y0 = m.samples.iter().map(|s| s.year).min();
     let y1 = m.samples.iter().map(|s| s.last_year).max();
     if let (Some(a), Some(b)) = (y0, y1) {
-        parts.push(period_label(a, b));
+        parts.push(CountMatrix::period_label((a, b)));
     }
     if let Some((a, b)) = sel.months {
         parts.push(format!("months {a}–{b}"));

@@ -15,7 +15,8 @@ use serde_json::Value;
 
 use super::FormatArg;
 use super::common::{DistanceArg, DistanceArgs, RunArgs, TransformArg};
-use super::ordinate::{self, MethodArg, Ordination, Periods, parse_periods, write_new_file};
+use super::common::{Periods, parse_periods};
+use super::ordinate::{self, MethodArg, Ordination, write_new_file};
 use super::selection::{SelectionArgs, flags_of};
 use crate::report::html::{self, Labelled, OrdinationPart, Part, ReportInput};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
@@ -222,10 +223,7 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
             let mut c: super::compare::Args = super::common::args_from(&["--by", by])?;
             c.selection = args.selection.clone();
             c.run = args.run.clone();
-            c.periods = args
-                .periods
-                .as_ref()
-                .map(|p| super::compare::Periods(p.0.clone()));
+            c.periods = args.periods.as_ref().cloned();
             let (cr, cid) = super::compare::compute_and_store(store, &c)
                 .context("size and shape comparison for the report")?;
             let mut p: super::partition::Args = super::common::args_from(&["--compare-distances"])?;
