@@ -355,7 +355,10 @@ fn report_renders_in_headless_chromium() {
     let report = env.dir.path().join("tally-demo-report.html");
     let shot = env.path("report.png");
     let profile = tempfile::tempdir().unwrap();
-    let status = Command::new(browser)
+    // coreutils `timeout` keeps a stuck browser from holding the suite.
+    let status = Command::new("timeout")
+        .arg("180")
+        .arg(browser)
         .args([
             "--headless",
             "--no-sandbox",
