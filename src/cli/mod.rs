@@ -30,6 +30,7 @@ pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod summary;
+pub mod taxa;
 pub mod trend;
 pub mod verify;
 
@@ -78,6 +79,8 @@ pub enum Command {
     Batches(batches::Args),
     /// What is stored: totals, years, protocols, events per site and year.
     Summary(summary::Args),
+    /// Taxonomy upkeep: list, tree, rename, merge, history.
+    Taxa(taxa::Args),
     /// Check the store file's integrity and foreign keys.
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
@@ -121,6 +124,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Import(args) => import::run(args, &mut open_store(&db)?, &mut std::io::stderr()),
         Command::Batches(args) => batches::run(args, &mut open_store(&db)?, &mut out),
         Command::Summary(args) => summary::run(args, &mut open_store(&db)?, &mut out),
+        Command::Taxa(args) => taxa::run(args, &mut open_store(&db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),
         Command::Backup(args) => backup::run(args, &mut open_store(&db)?, &mut out),
         Command::Matrix(args) => matrix::run(args, &open_store(&db)?, &mut out),

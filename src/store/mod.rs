@@ -17,6 +17,7 @@ pub mod runs;
 pub mod selections;
 pub(crate) mod sheet;
 pub mod summary;
+pub mod taxa;
 #[doc(hidden)]
 pub mod testing;
 

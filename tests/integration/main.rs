@@ -10,5 +10,6 @@ mod reference_distances;
 mod reference_models;
 mod report;
 mod store_cli;
+mod taxa;
 mod trend_cli;
 mod util;
