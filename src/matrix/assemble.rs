@@ -392,7 +392,7 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         .collect::<BTreeSet<_>>()
         .into_iter()
         .collect();
-    final_ids.sort_by(|a, b| tax.name(*a).cmp(&tax.name(*b)));
+    final_ids.sort_by_key(|a| tax.name(*a));
     let col_of_final: HashMap<i64, usize> = final_ids
         .iter()
         .enumerate()

@@ -48,7 +48,7 @@ pub fn new_table(header: &[&str]) -> comfy_table::Table {
     t.set_header(
         header
             .iter()
-            .map(|h| comfy_table::Cell::new(h))
+            .map(comfy_table::Cell::new)
             .collect::<Vec<_>>(),
     );
     t

@@ -208,7 +208,11 @@ fn taxa_reject_parent_loops_and_synonym_chains() {
     ));
     assert_eq!((issues[0].0, issues[0].1.as_str()), (4, "accepted"));
     // The taxon table is empty: its header is followed directly by the next one.
-    assert!(s.content_dump().unwrap().contains("## taxon\n## taxon_change\n"));
+    assert!(
+        s.content_dump()
+            .unwrap()
+            .contains("## taxon\n## taxon_change\n")
+    );
 }
 
 #[test]
