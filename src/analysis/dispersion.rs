@@ -135,26 +135,9 @@ pub struct DispersionResult {
     pub permute: Permute,
 }
 
+/// The one-way design checks shared with PERMANOVA.
 fn validate(n: usize, groups: &Grouping) -> Result<(), AnalysisError> {
-    if groups.n() != n {
-        return Err(AnalysisError::DimensionMismatch {
-            expected: n,
-            found: groups.n(),
-        });
-    }
-    if groups.n_groups() < 2 {
-        return Err(AnalysisError::TooFewGroups {
-            found: groups.n_groups(),
-            min: 2,
-        });
-    }
-    if n <= groups.n_groups() {
-        return Err(AnalysisError::Saturated {
-            rank: groups.n_groups(),
-            n,
-        });
-    }
-    Ok(())
+    super::permanova::check_groups(groups, n)
 }
 
 /// Permutation F test of `values` by `groups` with the engine of [`permutation`].

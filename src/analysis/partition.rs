@@ -27,6 +27,7 @@ use super::permanova::PartialTerm;
 use super::permutation::{
     PermutationOptions, PermutationResult, Permuter, Progress, Scheme, permutation_test,
 };
+use super::transform::{refuse_empty_rows, row_totals};
 
 /// How sample size enters the partition.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -118,16 +119,8 @@ pub fn adjusted_r2(r2: f64, n: usize, m: usize) -> Option<f64> {
 /// # Errors
 /// [`AnalysisError::EmptySamples`] for rows with no organisms.
 pub fn profile_design(y: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
-    let totals: Vec<f64> = (0..y.nrows()).map(|i| y.row(i).sum()).collect();
-    let empty: Vec<usize> = totals
-        .iter()
-        .enumerate()
-        .filter(|(_, t)| **t <= 0.0)
-        .map(|(i, _)| i)
-        .collect();
-    if !empty.is_empty() {
-        return Err(AnalysisError::EmptySamples { rows: empty });
-    }
+    let totals = row_totals(y);
+    refuse_empty_rows(&totals)?;
     Ok(DMatrix::from_fn(y.nrows(), y.ncols(), |i, j| {
         y[(i, j)] / totals[i]
     }))
@@ -138,16 +131,8 @@ pub fn profile_design(y: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
 /// # Errors
 /// [`AnalysisError::EmptySamples`] for rows with no organisms (ln 0 is undefined).
 pub fn size_design(y: &DMatrix<f64>, coding: SizeCoding) -> Result<DMatrix<f64>, AnalysisError> {
-    let totals: Vec<f64> = (0..y.nrows()).map(|i| y.row(i).sum()).collect();
-    let empty: Vec<usize> = totals
-        .iter()
-        .enumerate()
-        .filter(|(_, t)| **t <= 0.0)
-        .map(|(i, _)| i)
-        .collect();
-    if !empty.is_empty() {
-        return Err(AnalysisError::EmptySamples { rows: empty });
-    }
+    let totals = row_totals(y);
+    refuse_empty_rows(&totals)?;
     Ok(DMatrix::from_fn(y.nrows(), 1, |i, _| match coding {
         SizeCoding::LogTotal => totals[i].ln(),
         SizeCoding::Total => totals[i],
@@ -468,22 +453,7 @@ mod tests {
     use crate::analysis::dissimilarity::Distance;
     use crate::analysis::transform::Transform;
 
-    /// The toy community of METHODS.md §11.2 (B), invented for the dossier.
-    fn toy() -> DMatrix<f64> {
-        let rows: [[f64; 6]; 10] = [
-            [12., 5., 0., 3., 1., 0.],
-            [20., 8., 1., 5., 0., 2.],
-            [9., 4., 0., 1., 2., 0.],
-            [15., 6., 2., 4., 1., 1.],
-            [30., 12., 1., 7., 3., 0.],
-            [3., 2., 8., 1., 9., 4.],
-            [1., 4., 12., 0., 6., 7.],
-            [5., 1., 6., 2., 11., 3.],
-            [2., 3., 15., 1., 8., 9.],
-            [0., 2., 5., 0., 4., 2.],
-        ];
-        DMatrix::from_fn(10, 6, |i, j| rows[i][j])
-    }
+    use crate::analysis::prec::test_data::toy;
 
     fn toy_fit(distance: Distance, transform: Transform) -> Partition {
         let y = toy();

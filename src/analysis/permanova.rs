@@ -232,7 +232,7 @@ impl OneWay {
     }
 }
 
-fn check_groups(g: &Grouping, n: usize) -> Result<(), AnalysisError> {
+pub(crate) fn check_groups(g: &Grouping, n: usize) -> Result<(), AnalysisError> {
     if g.n() != n {
         return Err(AnalysisError::DimensionMismatch {
             expected: n,
@@ -575,18 +575,7 @@ pub(crate) mod tests {
     use crate::analysis::linear_model::{Term, TermSpec};
 
     /// The toy community of METHODS.md §11.2 (B).
-    pub(crate) const TOY: [[f64; 6]; 10] = [
-        [12., 5., 0., 3., 1., 0.],
-        [20., 8., 1., 5., 0., 2.],
-        [9., 4., 0., 1., 2., 0.],
-        [15., 6., 2., 4., 1., 1.],
-        [30., 12., 1., 7., 3., 0.],
-        [3., 2., 8., 1., 9., 4.],
-        [1., 4., 12., 0., 6., 7.],
-        [5., 1., 6., 2., 11., 3.],
-        [2., 3., 15., 1., 8., 9.],
-        [0., 2., 5., 0., 4., 2.],
-    ];
+    pub(crate) use crate::analysis::prec::test_data::TOY;
 
     /// Bray-Curtis, `Σ|y_i - y_k| / Σ(y_i + y_k)` (Bray & Curtis 1957), local to the tests.
     pub(crate) fn bray_curtis(rows: &[Vec<f64>]) -> DistanceMatrix {
