@@ -293,3 +293,49 @@ pub fn parse_periods(s: &str) -> Result<Periods, String> {
     }
     Ok(Periods(out))
 }
+
+/// The end of an analysis command: store the run (unless `--no-store`), put its
+/// id in the result, and print the result in the requested format. `csv` and
+/// `text` write the command's own CSV and table layouts.
+///
+/// # Errors
+/// Storage and I/O errors, and those of the writers.
+#[allow(clippy::too_many_arguments)]
+pub fn store_and_print(
+    store: &mut Store,
+    run: &RunArgs,
+    kind: &str,
+    selection: &Selection,
+    matrix: &CountMatrix,
+    parameters: serde_json::Value,
+    seed: u64,
+    mut result: serde_json::Value,
+    values: Vec<(String, Option<f64>)>,
+    out: &mut dyn std::io::Write,
+    csv: impl FnOnce(&mut dyn std::io::Write) -> anyhow::Result<()>,
+    text: impl FnOnce(&mut dyn std::io::Write) -> anyhow::Result<()>,
+) -> anyhow::Result<()> {
+    let run_id = store_run(
+        store,
+        run,
+        kind,
+        selection,
+        matrix,
+        parameters,
+        Some(seed),
+        &result,
+        values,
+    )?;
+    result["run_id"] = serde_json::json!(run_id);
+    match run.format {
+        FormatArg::Json => crate::report::format::write_json(out, &result)?,
+        FormatArg::Csv => csv(out)?,
+        FormatArg::Table => {
+            text(out)?;
+            if let Some(id) = run_id {
+                writeln!(out, "run id: {id}")?;
+            }
+        }
+    }
+    Ok(())
+}

@@ -9,8 +9,7 @@ use anyhow::Context;
 use clap::ValueEnum;
 use serde_json::{Value, json};
 
-use super::FormatArg;
-use super::common::{DistanceArgs, Progress, RunArgs, store_run};
+use super::common::{DistanceArgs, Progress, RunArgs, store_and_print};
 use super::permanova::{fmt_num, fmt_p, grouping, groups_line, scheme};
 use super::selection::{SelectionArgs, load_matrix};
 use crate::analysis::dispersion::{
@@ -20,7 +19,7 @@ use crate::analysis::dissimilarity::Distance;
 use crate::analysis::linear_model::Grouping;
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
-use crate::report::format::{new_table, num, write_json, write_table};
+use crate::report::format::{new_table, num, write_table};
 use crate::store::Store;
 
 /// What is permuted, on the command line.
@@ -337,7 +336,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     grouping(&m, &args.by, "--by")?;
     let seed = args.run.seed();
     let o = compute(&args, &m, seed)?;
-    let mut result = result_json(&args, &m, &o);
+    let result = result_json(&args, &m, &o);
     let parameters = json!({
         "by": args.by,
         "strata": args.strata,
@@ -347,27 +346,18 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         "distance": Distance::from(args.distance.distance).name(),
         "transform": Transform::from(args.distance.transform).name(),
     });
-    let run_id = store_run(
+    store_and_print(
         store,
         &args.run,
         "dispersion",
         &sel,
         &m,
         parameters,
-        Some(seed),
-        &result,
+        seed,
+        result,
         run_values(&o),
-    )?;
-    result["run_id"] = json!(run_id);
-    match args.run.format {
-        FormatArg::Json => write_json(out, &result)?,
-        FormatArg::Csv => write_csv(out, &o)?,
-        FormatArg::Table => {
-            write_text(out, &args, &m, sel.unit().as_str(), &o)?;
-            if let Some(id) = run_id {
-                writeln!(out, "run id: {id}")?;
-            }
-        }
-    }
-    Ok(())
+        out,
+        |w| write_csv(w, &o),
+        |w| write_text(w, &args, &m, sel.unit().as_str(), &o),
+    )
 }

@@ -17,8 +17,7 @@ use anyhow::Context;
 use clap::ValueEnum;
 use serde_json::{Value, json};
 
-use super::FormatArg;
-use super::common::{DistanceArgs, Progress, RunArgs, store_run};
+use super::common::{DistanceArgs, Progress, RunArgs, store_and_print};
 use super::selection::{SelectionArgs, load_matrix};
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::linear_model::{Design, Grouping, SsType, Term, TermSpec};
@@ -28,7 +27,7 @@ use crate::analysis::permanova::{
 use crate::analysis::permutation::Scheme;
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
-use crate::report::format::{new_table, num, write_json, write_table};
+use crate::report::format::{new_table, num, write_table};
 use crate::store::Store;
 
 /// The caution printed beside every PERMANOVA result.
@@ -486,7 +485,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     grouping(&m, &args.by, "--by")?;
     let seed = args.run.seed();
     let o = compute(&args, &m, seed)?;
-    let mut result = result_json(&args, &m, &o);
+    let result = result_json(&args, &m, &o);
     let parameters = json!({
         "by": args.by,
         "covariates": args.covariates,
@@ -497,29 +496,20 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         "distance": Distance::from(args.distance.distance).name(),
         "transform": Transform::from(args.distance.transform).name(),
     });
-    let run_id = store_run(
+    store_and_print(
         store,
         &args.run,
         "permanova",
         &sel,
         &m,
         parameters,
-        Some(seed),
-        &result,
+        seed,
+        result,
         run_values(&o),
-    )?;
-    result["run_id"] = json!(run_id);
-    match args.run.format {
-        FormatArg::Json => write_json(out, &result)?,
-        FormatArg::Csv => write_csv(out, &o)?,
-        FormatArg::Table => {
-            write_text(out, &args, &m, sel.unit().as_str(), &o)?;
-            if let Some(id) = run_id {
-                writeln!(out, "run id: {id}")?;
-            }
-        }
-    }
-    Ok(())
+        out,
+        |w| write_csv(w, &o),
+        |w| write_text(w, &args, &m, sel.unit().as_str(), &o),
+    )
 }
 
 #[cfg(test)]
