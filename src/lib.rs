@@ -6,8 +6,10 @@
 //! differences into a *size* part (how many organisms) and a *shape* part
 //! (which taxa, in what proportions) and test each; results are stored as runs.
 //!
-//! Module arrows point one way: `cli` → `store`, `matrix`, `analysis`, `report`.
-//! `analysis` and `matrix` know nothing of SQLite, clap or the terminal.
+//! Module arrows point one way: `cli` → `workflow` → `store`, `matrix`, `analysis`;
+//! `report` renders typed outcomes of `workflow`. `analysis` and `matrix` know
+//! nothing of SQLite, clap or the terminal; `workflow` knows nothing of clap or
+//! the terminal.
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 
@@ -17,6 +19,7 @@ pub mod demo;
 pub mod matrix;
 pub mod report;
 pub mod store;
+pub mod workflow;
 
 /// The tool version recorded with every stored run.
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");

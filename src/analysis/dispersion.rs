@@ -73,7 +73,7 @@ pub fn oneway_f(values: &[f64], codes: &[usize], a: usize) -> f64 {
 }
 
 /// What is permuted to obtain the null distribution of F.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Permute {
     /// Least-squares residuals `z_i - z̄_g` (METHODS.md §8.3; Anderson 2006).

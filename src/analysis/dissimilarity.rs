@@ -131,7 +131,9 @@ impl DistanceMatrix {
 /// Write `A = t_i`, `B = t_k` for the totals of the two samples (after any
 /// transform) and `W = Σ_j min(y_ij, y_kj)`. What each does with *size* (the
 /// sample total) and with all-zero samples is stated per variant.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+/// Serialised as its stable name ([`Distance::name`]), e.g. in stored run parameters.
+#[serde(rename_all = "kebab-case")]
 pub enum Distance {
     /// Bray & Curtis (1957, Ecol. Monogr. 27:325-349):
     /// `Σ|y_ij - y_kj| / Σ(y_ij + y_kj) = 1 - 2W/(A + B)`, range [0, 1].
@@ -400,13 +402,6 @@ where
             }
         }
     })
-}
-
-/// Serialised as its stable name (e.g. in stored run parameters).
-impl serde::Serialize for Distance {
-    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        s.serialize_str(self.name())
-    }
 }
 
 #[cfg(test)]

@@ -460,7 +460,7 @@ pub fn adjusted_r2(r2: f64, n: usize, m: usize) -> f64 {
 }
 
 /// Which sums of squares a table reports.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum SsType {
     /// Type I: each term after the terms before it.

@@ -15,7 +15,9 @@ use super::AnalysisError;
 /// [`Transform::Hellinger`] (each row then depends only on its own proportions).
 /// [`Transform::Sqrt`], [`Transform::FourthRoot`] and [`Transform::Log1p`]
 /// compress size but keep it; [`Transform::Presence`] keeps only which taxa occur.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+/// Serialised as its stable name ([`Transform::name`]), e.g. in stored run parameters.
+#[serde(rename_all = "kebab-case")]
 pub enum Transform {
     /// Leave the values as they are.
     None,
@@ -188,13 +190,6 @@ pub(crate) fn refuse_empty_rows(totals: &[f64]) -> Result<(), AnalysisError> {
         Ok(())
     } else {
         Err(AnalysisError::EmptySamples { rows: empty })
-    }
-}
-
-/// Serialised as its stable name (e.g. in stored run parameters).
-impl serde::Serialize for Transform {
-    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        s.serialize_str(self.name())
     }
 }
 

@@ -4,7 +4,8 @@
 use std::io::IsTerminal;
 
 use anyhow::Context;
-use clap::{Args, ValueEnum};
+use clap::Args;
+use clap::builder::TypedValueParser;
 
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::transform::Transform;
@@ -12,6 +13,9 @@ use crate::matrix::CountMatrix;
 use crate::store::Store;
 use crate::store::query::Selection;
 use crate::store::runs::NewRun;
+use crate::report::text::Render;
+use crate::workflow::design::DistanceSpec;
+use crate::workflow::{Analysis, Prepared, runs};
 
 use super::FormatArg;
 
@@ -46,81 +50,38 @@ impl RunArgs {
     }
 }
 
-/// Dissimilarity choice on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
-pub enum DistanceArg {
-    /// Bray-Curtis (carries size and shape).
-    BrayCurtis,
-    /// Euclidean distance on the transformed data.
-    Euclidean,
-    /// Chi-square distance (correspondence-analysis definition; shape).
-    ChiSquare,
-    /// Hellinger distance (shape only).
-    Hellinger,
-    /// Jaccard, on presence/absence.
-    Jaccard,
-    /// Quantitative Kulczynski.
-    Kulczynski,
-    /// Manhattan (city-block) distance.
-    Manhattan,
+/// clap's parser of `--distance`: the names of [`Distance::ALL`], so the
+/// command line can never offer a coefficient the kernels lack, or miss one.
+pub fn distance_parser() -> impl clap::builder::TypedValueParser<Value = Distance> {
+    clap::builder::PossibleValuesParser::new(Distance::ALL.map(|d| d.name()))
+        .map(|s| Distance::from_name(&s).expect("invariant: every possible value is a distance name"))
 }
 
-impl From<DistanceArg> for Distance {
-    fn from(d: DistanceArg) -> Self {
-        match d {
-            DistanceArg::BrayCurtis => Distance::BrayCurtis,
-            DistanceArg::Euclidean => Distance::Euclidean,
-            DistanceArg::ChiSquare => Distance::ChiSquare,
-            DistanceArg::Hellinger => Distance::Hellinger,
-            DistanceArg::Jaccard => Distance::Jaccard,
-            DistanceArg::Kulczynski => Distance::Kulczynski,
-            DistanceArg::Manhattan => Distance::Manhattan,
-        }
-    }
-}
-
-/// Transform choice on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
-pub enum TransformArg {
-    /// No transform.
-    None,
-    /// Square root.
-    Sqrt,
-    /// Fourth root.
-    FourthRoot,
-    /// ln(x + 1).
-    Log1p,
-    /// Presence/absence.
-    Presence,
-    /// Relative abundances (row profiles).
-    Profile,
-    /// Square roots of row profiles.
-    Hellinger,
-}
-
-impl From<TransformArg> for Transform {
-    fn from(t: TransformArg) -> Self {
-        match t {
-            TransformArg::None => Transform::None,
-            TransformArg::Sqrt => Transform::Sqrt,
-            TransformArg::FourthRoot => Transform::FourthRoot,
-            TransformArg::Log1p => Transform::Log1p,
-            TransformArg::Presence => Transform::Presence,
-            TransformArg::Profile => Transform::Profile,
-            TransformArg::Hellinger => Transform::Hellinger,
-        }
-    }
+/// clap's parser of `--transform`: the names of [`Transform::ALL`].
+pub fn transform_parser() -> impl clap::builder::TypedValueParser<Value = Transform> {
+    clap::builder::PossibleValuesParser::new(Transform::ALL.map(|t| t.name()))
+        .map(|s| Transform::from_name(&s).expect("invariant: every possible value is a transform name"))
 }
 
 /// `--distance` and `--transform`.
 #[derive(Debug, Clone, Args)]
 pub struct DistanceArgs {
     /// Dissimilarity.
-    #[arg(long, value_enum, default_value_t = DistanceArg::BrayCurtis)]
-    pub distance: DistanceArg,
+    #[arg(long, value_parser = distance_parser(), default_value = "bray-curtis")]
+    pub distance: Distance,
     /// Transform applied to the counts before the dissimilarity.
-    #[arg(long, value_enum, default_value_t = TransformArg::None)]
-    pub transform: TransformArg,
+    #[arg(long, value_parser = transform_parser(), default_value = "none")]
+    pub transform: Transform,
+}
+
+impl DistanceArgs {
+    /// The typed dissimilarity of a spec.
+    pub fn spec(&self) -> DistanceSpec {
+        DistanceSpec {
+            distance: self.distance,
+            transform: self.transform,
+        }
+    }
 }
 
 /// Store a run unless `--no-store`; prints the run id on stderr and returns it.
@@ -238,6 +199,64 @@ impl Progress {
     }
 }
 
+impl crate::workflow::Progress for Progress {
+    fn stage(&self, what: &str) {
+        if let Some(b) = &self.bar {
+            b.set_message(what.to_string());
+        }
+    }
+
+    fn update(&self, done: usize, total: usize) {
+        Progress::update(self, done, total);
+    }
+
+    fn finish(&self) {
+        Progress::finish(self);
+    }
+}
+
+/// The end of every analysis command: store the run (unless `--no-store`,
+/// announcing its id on stderr), then print the outcome as a table, CSV or JSON
+/// (the outcome's own serialisation with `run_id` added).
+///
+/// # Errors
+/// Storage, serialisation and I/O errors.
+pub fn finish<S: Analysis>(
+    store: &mut Store,
+    run: &RunArgs,
+    prepared: &Prepared,
+    spec: &S,
+    outcome: &S::Outcome,
+    out: &mut dyn std::io::Write,
+) -> anyhow::Result<()>
+where
+    S::Outcome: Render,
+{
+    let run_id = if run.no_store {
+        None
+    } else {
+        let id = runs::save(store, &[runs::ToSave::new(prepared, spec, outcome)?])
+            .context("storing the run")?[0];
+        super::note(&format!("stored as run {id}"));
+        Some(id)
+    };
+    match run.format {
+        FormatArg::Json => {
+            let mut v = serde_json::to_value(outcome)?;
+            v["run_id"] = serde_json::json!(run_id);
+            crate::report::format::write_json(out, &v)?;
+        }
+        FormatArg::Csv => outcome.csv(out)?,
+        FormatArg::Table => {
+            outcome.table(out)?;
+            if let Some(id) = run_id {
+                writeln!(out, "run id: {id}")?;
+            }
+        }
+    }
+    Ok(())
+}
+
 /// Arguments of a command built from a command line, as the user would type it
 /// after the command name (the demo and the report run commands this way, so
 /// what they do is exactly what the printed command lines do).
@@ -250,49 +269,7 @@ pub fn args_from<A: clap::Args + clap::FromArgMatches>(words: &[&str]) -> anyhow
     Ok(A::from_arg_matches(&m)?)
 }
 
-/// Year ranges that define the field `period` (`2008..2015,2016..2025`).
-#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-pub struct Periods(pub Vec<(i32, i32)>);
-
-impl Periods {
-    /// Label of the range holding `year`, e.g. `2008-2015`.
-    pub fn label_of(&self, year: i32) -> Option<String> {
-        self.0
-            .iter()
-            .find(|(a, b)| (*a..=*b).contains(&year))
-            .map(|(a, b)| CountMatrix::period_label((*a, *b)))
-    }
-}
-
-/// Parse `A..B,C..D` into non-overlapping ranges.
-///
-/// # Errors
-/// Malformed ranges, a range whose start is after its end, overlapping ranges.
-pub fn parse_periods(s: &str) -> Result<Periods, String> {
-    let mut out: Vec<(i32, i32)> = Vec::new();
-    for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
-        let (a, b) = match part.split_once("..") {
-            Some((a, b)) => (a.trim(), b.trim()),
-            None => (part, part),
-        };
-        let y = |t: &str| {
-            t.parse::<i32>()
-                .map_err(|_| format!("expected years A..B, got '{part}'"))
-        };
-        let (a, b) = (y(a)?, y(b)?);
-        if a > b {
-            return Err(format!("the first year is after the last in '{part}'"));
-        }
-        if out.iter().any(|(c, d)| a <= *d && *c <= b) {
-            return Err(format!("period '{part}' overlaps another"));
-        }
-        out.push((a, b));
-    }
-    if out.is_empty() {
-        return Err("no period given".into());
-    }
-    Ok(Periods(out))
-}
+pub use crate::workflow::design::{Periods, parse_periods};
 
 /// The end of an analysis command: store the run (unless `--no-store`), put its
 /// id in the result, and print the result in the requested format. `csv` and

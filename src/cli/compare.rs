@@ -19,7 +19,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::FormatArg;
-use super::common::{DistanceArg, RunArgs, TransformArg, store_run};
+use super::common::{RunArgs, distance_parser, transform_parser, store_run};
 use super::note;
 use super::partition::{CAUTION, StoredValues, scheme_of};
 use super::selection::{SelectionArgs, load_matrix};
@@ -105,11 +105,11 @@ pub struct Args {
     #[arg(long, value_name = "A", default_value_t = 0.05)]
     pub alpha: f64,
     /// Combined dissimilarity (size and shape together).
-    #[arg(long, value_enum, default_value_t = DistanceArg::BrayCurtis)]
-    pub distance: DistanceArg,
+    #[arg(long, value_parser = distance_parser(), default_value = "bray-curtis")]
+    pub distance: Distance,
     /// Transform before the combined dissimilarity.
-    #[arg(long, value_enum, default_value_t = TransformArg::Sqrt)]
-    pub transform: TransformArg,
+    #[arg(long, value_parser = transform_parser(), default_value = "sqrt")]
+    pub transform: Transform,
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,

@@ -14,7 +14,7 @@ use anyhow::Context;
 use serde_json::Value;
 
 use super::FormatArg;
-use super::common::{DistanceArg, DistanceArgs, RunArgs, TransformArg};
+use super::common::{DistanceArgs, RunArgs};
 use super::common::{Periods, parse_periods};
 use super::ordinate::{self, MethodArg, Ordination, write_new_file};
 use super::selection::{SelectionArgs, flags_of};
@@ -84,8 +84,8 @@ pub fn ordinate_args(
         plot: None,
         force: false,
         distance: DistanceArgs {
-            distance: DistanceArg::BrayCurtis,
-            transform: TransformArg::None,
+            distance: crate::analysis::dissimilarity::Distance::BrayCurtis,
+            transform: crate::analysis::transform::Transform::None,
         },
         run: run.clone(),
     }

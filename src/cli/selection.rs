@@ -8,6 +8,7 @@ use clap::ValueEnum;
 use crate::matrix::assemble::assemble;
 use crate::matrix::{CountMatrix, Unit};
 use crate::store::{Selection, Store};
+use crate::workflow::{self, Prepared};
 
 /// What one row of the matrix is (command-line spelling of [`Unit`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -145,20 +146,27 @@ impl SelectionArgs {
     /// # Errors
     /// An unknown saved selection; an invalid flag value.
     pub fn resolve(&self, store: &Store) -> anyhow::Result<Selection> {
-        let explicit = self.explicit();
-        let mut sel = match &self.selection {
-            Some(name) => {
-                let saved = store
-                    .selection(name)
-                    .with_context(|| format!("loading saved selection '{name}'"))?;
-                Selection::merge(&saved, &explicit)
+        workflow::resolve(store, self.selection.as_deref(), &self.explicit()).with_context(|| {
+            match &self.selection {
+                Some(name) => format!("resolving the selection (saved selection '{name}')"),
+                None => "resolving the selection".to_string(),
             }
-            None => explicit,
-        };
-        sel.validate()?;
-        sel.unit.get_or_insert(Unit::Event);
-        Ok(sel)
+        })
     }
+}
+
+/// Resolve the SELECTION flags and assemble their matrix, printing the
+/// assembly notes on stderr.
+///
+/// # Errors
+/// As [`SelectionArgs::resolve`] and [`workflow::prepare`].
+pub fn prepare(store: &Store, args: &SelectionArgs) -> anyhow::Result<Prepared> {
+    let sel = args.resolve(store)?;
+    let prepared = workflow::prepare(store, &sel)?;
+    for n in &prepared.notes {
+        super::note(n);
+    }
+    Ok(prepared)
 }
 
 /// Assemble the count matrix of a resolved selection, printing its notes on stderr.

@@ -22,7 +22,7 @@ use crate::report::format::{new_table, num, opt_num, write_json, write_table};
 use crate::store::{Selection, Store};
 
 use super::FormatArg;
-use super::common::{DistanceArg, RunArgs, TransformArg, store_run_dated};
+use super::common::{RunArgs, distance_parser, transform_parser, store_run_dated};
 use super::selection::{SelectionArgs, load_matrix};
 
 /// What one period is.
@@ -69,11 +69,11 @@ pub struct Args {
     #[arg(long, value_enum, default_value_t = ShapeDistanceArg::Hellinger)]
     pub shape_distance: ShapeDistanceArg,
     /// Combined dissimilarity, split into size and shape parts per period.
-    #[arg(long, value_enum, default_value_t = DistanceArg::BrayCurtis)]
-    pub distance: DistanceArg,
+    #[arg(long, value_parser = distance_parser(), default_value = "bray-curtis")]
+    pub distance: Distance,
     /// Transform applied before the combined dissimilarity.
-    #[arg(long, value_enum, default_value_t = TransformArg::Sqrt)]
-    pub transform: TransformArg,
+    #[arg(long, value_parser = transform_parser(), default_value = "sqrt")]
+    pub transform: Transform,
     /// Periods (and baselines) with fewer samples are listed without summaries.
     #[arg(long, value_name = "N", default_value_t = 3)]
     pub min_samples: usize,

@@ -119,6 +119,37 @@ pub const BUILTIN_FIELDS: &[&str] = &[
 ];
 
 impl CountMatrix {
+    /// The rows `idx` (in that order), every taxon kept, notes kept.
+    pub fn select_rows(&self, idx: &[usize]) -> CountMatrix {
+        CountMatrix {
+            samples: idx.iter().map(|&i| self.samples[i].clone()).collect(),
+            taxa: self.taxa.clone(),
+            values: DMatrix::from_fn(idx.len(), self.values.ncols(), |i, j| {
+                self.values[(idx[i], j)]
+            }),
+            notes: self.notes.clone(),
+        }
+    }
+
+    /// The matrix without taxa whose column total is zero, and how many were dropped
+    /// (a subset of rows often leaves taxa that were never seen in it; CA and CCA
+    /// need none, and a per-taxon table should not list them).
+    pub fn drop_empty_taxa(&self) -> (CountMatrix, usize) {
+        let keep: Vec<usize> = (0..self.values.ncols())
+            .filter(|&j| self.values.column(j).sum() > 0.0)
+            .collect();
+        let dropped = self.values.ncols() - keep.len();
+        let m = CountMatrix {
+            samples: self.samples.clone(),
+            taxa: keep.iter().map(|&j| self.taxa[j].clone()).collect(),
+            values: DMatrix::from_fn(self.values.nrows(), keep.len(), |i, j| {
+                self.values[(i, keep[j])]
+            }),
+            notes: self.notes.clone(),
+        };
+        (m, dropped)
+    }
+
     /// Row totals (sample sizes).
     pub fn totals(&self) -> Vec<f64> {
         (0..self.values.nrows())

@@ -61,3 +61,65 @@ pub fn new_table(header: &[&str]) -> comfy_table::Table {
 pub fn write_table(out: &mut dyn Write, table: &comfy_table::Table) -> std::io::Result<()> {
     writeln!(out, "{table}")
 }
+
+/// Shown in tables where a number could not be computed.
+pub const MISSING: &str = "—";
+
+/// A permutation p-value for people: the one p-value formatter of tables,
+/// reports and verdicts. It carries as many decimals as the smallest attainable
+/// value `1/(P+1)` of `permutations` permutations needs (at least three), so a
+/// p-value is never rounded to zero and never printed in scientific notation;
+/// [`MISSING`] when it was not computed.
+pub fn fmt_p(p: f64, permutations: usize) -> String {
+    if !p.is_finite() {
+        return MISSING.to_string();
+    }
+    let digits = ((permutations as f64 + 1.0).log10().ceil() as usize).clamp(3, 12);
+    format!("{p:.digits$}")
+}
+
+/// A statistic for people: six significant digits, scientific notation only
+/// for magnitudes below 1e-4 or above 1e8; [`MISSING`] when not computed.
+pub fn fmt_num(v: f64) -> String {
+    if !v.is_finite() {
+        return if v.is_nan() {
+            MISSING.to_string()
+        } else {
+            "inf".to_string()
+        };
+    }
+    if v == 0.0 {
+        return "0".to_string();
+    }
+    let mag = v.abs().log10().floor() as i32;
+    if !(-4..=8).contains(&mag) {
+        return format!("{v:.5e}");
+    }
+    let decimals = (5 - mag).max(0) as usize;
+    format!("{v:.decimals$}")
+}
+
+/// A number for CSV: shortest round-trip form, empty when not computed.
+pub fn csv_num(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v}")
+    } else {
+        String::new()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn p_values_show_the_smallest_attainable_value() {
+        // 1/(9999+1) = 0.0001 needs 4 decimals.
+        assert_eq!(fmt_p(1.0 / 10000.0, 9999), "0.0001");
+        assert_eq!(fmt_p(0.05, 19), "0.050");
+        assert_eq!(fmt_p(f64::NAN, 99), MISSING);
+        assert_eq!(fmt_num(18.281987915), "18.2820");
+        assert_eq!(fmt_num(0.000123456), "0.000123456");
+        assert_eq!(csv_num(f64::NAN), "");
+    }
+}

@@ -4,5 +4,6 @@
 pub mod format;
 pub mod html;
 pub mod svg;
+pub mod text;
 
 pub use format::OutputFormat;

@@ -90,36 +90,49 @@ impl Store {
     /// # Errors
     /// SQLite errors.
     pub fn save_run(&mut self, run: &NewRun) -> Result<i64> {
+        Ok(self.save_runs(std::slice::from_ref(run))?[0])
+    }
+
+    /// Store several runs (one command's) in one transaction: all or none.
+    /// Returns their ids in order.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn save_runs(&mut self, runs: &[NewRun]) -> Result<Vec<i64>> {
         let now = chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true);
         let tx = self.conn_mut().transaction()?;
-        tx.execute(
-            "INSERT INTO run (kind, selection, parameters, seed, fingerprint, tool_version, \
-             created_at, period_start, period_end, result) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
-            params![
-                run.kind,
-                run.selection.to_string(),
-                run.parameters.to_string(),
-                seed_to_sql(run.seed),
-                run.fingerprint,
-                crate::VERSION,
-                now,
-                run.period_start,
-                run.period_end,
-                run.result.to_string(),
-            ],
-        )?;
-        let id = tx.last_insert_rowid();
+        let mut ids = Vec::with_capacity(runs.len());
         {
-            let mut stmt =
+            let mut run_stmt = tx.prepare(
+                "INSERT INTO run (kind, selection, parameters, seed, fingerprint, tool_version, \
+                 created_at, period_start, period_end, result) \
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
+            )?;
+            let mut value_stmt =
                 tx.prepare("INSERT INTO run_value (run_id, name, value) VALUES (?1, ?2, ?3)")?;
-            for (name, value) in &run.values {
-                let v = value.filter(|v| v.is_finite());
-                stmt.execute(params![id, name, v])?;
+            for run in runs {
+                run_stmt.execute(params![
+                    run.kind,
+                    run.selection.to_string(),
+                    run.parameters.to_string(),
+                    seed_to_sql(run.seed),
+                    run.fingerprint,
+                    crate::VERSION,
+                    now,
+                    run.period_start,
+                    run.period_end,
+                    run.result.to_string(),
+                ])?;
+                let id = tx.last_insert_rowid();
+                for (name, value) in &run.values {
+                    let v = value.filter(|v| v.is_finite());
+                    value_stmt.execute(params![id, name, v])?;
+                }
+                ids.push(id);
             }
         }
         tx.commit()?;
-        Ok(id)
+        Ok(ids)
     }
 
     /// Load one run with its values.

@@ -1,0 +1,32 @@
+//! Tables and CSV of typed outcomes, one file per analysis. Renderers take an
+//! outcome and `&mut dyn Write`; they know nothing of the store or the command
+//! line. JSON needs no renderer: it is the outcome's own serialisation.
+
+use std::io::{self, Write};
+
+pub mod dispersion;
+pub mod permanova;
+
+/// An outcome that can be printed as a table for people and as CSV for scripts.
+pub trait Render {
+    /// The table (and the lines around it) for people.
+    ///
+    /// # Errors
+    /// I/O errors.
+    fn table(&self, out: &mut dyn Write) -> io::Result<()>;
+
+    /// The CSV layout documented for the command.
+    ///
+    /// # Errors
+    /// I/O errors.
+    fn csv(&self, out: &mut dyn Write) -> io::Result<()>;
+}
+
+/// The `name n, name n, …` line of group sizes.
+pub fn groups_line<'a>(groups: impl IntoIterator<Item = (&'a str, usize)>) -> String {
+    groups
+        .into_iter()
+        .map(|(l, n)| format!("{l} {n}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}

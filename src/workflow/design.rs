@@ -1,0 +1,242 @@
+//! The one rule for each piece of a design: groups from a field, strata and the
+//! exchangeability scheme, numeric covariates, year ranges and periods. Every
+//! analysis takes its design from here, so two commands given the same flags
+//! always test on the same samples under the same scheme.
+
+use serde::{Deserialize, Serialize};
+
+use crate::analysis::dissimilarity::{Distance, DistanceMatrix};
+use crate::analysis::linear_model::Grouping;
+use crate::analysis::transform::Transform;
+use crate::analysis::permutation::Scheme;
+use crate::matrix::CountMatrix;
+
+use super::{Result, WorkflowError};
+
+/// The grouping of the rows of `m` by `field`; `option` names the flag in errors.
+///
+/// # Errors
+/// An unknown field (the message lists the available ones) or a field not
+/// defined for some row.
+pub fn grouping(m: &CountMatrix, field: &str, option: &'static str) -> Result<Grouping> {
+    let labels = m
+        .field_values(field)
+        .map_err(|source| WorkflowError::Field {
+            option,
+            field: field.to_string(),
+            source,
+        })?;
+    Ok(Grouping::from_labels(&labels))
+}
+
+/// The values of a numeric field, one per row of `m`.
+///
+/// # Errors
+/// An unknown field, or a value that is not a number.
+pub fn numeric(m: &CountMatrix, field: &str, option: &'static str) -> Result<Vec<f64>> {
+    m.field_numeric(field)
+        .map_err(|source| WorkflowError::Field {
+            option,
+            field: field.to_string(),
+            source,
+        })
+}
+
+/// Numeric covariates by name, refusing a name given twice or equal to `factor`.
+///
+/// # Errors
+/// As [`numeric`]; [`WorkflowError::AlreadyInModel`].
+pub fn covariates(
+    m: &CountMatrix,
+    names: &[String],
+    factor: Option<&str>,
+) -> Result<Vec<(String, Vec<f64>)>> {
+    let mut out: Vec<(String, Vec<f64>)> = Vec::with_capacity(names.len());
+    for c in names {
+        if Some(c.as_str()) == factor || out.iter().any(|(n, _)| n == c) {
+            return Err(WorkflowError::AlreadyInModel {
+                option: "--covariate",
+                field: c.clone(),
+            });
+        }
+        out.push((c.clone(), numeric(m, c, "--covariate")?));
+    }
+    Ok(out)
+}
+
+/// The exchangeability scheme: free without `strata`, otherwise samples move
+/// only within the levels of the `strata` field.
+///
+/// When a factor is under test (`factor`), the strata must leave it room to
+/// vary: a stratum field equal to the factor, or one in which every stratum
+/// holds a single level of the factor, admits only the observed arrangement,
+/// so its p-value would be 1 whatever the data. Both are refused.
+///
+/// # Errors
+/// As [`grouping`]; [`WorkflowError::StrataIsFactor`]; [`WorkflowError::Refused`]
+/// when the factor cannot vary within any stratum.
+pub fn scheme(m: &CountMatrix, strata: Option<&str>, factor: Option<&str>) -> Result<Scheme> {
+    let Some(f) = strata else {
+        return Ok(Scheme::Free);
+    };
+    if Some(f) == factor {
+        return Err(WorkflowError::StrataIsFactor {
+            field: f.to_string(),
+        });
+    }
+    let s = grouping(m, f, "--strata")?;
+    if let Some(by) = factor {
+        let g = grouping(m, by, "--by")?;
+        let varies = (0..s.n_groups()).any(|k| {
+            let mut levels = s
+                .codes()
+                .iter()
+                .zip(g.codes())
+                .filter(|(sc, _)| **sc == k)
+                .map(|(_, gc)| *gc);
+            let first = levels.next();
+            levels.any(|l| Some(l) != first)
+        });
+        if !varies {
+            return Err(WorkflowError::Refused(format!(
+                "--strata {f}: every stratum holds a single level of {by}, so permutations \
+                 within strata cannot change any sample's group and the test has one possible \
+                 arrangement; drop --strata {f}, or test {by} with a scheme that moves whole {f} units"
+            )));
+        }
+    }
+    Ok(Scheme::WithinStrata(s.codes().to_vec()))
+}
+
+/// A dissimilarity and the transform applied before it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct DistanceSpec {
+    /// The dissimilarity.
+    pub distance: Distance,
+    /// The transform applied to the counts first.
+    pub transform: Transform,
+}
+
+impl Default for DistanceSpec {
+    fn default() -> Self {
+        DistanceSpec {
+            distance: Distance::BrayCurtis,
+            transform: Transform::None,
+        }
+    }
+}
+
+impl DistanceSpec {
+    /// The dissimilarities between the rows of `m` (transform first).
+    ///
+    /// # Errors
+    /// The kernel's refusals (negative values, empty samples where the
+    /// coefficient needs a total…), with the distance and transform named and
+    /// rows given by their labels.
+    pub fn compute(&self, m: &CountMatrix) -> Result<DistanceMatrix> {
+        self.distance
+            .compute_after(self.transform, &m.values)
+            .map_err(|e| {
+                WorkflowError::kernel(
+                    format!(
+                        "computing {} dissimilarities after transform '{}'",
+                        self.distance.name(),
+                        self.transform.name()
+                    ),
+                    e,
+                    m,
+                )
+            })
+    }
+}
+
+/// Parse a year range `A..B` (or a single year `A`), inclusive.
+///
+/// # Errors
+/// Text that is not whole years; a first year after the last.
+pub fn parse_years(s: &str) -> std::result::Result<(i32, i32), String> {
+    let num = |t: &str| {
+        t.trim()
+            .parse::<i32>()
+            .map_err(|_| format!("expected years A..B, got '{s}'"))
+    };
+    let (a, b) = match s.split_once("..") {
+        Some((a, b)) => (num(a)?, num(b)?),
+        None => (num(s)?, num(s)?),
+    };
+    if a > b {
+        return Err(format!("the first year is after the last in '{s}'"));
+    }
+    Ok((a, b))
+}
+
+/// Year ranges that define the field `period` (`2008..2015,2016..2025`): the one
+/// periods rule of every command that takes `--periods`. Rows outside every
+/// range are left out by [`CountMatrix::with_periods`], with a note.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Periods(pub Vec<(i32, i32)>);
+
+impl Periods {
+    /// Label of the range holding `year`, e.g. `2008-2015`.
+    pub fn label_of(&self, year: i32) -> Option<String> {
+        self.0
+            .iter()
+            .find(|(a, b)| (*a..=*b).contains(&year))
+            .map(|(a, b)| CountMatrix::period_label((*a, *b)))
+    }
+
+    /// The matrix with the field `period` defined and rows outside every range removed.
+    ///
+    /// # Errors
+    /// Overlapping or reversed ranges; no row inside any range.
+    pub fn apply(&self, m: &CountMatrix) -> Result<CountMatrix> {
+        Ok(m.with_periods(&self.0)?)
+    }
+}
+
+impl std::str::FromStr for Periods {
+    type Err = String;
+
+    /// Parse `A..B,C..D` into non-overlapping ranges.
+    fn from_str(s: &str) -> std::result::Result<Self, String> {
+        let mut out: Vec<(i32, i32)> = Vec::new();
+        for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
+            let (a, b) = parse_years(part)?;
+            if out.iter().any(|(c, d)| a <= *d && *c <= b) {
+                return Err(format!("period '{part}' overlaps another"));
+            }
+            out.push((a, b));
+        }
+        if out.is_empty() {
+            return Err("no period given".into());
+        }
+        Ok(Periods(out))
+    }
+}
+
+/// Parse `--periods` text (for clap's `value_parser`).
+///
+/// # Errors
+/// As [`Periods::from_str`](std::str::FromStr).
+pub fn parse_periods(s: &str) -> std::result::Result<Periods, String> {
+    s.parse()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn periods_and_year_ranges_parse_by_one_rule() {
+        assert_eq!(
+            parse_periods("2008..2015,2016..2025").unwrap(),
+            Periods(vec![(2008, 2015), (2016, 2025)])
+        );
+        assert_eq!(parse_periods("2010").unwrap(), Periods(vec![(2010, 2010)]));
+        assert!(parse_periods("2015..2008").is_err());
+        assert!(parse_periods("early,late").is_err());
+        assert!(parse_periods("2008..2012,2010..2014").is_err());
+        assert_eq!(parse_years(" 2016 .. 2025 ").unwrap(), (2016, 2025));
+        assert!(parse_years("2016..").is_err());
+    }
+}
