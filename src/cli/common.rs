@@ -10,11 +10,11 @@ use clap::builder::TypedValueParser;
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
+use crate::report::text::Render;
 use crate::store::Store;
 use crate::store::query::Selection;
 use crate::store::runs::NewRun;
-use crate::report::text::Render;
-use crate::workflow::design::DistanceSpec;
+use crate::workflow::design::{DistanceSpec, ShapeDistance};
 use crate::workflow::{Analysis, Prepared, runs};
 
 use super::FormatArg;
@@ -53,14 +53,26 @@ impl RunArgs {
 /// clap's parser of `--distance`: the names of [`Distance::ALL`], so the
 /// command line can never offer a coefficient the kernels lack, or miss one.
 pub fn distance_parser() -> impl clap::builder::TypedValueParser<Value = Distance> {
-    clap::builder::PossibleValuesParser::new(Distance::ALL.map(|d| d.name()))
-        .map(|s| Distance::from_name(&s).expect("invariant: every possible value is a distance name"))
+    clap::builder::PossibleValuesParser::new(Distance::ALL.map(|d| d.name())).map(|s| {
+        Distance::from_name(&s).expect("invariant: every possible value is a distance name")
+    })
+}
+
+/// clap's parser of a shape-only dissimilarity (`--shape-distance`).
+pub fn shape_distance_parser() -> impl clap::builder::TypedValueParser<Value = ShapeDistance> {
+    clap::builder::PossibleValuesParser::new(ShapeDistance::ALL.map(|d| d.name())).map(|s| {
+        ShapeDistance::ALL
+            .into_iter()
+            .find(|d| d.name() == s)
+            .expect("invariant: every possible value is a shape distance name")
+    })
 }
 
 /// clap's parser of `--transform`: the names of [`Transform::ALL`].
 pub fn transform_parser() -> impl clap::builder::TypedValueParser<Value = Transform> {
-    clap::builder::PossibleValuesParser::new(Transform::ALL.map(|t| t.name()))
-        .map(|s| Transform::from_name(&s).expect("invariant: every possible value is a transform name"))
+    clap::builder::PossibleValuesParser::new(Transform::ALL.map(|t| t.name())).map(|s| {
+        Transform::from_name(&s).expect("invariant: every possible value is a transform name")
+    })
 }
 
 /// `--distance` and `--transform`.

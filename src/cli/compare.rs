@@ -19,7 +19,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::FormatArg;
-use super::common::{RunArgs, distance_parser, transform_parser, store_run};
+use super::common::{RunArgs, distance_parser, store_run, transform_parser};
 use super::note;
 use super::partition::{CAUTION, StoredValues, scheme_of};
 use super::selection::{SelectionArgs, load_matrix};

@@ -22,7 +22,7 @@ use crate::report::format::{new_table, num, opt_num, write_json, write_table};
 use crate::store::{Selection, Store};
 
 use super::FormatArg;
-use super::common::{RunArgs, distance_parser, transform_parser, store_run_dated};
+use super::common::{RunArgs, distance_parser, store_run_dated, transform_parser};
 use super::selection::{SelectionArgs, load_matrix};
 
 /// What one period is.

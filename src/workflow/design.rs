@@ -7,8 +7,8 @@ use serde::{Deserialize, Serialize};
 
 use crate::analysis::dissimilarity::{Distance, DistanceMatrix};
 use crate::analysis::linear_model::Grouping;
-use crate::analysis::transform::Transform;
 use crate::analysis::permutation::Scheme;
+use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
 
 use super::{Result, WorkflowError};
@@ -147,6 +147,42 @@ impl DistanceSpec {
                     m,
                 )
             })
+    }
+}
+
+/// A shape-only dissimilarity: the one choice of `compare`, `trend` and the report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum ShapeDistance {
+    /// Hellinger: exactly blind to sample totals (Legendre & Gallagher 2001,
+    /// Oecologia 129:271–280).
+    #[default]
+    Hellinger,
+    /// Chi-square: blind to totals up to the column masses of the data set.
+    ChiSquare,
+}
+
+impl ShapeDistance {
+    /// Both choices, in documentation order.
+    pub const ALL: [ShapeDistance; 2] = [ShapeDistance::Hellinger, ShapeDistance::ChiSquare];
+
+    /// The dissimilarity.
+    pub fn distance(self) -> Distance {
+        match self {
+            ShapeDistance::Hellinger => Distance::Hellinger,
+            ShapeDistance::ChiSquare => Distance::ChiSquare,
+        }
+    }
+
+    /// Stable name (`hellinger`, `chi-square`).
+    pub fn name(self) -> &'static str {
+        self.distance().name()
+    }
+}
+
+impl From<ShapeDistance> for Distance {
+    fn from(s: ShapeDistance) -> Self {
+        s.distance()
     }
 }
 

@@ -64,10 +64,7 @@ impl GroupSize {
         g.levels()
             .iter()
             .zip(g.sizes())
-            .map(|(l, n)| GroupSize {
-                name: l.clone(),
-                n,
-            })
+            .map(|(l, n)| GroupSize { name: l.clone(), n })
             .collect()
     }
 }

@@ -34,7 +34,11 @@ impl<'a> ToSave<'a> {
     ///
     /// # Errors
     /// Serialisation errors.
-    pub fn new<S: Analysis>(prepared: &'a Prepared, spec: &S, outcome: &S::Outcome) -> Result<Self> {
+    pub fn new<S: Analysis>(
+        prepared: &'a Prepared,
+        spec: &S,
+        outcome: &S::Outcome,
+    ) -> Result<Self> {
         Ok(ToSave {
             prepared,
             kind: S::KIND,
