@@ -61,13 +61,13 @@ pub const EMPTY_EVENT_YEAR: i32 = 2017;
 pub const UPPER_LONGER_KICKS_FROM: i32 = 2020;
 
 /// The committed `demo-data/sites.csv`.
-pub const SITES_CSV: &str = include_str!("../demo-data/sites.csv");
+pub const SITES_CSV: &str = include_str!("../../demo-data/sites.csv");
 /// The committed `demo-data/protocols.csv`.
-pub const PROTOCOLS_CSV: &str = include_str!("../demo-data/protocols.csv");
+pub const PROTOCOLS_CSV: &str = include_str!("../../demo-data/protocols.csv");
 /// The committed `demo-data/taxa.csv`.
-pub const TAXA_CSV: &str = include_str!("../demo-data/taxa.csv");
+pub const TAXA_CSV: &str = include_str!("../../demo-data/taxa.csv");
 /// The committed `demo-data/records.csv`.
-pub const RECORDS_CSV: &str = include_str!("../demo-data/records.csv");
+pub const RECORDS_CSV: &str = include_str!("../../demo-data/records.csv");
 
 /// The four demo CSV files as text.
 #[derive(Debug, Clone, PartialEq, Eq)]
