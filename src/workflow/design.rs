@@ -261,6 +261,63 @@ pub fn parse_periods(s: &str) -> std::result::Result<Periods, String> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::matrix::{SampleMeta, TaxonMeta};
+    use nalgebra::DMatrix;
+
+    /// Rows at `sites` (site code, treatment), one taxon.
+    fn plots(rows: &[(&str, &str)]) -> CountMatrix {
+        let samples = rows
+            .iter()
+            .enumerate()
+            .map(|(i, (site, treatment))| SampleMeta {
+                label: format!("{site}/{i}"),
+                site: site.to_string(),
+                attributes: [("treatment".to_string(), treatment.to_string())].into(),
+                year: 2000 + i as i32,
+                last_year: 2000 + i as i32,
+                season: None,
+                first_date: String::new(),
+                last_date: String::new(),
+                events_pooled: 1,
+                effort: 1.0,
+                effort_unit: "minutes".into(),
+                protocol: "kick".into(),
+            })
+            .collect();
+        CountMatrix {
+            samples,
+            taxa: vec![TaxonMeta {
+                name: "Baetis".into(),
+                rank: "genus".into(),
+            }],
+            values: DMatrix::from_element(rows.len(), 1, 1.0),
+            notes: vec![],
+        }
+    }
+
+    #[test]
+    fn strata_that_leave_the_factor_no_room_are_refused() {
+        // A site-level treatment is constant within each site: permuting within
+        // sites can only give back the observed labelling (one arrangement).
+        let m = plots(&[("A", "control"), ("A", "control"), ("B", "fenced"), ("B", "fenced")]);
+        let err = scheme(&m, Some("site"), Some("treatment")).unwrap_err();
+        assert!(err.to_string().contains("one possible"), "{err}");
+        assert!(matches!(
+            scheme(&m, Some("treatment"), Some("treatment")),
+            Err(WorkflowError::StrataIsFactor { .. })
+        ));
+        // A factor that varies within at least one stratum can be tested.
+        let m = plots(&[("A", "control"), ("A", "fenced"), ("B", "fenced"), ("B", "fenced")]);
+        assert!(matches!(
+            scheme(&m, Some("site"), Some("treatment")),
+            Ok(Scheme::WithinStrata(_))
+        ));
+        assert_eq!(scheme(&m, None, Some("treatment")).unwrap(), Scheme::Free);
+        assert!(matches!(
+            scheme(&m, Some("reach"), None),
+            Err(WorkflowError::Field { option: "--strata", .. })
+        ));
+    }
 
     #[test]
     fn periods_and_year_ranges_parse_by_one_rule() {
