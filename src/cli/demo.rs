@@ -9,8 +9,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, bail};
 
 use super::common::Periods;
-use super::common::{RunArgs, store_run};
-use super::ordinate::{self, MethodArg};
+use super::common::RunArgs;
 use super::report;
 use super::selection::{SelectionArgs, UnitArg, flags_of};
 use crate::demo::DemoFiles;
@@ -18,6 +17,9 @@ use crate::report::html::{self, Part};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
 use crate::store::Store;
 use crate::store::import::{ImportKind, ImportOptions, import_bytes};
+use crate::workflow::design::DistanceSpec;
+use crate::workflow::ordinate::{self, Method};
+use crate::workflow::{self, Analysis, Silent, runs};
 
 /// Arguments of `tally demo`.
 #[derive(Debug, clap::Args)]
@@ -153,54 +155,39 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             site_where: vec![("reach".into(), reach.into())],
             ..SelectionArgs::default()
         };
-        let ca_args = report::ordinate_args(
-            &sel,
-            MethodArg::Ca,
-            None,
-            Some(periods.clone()),
-            vec![],
-            &run,
-        );
-        let ca = ordinate::compute(store, &ca_args)?;
-        let cca_args = report::ordinate_args(
-            &sel,
-            MethodArg::Cca,
-            None,
-            Some(periods.clone()),
-            vec!["period".into()],
-            &run,
-        );
-        let cca = ordinate::compute(store, &cca_args)?;
-        let test = cca
-            .test
-            .as_ref()
-            .context("invariant: a CCA carries its test")?;
-        let values = vec![
-            (
-                "constrained_share".to_string(),
-                cca.json["constrained_share"].as_f64(),
-            ),
-            ("pseudo_f".to_string(), Some(test.pseudo_f)),
-            ("p_value".to_string(), Some(test.permutation.p_value)),
-        ];
-        let params = serde_json::json!({"method": "cca", "constraints": ["period"],
-            "periods": DEMO_PERIODS.to_vec(), "permutations": DEMO_PERMUTATIONS});
-        let run_id = store_run(
-            store,
-            &run,
-            "ordinate",
-            &cca.selection,
-            &cca.matrix,
-            params,
-            cca.seed,
-            &cca.json,
-            values,
-        )?;
+        let prepared = workflow::prepare(store, &sel.resolve(store)?)?;
+        // Samples by period (CA), and composition against the period (CCA).
+        let ca_spec = ordinate::Spec {
+            method: Method::Ca,
+            by: None,
+            periods: Some(periods.clone()),
+            constraints: Vec::new(),
+            axes: 2,
+            distance: DistanceSpec::default(),
+            permutations: DEMO_PERMUTATIONS,
+            seed: None,
+        };
+        let ca = ca_spec.run(&prepared, &Silent)?;
+        let cca_spec = ordinate::Spec {
+            method: Method::Cca,
+            constraints: vec!["period".into()],
+            seed: Some(DEMO_SEED),
+            ..ca_spec
+        };
+        let cca = cca_spec.run(&prepared, &Silent)?;
+        let test = &cca.cca().context("invariant: a CCA carries its test")?.test;
+        let run_id = if run.no_store {
+            None
+        } else {
+            runs::save(store, &[runs::ToSave::new(&prepared, &cca_spec, &cca)?])?
+                .first()
+                .copied()
+        };
         let label = format!("{reach} reach");
         if let Some(id) = run_id {
             run_ids.push((format!("{label}: composition test"), id));
         }
-        let flags = flags_of(&cca.selection);
+        let flags = flags_of(&prepared.selection);
         parameters.push((
             format!("{label}: ordination"),
             format!("tally ordinate {flags} --method ca --periods 2008..2015,2016..2025"),
@@ -214,23 +201,24 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
         {
             parts.push(p);
         }
-        let totals = ca.matrix.totals();
         let mut means = Vec::new();
-        for (g, name) in ca.group_names.iter().enumerate() {
-            let v: Vec<f64> = (0..totals.len())
-                .filter(|&i| ca.group_of[i] == g)
-                .map(|i| totals[i])
+        for (g, group) in ca.groups.iter().enumerate() {
+            let v: Vec<f64> = ca
+                .samples
+                .iter()
+                .filter(|s| s.group_index == g)
+                .map(|s| s.total)
                 .collect();
             means.push(geometric_mean(&v));
             boxes.push(TotalsGroup {
-                name: format!("{reach} {name}"),
+                name: format!("{reach} {}", group.group),
                 values: v,
             });
         }
         reaches.push(ReachFinding {
             reach: reach.to_string(),
             totals_ratio: means[1] / means[0],
-            composition_p: test.permutation.p_value,
+            composition_p: test.p_value,
             run_id,
             verdict: String::new(),
             compare_run_id: None,

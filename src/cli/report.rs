@@ -14,13 +14,16 @@ use anyhow::Context;
 use serde_json::Value;
 
 use super::FormatArg;
-use super::common::{DistanceArgs, RunArgs};
+use super::common::RunArgs;
 use super::common::{Periods, parse_periods};
-use super::ordinate::{self, MethodArg, Ordination, write_new_file};
+use super::ordinate::write_new_file;
 use super::selection::{SelectionArgs, flags_of};
 use crate::report::html::{self, Labelled, OrdinationPart, Part, ReportInput};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
 use crate::store::Store;
+use crate::workflow::design::DistanceSpec;
+use crate::workflow::ordinate::{self, Method};
+use crate::workflow::{self, Analysis, Silent};
 
 /// Arguments of `tally report`.
 #[derive(Debug, Clone, clap::Args)]
@@ -65,77 +68,46 @@ pub fn summary_json(store: &mut Store) -> anyhow::Result<Value> {
     Ok(serde_json::from_slice(&buf)?)
 }
 
-/// Ordination arguments for a report: `method` on `selection`, grouped by `by`.
-pub fn ordinate_args(
-    selection: &SelectionArgs,
-    method: MethodArg,
-    by: Option<String>,
-    periods: Option<Periods>,
-    constraints: Vec<String>,
-    run: &RunArgs,
-) -> ordinate::Args {
-    ordinate::Args {
-        selection: selection.clone(),
-        method,
-        by,
-        periods,
-        constraints,
-        axes: 2,
-        plot: None,
-        force: false,
-        distance: DistanceArgs {
-            distance: crate::analysis::dissimilarity::Distance::BrayCurtis,
-            transform: crate::analysis::transform::Transform::None,
-        },
-        run: run.clone(),
-    }
-}
-
-/// The report part of a computed ordination (`None` without two axes).
+/// The report part of an ordination outcome, with the CCA `test` shown under
+/// its plot (`None` without two axes).
 pub fn ordination_part(
-    o: &Ordination,
+    o: &ordinate::Outcome,
     label: &str,
-    test: Option<&Ordination>,
+    test: Option<&ordinate::Outcome>,
 ) -> Option<OrdinationPart> {
     Some(OrdinationPart {
         label: label.to_string(),
-        plot: o.plot.clone()?,
-        result: o.json.clone(),
-        test: test.map(|t| t.json.clone()),
+        plot: crate::report::text::ordinate::plot(o)?,
+        result: o.clone(),
+        test: test.cloned(),
     })
 }
 
 /// Box plots of the sample totals of an ordination's matrix, per group.
-pub fn totals_part(o: &Ordination, title: &str) -> Part<TotalsPlot> {
-    let totals = o.matrix.totals();
+pub fn totals_part(o: &ordinate::Outcome, title: &str) -> Part<TotalsPlot> {
     let groups = o
-        .group_names
+        .groups
         .iter()
         .enumerate()
-        .map(|(g, name)| TotalsGroup {
-            name: name.clone(),
-            values: (0..totals.len())
-                .filter(|&i| o.group_of[i] == g)
-                .map(|i| totals[i])
+        .map(|(g, group)| TotalsGroup {
+            name: group.group.clone(),
+            values: o
+                .samples
+                .iter()
+                .filter(|s| s.group_index == g)
+                .map(|s| s.total)
                 .collect(),
         })
         .collect();
-    let measure = if o.selection.per_effort {
-        let unit = o
-            .matrix
-            .samples
-            .first()
-            .map(|s| s.effort_unit.clone())
-            .unwrap_or_default();
-        TotalsMeasure::PerEffort {
+    let measure = match &o.effort_unit {
+        Some(unit) => TotalsMeasure::PerEffort {
             unit: unit.trim_end_matches('s').to_string(),
-        }
-    } else {
-        TotalsMeasure::Counts
+        },
+        None => TotalsMeasure::Counts,
     };
     Part::Done(TotalsPlot {
         title: title.to_string(),
-        subtitle: ordinate::describe_selection(&o.selection, &o.matrix),
+        subtitle: o.selection_text.clone(),
         measure,
         groups,
     })
@@ -177,20 +149,24 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
         .clone()
         .or_else(|| args.split_by.clone())
         .context("--by or --split-by is required")?;
-    let o = ordinate::compute(
-        store,
-        &ordinate_args(
-            &args.selection,
-            MethodArg::Ca,
-            Some(field.clone()),
-            args.periods.clone(),
-            vec![],
-            &args.run,
-        ),
-    )
-    .context("ordination for the report")?;
-    let selection_text = ordinate::describe_selection(&o.selection, &o.matrix);
-    let flags = flags_of(&o.selection);
+    let prepared = workflow::prepare(store, &args.selection.resolve(store)?)?;
+    // The periods of the ordination are applied by the one periods rule
+    // (`Periods::apply`), as in the comparison.
+    let ca = ordinate::Spec {
+        method: Method::Ca,
+        by: Some(field.clone()),
+        periods: args.periods.clone(),
+        constraints: Vec::new(),
+        axes: 2,
+        distance: DistanceSpec::default(),
+        permutations: args.run.permutations,
+        seed: None,
+    };
+    let o = ca
+        .run(&prepared, &Silent)
+        .context("ordination for the report")?;
+    let selection_text = o.selection_text.clone();
+    let flags = flags_of(&prepared.selection);
     let periods = args
         .periods
         .as_ref()

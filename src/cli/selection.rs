@@ -182,44 +182,7 @@ pub fn load_matrix(store: &Store, selection: &Selection) -> anyhow::Result<Count
     Ok(matrix)
 }
 
-/// A selection written back as command-line flags (for listings).
+/// A selection written back as command-line flags (for listings): [`Selection::to_flags`].
 pub fn flags_of(sel: &Selection) -> String {
-    let mut f: Vec<String> = Vec::new();
-    for s in &sel.sites {
-        f.push(format!("--site {s}"));
-    }
-    for (k, v) in &sel.site_where {
-        f.push(format!("--site-where {k}={v}"));
-    }
-    if let Some(d) = &sel.from {
-        f.push(format!("--from {d}"));
-    }
-    if let Some(d) = &sel.to {
-        f.push(format!("--to {d}"));
-    }
-    if let Some((a, b)) = sel.years {
-        f.push(format!("--years {a}..{b}"));
-    }
-    if let Some((a, b)) = sel.months {
-        f.push(format!("--months {a}..{b}"));
-    }
-    if let Some(p) = &sel.protocol {
-        f.push(format!("--protocol {p}"));
-    }
-    if let Some(r) = &sel.rank {
-        f.push(format!("--rank {r}"));
-    }
-    if let Some(n) = sel.min_occurrences {
-        f.push(format!("--min-occurrences {n}"));
-    }
-    if let Some(u) = sel.unit {
-        f.push(format!("--unit {}", u.as_str()));
-    }
-    if sel.per_effort {
-        f.push("--per-effort".into());
-    }
-    if sel.keep_empty {
-        f.push("--keep-empty".into());
-    }
-    f.join(" ")
+    sel.to_flags()
 }

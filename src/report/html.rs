@@ -45,18 +45,18 @@ pub struct Labelled {
     pub value: Value,
 }
 
-/// One ordination: its plot input and the `tally ordinate` JSON.
+/// One ordination: its plot input and the `tally ordinate` outcome.
 #[derive(Debug, Clone, PartialEq)]
 pub struct OrdinationPart {
     /// What the ordination is of (a heading).
     pub label: String,
     /// Plot input (first two axes).
     pub plot: OrdinationPlot,
-    /// The `tally ordinate --format json` object.
-    pub result: Value,
+    /// The ordination.
+    pub result: crate::workflow::ordinate::Outcome,
     /// A separate test of composition against constraints shown under the
-    /// plot (a `tally ordinate --method cca` JSON object), if one was run.
-    pub test: Option<Value>,
+    /// plot (a `tally ordinate --method cca` outcome), if one was run.
+    pub test: Option<crate::workflow::ordinate::Outcome>,
 }
 
 /// Everything the report shows.
@@ -465,14 +465,13 @@ fn glance(out: &mut String, input: &ReportInput) {
     }
     if let Some(os) = input.ordination.done() {
         for o in os {
-            let cca = o.test.as_ref().unwrap_or(&o.result);
-            if let Some(t) = cca.get("test").filter(|t| t.is_object()) {
+            if let Some(c) = o.test.as_ref().unwrap_or(&o.result).cca() {
                 cards.push_str(&format!(
                     "<div class=\"card\"><h3>{}</h3><p>Composition against the constraints (CCA): {:.1}% of the inertia, pseudo-F {}, p = {}</p></div>\n",
                     esc(&o.label),
-                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN),
-                    f(&t["pseudo_f"], 3),
-                    p(&t["p_value"])
+                    100.0 * c.constrained_share,
+                    super::format::fmt_num(c.test.pseudo_f),
+                    super::format::fmt_p(c.test.p_value, c.test.permutations)
                 ));
             }
         }
@@ -704,9 +703,13 @@ fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
             out.push_str(&format!("<h3>{}</h3>\n", esc(&o.label)));
             let mut caption = format!(
                 "Each point is a sample; each ellipse is the 95% confidence region of a group's centre, not of its samples. Axis shares are of the {}.",
-                text_of(&r["share_of"])
+                r.share_of
             );
-            if let Some(s) = r["negative_eigenvalue_share"].as_f64() {
+            if let crate::workflow::ordinate::Fit::Pcoa {
+                negative_eigenvalue_share: s,
+                ..
+            } = r.fit
+            {
                 caption.push_str(&format!(
                     " Negative eigenvalues carry {:.1}% of the absolute eigenvalue sum; the plot shows the positive part only.",
                     100.0 * s
@@ -717,28 +720,24 @@ fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
                 &o.plot.title,
                 &caption,
             ));
-            for cca in std::iter::once(r).chain(o.test.as_ref()) {
-                let Some(t) = cca.get("test").filter(|t| t.is_object()) else {
-                    continue;
-                };
-                let names: Vec<String> = cca["constraints"]
-                    .as_array()
-                    .into_iter()
-                    .flatten()
-                    .map(|c| text_of(&c["field"]))
-                    .collect();
+            for c in std::iter::once(r)
+                .chain(o.test.as_ref())
+                .filter_map(crate::workflow::ordinate::Outcome::cca)
+            {
+                let t = &c.test;
+                let names: Vec<&str> = c.constraints.iter().map(|c| c.field.as_str()).collect();
                 out.push_str(&format!(
                     "<p>CCA test of composition against {}: pseudo-F = {} ({} and {} df), p = {} from {} {} permutations ({}, seed {}). The constraints carry {:.1}% of the total inertia.</p>\n",
                     esc(&names.join(", ")),
-                    f(&t["pseudo_f"], 4),
-                    f(&t["df_constraints"], 0),
-                    f(&t["df_residual"], 0),
-                    p(&t["p_value"]),
-                    f(&t["permutations"], 0),
-                    if t["exact"].as_bool() == Some(true) { "exact" } else { "random" },
-                    esc(&text_of(&t["scheme"])),
-                    esc(&text_of(&t["seed"])),
-                    100.0 * cca["constrained_share"].as_f64().unwrap_or(f64::NAN)
+                    super::format::fmt_num(t.pseudo_f),
+                    t.df_constraints,
+                    t.df_residual,
+                    super::format::fmt_p(t.p_value, t.permutations),
+                    t.permutations,
+                    if t.exact { "exact" } else { "random" },
+                    esc(&t.scheme),
+                    t.seed,
+                    100.0 * c.constrained_share
                 ));
             }
         }

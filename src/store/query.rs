@@ -164,6 +164,49 @@ impl Selection {
         }
     }
 
+    /// The selection written back as command-line flags (`--protocol kick --unit
+    /// site-year`), for listings, stored results and report provenance.
+    pub fn to_flags(&self) -> String {
+        let mut f: Vec<String> = Vec::new();
+        for s in &self.sites {
+            f.push(format!("--site {s}"));
+        }
+        for (k, v) in &self.site_where {
+            f.push(format!("--site-where {k}={v}"));
+        }
+        if let Some(d) = &self.from {
+            f.push(format!("--from {d}"));
+        }
+        if let Some(d) = &self.to {
+            f.push(format!("--to {d}"));
+        }
+        if let Some((a, b)) = self.years {
+            f.push(format!("--years {a}..{b}"));
+        }
+        if let Some((a, b)) = self.months {
+            f.push(format!("--months {a}..{b}"));
+        }
+        if let Some(p) = &self.protocol {
+            f.push(format!("--protocol {p}"));
+        }
+        if let Some(r) = &self.rank {
+            f.push(format!("--rank {r}"));
+        }
+        if let Some(n) = self.min_occurrences {
+            f.push(format!("--min-occurrences {n}"));
+        }
+        if let Some(u) = self.unit {
+            f.push(format!("--unit {}", u.as_str()));
+        }
+        if self.per_effort {
+            f.push("--per-effort".into());
+        }
+        if self.keep_empty {
+            f.push("--keep-empty".into());
+        }
+        f.join(" ")
+    }
+
     /// The row filters in order, each with its SQL fragment over `event e`
     /// and its bound parameters.
     fn filters(&self) -> Vec<Filter> {

@@ -18,6 +18,7 @@ use serde::{Deserialize, Serialize};
 pub mod design;
 pub mod dispersion;
 pub mod error;
+pub mod ordinate;
 pub mod permanova;
 pub mod prepare;
 pub mod runs;
@@ -155,6 +156,7 @@ macro_rules! analyses {
 analyses! {
     Permanova => permanova,
     Dispersion => dispersion,
+    Ordinate => ordinate,
 }
 
 #[cfg(test)]
