@@ -1,6 +1,7 @@
 //! Dissimilarity benchmark: n = 5000 samples × 200 taxa of sparse random counts,
 //! each coefficient timed best of 3, seconds printed. Compare with
-//! `benches/reference/pdist.py` (SciPy `pdist`, same shape and sparsity).
+//! `benches/reference/pdist.py` (SciPy `pdist`, same shape and sparsity). Target and
+//! last figures: benches/README.md, "Dissimilarity matrix".
 //!
 //! Run: `cargo bench --bench distances` (release profile).
 

@@ -5,7 +5,7 @@
 //! about 20 of the 40 taxa found in each sample (about 50,000 events). Sites,
 //! protocols and taxa are imported first; the timed part is the records file
 //! alone, from bytes in memory to the committed transaction. Prints rows/s.
-//! DESIGN.md target: ≥ 500,000 rows/s on 2 cores, release build.
+//! Target and last figures: benches/README.md, "Import".
 
 use std::fmt::Write as _;
 use std::time::Instant;

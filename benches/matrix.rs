@@ -1,8 +1,9 @@
 //! Matrix assembly benchmark: a generated store of 10,000,000 counts
 //! (200 sites × 25 years × 20 events a year × 100 taxa), written with direct
-//! inserts in one transaction; then the time to assemble a one-year selection
-//! (target ≤ 0.5 s on 2 cores, release build), a one-year site-year matrix and
-//! the whole store. `TALLY_BENCH_SITES` scales the store down (default 200).
+//! inserts in one transaction; then the time to assemble a one-year selection, a
+//! one-year site-year matrix and the whole store (target and last figures:
+//! benches/README.md, "Matrix assembly"). `TALLY_BENCH_SITES` scales the store
+//! down (default 200).
 //!
 //! Run: cargo bench --bench matrix
 use std::time::Instant;

@@ -1,6 +1,6 @@
 //! Benchmark: one-way PERMANOVA, n = 2000 samples in 4 groups, 200 taxa of random
-//! counts, Bray-Curtis, 9999 permutations (DESIGN.md performance target: ≤ 1.5 s on
-//! 2 cores). Run with `cargo bench --bench permanova`; prints seconds.
+//! counts, Bray-Curtis, 9999 permutations. Target, reference and last figures:
+//! benches/README.md, "PERMANOVA". Run with `cargo bench --bench permanova`; prints seconds.
 //! The NumPy comparison is `benches/reference/permanova.py` (same sizes).
 
 use std::time::Instant;

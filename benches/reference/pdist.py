@@ -4,6 +4,8 @@
 seconds printed (CPU time is the fair figure on a machine shared with other jobs).
 
     python3 benches/reference/pdist.py
+
+Target and last figures: benches/README.md, "Dissimilarity matrix".
 """
 import platform
 import time

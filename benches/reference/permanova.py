@@ -4,8 +4,10 @@
 Written as a NumPy user would write it for speed: D^2 is computed once, permutations
 are processed in batches, and SS_W for a whole batch comes from one matrix product
 M = D2 @ E, where E stacks the one-hot group indicator matrices of the batch
-(METHODS.md section 10.2): SS_W(pi) = sum_g (E_pi[:, g] . M_pi[:, g]) / (2 n_g).
+(docs/methods.md, "Computing many permutations"):
+SS_W(pi) = sum_g (E_pi[:, g] . M_pi[:, g]) / (2 n_g).
 Prints wall and CPU seconds. Run: python3 benches/reference/permanova.py
+Target and last figures: benches/README.md, "PERMANOVA".
 """
 import time
 

@@ -1,5 +1,5 @@
 //! Permutation test of the constraints of a canonical correspondence analysis
-//! (docs/methods.md §9.2, item 6).
+//! (ter Braak 1986, Ecology 67:1167-1179; docs/methods.md, "CA and CCA in matrix form").
 //!
 //! Owns the test statistic and its batch evaluation only; the CCA itself is
 //! `ordination::cca`. The statistic is the pseudo-F
@@ -146,7 +146,7 @@ mod tests {
     use super::*;
     use approx::assert_relative_eq;
 
-    /// Toy community of docs/methods.md §11.2 (B).
+    /// Toy community (docs/methods.md, "The toy community").
     fn toy() -> DMatrix<f64> {
         DMatrix::from_row_slice(
             10,
@@ -160,14 +160,15 @@ mod tests {
     }
 
     #[test]
-    fn identity_statistic_matches_dossier_and_kernel() {
+    fn identity_statistic_matches_worked_example_and_kernel() {
         let y = toy();
         let t: Vec<f64> = (0..10).map(|i| y.row(i).sum()).collect();
         let z = DMatrix::from_fn(10, 1, |i, _| t[i].ln());
         let (s, r) = residuals(&y);
         let id: Vec<usize> = (0..10).collect();
         let c = constrained_inertia(&s, &r, &z, &id);
-        // docs/methods.md §9.2 step 3: toy data with E = ln(t), constrained inertia 0.0352998.
+        // docs/methods.md, "The toy community": E = ln(t), constrained inertia 0.0352998
+        // (NumPy weighted least squares, also in tests/reference/ordination.json).
         assert!((c - 0.0352998).abs() < 5e-8, "{c}");
         // The projection route agrees with the SVD route of ordination::cca.
         let fit = cca(&y, &z).unwrap();

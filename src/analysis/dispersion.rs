@@ -1,7 +1,7 @@
 //! Test of homogeneity of multivariate dispersions (Anderson 2006, Biometrics
-//! 62:245-253; METHODS.md §8): distances of samples to their group centroid computed
-//! from the Gower-centred matrix G, a one-way ANOVA F on those distances and its
-//! permutation p-value, plus pairwise comparisons.
+//! 62:245-253; docs/methods.md, "Dispersion"): distances of samples to their group
+//! centroid computed from the Gower-centred matrix G, a one-way ANOVA F on those
+//! distances and its permutation p-value, plus pairwise comparisons.
 //!
 //! Owns: [`distances_to_centroids`], [`oneway_f`], [`dispersion`], [`dispersion_pairwise`].
 
@@ -14,7 +14,7 @@ use super::permutation::{self, PermutationOptions, PermutationResult, Permuter, 
 use super::{AnalysisError, DistanceMatrix, prec};
 
 /// Squared distances to the group centroid from G, valid with negative eigenvalues
-/// (METHODS.md §8.1): `z_i² = g_ii - (2/n_g) Σ_{k∈g} g_ik + (1/n_g²) Σ_{k,l∈g} g_kl`.
+/// (docs/methods.md, "Dispersion"): `z_i² = g_ii - (2/n_g) Σ_{k∈g} g_ik + (1/n_g²) Σ_{k,l∈g} g_kl`.
 /// Negative values are set to 0; returns the distances `z_i` and the number clamped,
 /// counting only values below `-EIG_ZERO · max_i |g_ii|` (a non-Euclidean D), not the
 /// rounding error of a sample that sits on its centroid.
@@ -76,7 +76,7 @@ pub fn oneway_f(values: &[f64], codes: &[usize], a: usize) -> f64 {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Permute {
-    /// Least-squares residuals `z_i - z̄_g` (METHODS.md §8.3; Anderson 2006).
+    /// Least-squares residuals `z_i - z̄_g` (Anderson 2006; docs/methods.md, "Dispersion").
     Residuals,
     /// The distances `z_i` themselves (label permutation).
     Values,
@@ -319,8 +319,9 @@ mod tests {
 
     #[test]
     fn toy_bray_curtis_distances_to_centroids() {
-        // METHODS.md §8.1, toy BC (two groups of 5): z values, group means 0.200593 and
-        // 0.204433, ANOVA F = 0.0055746.
+        // docs/methods.md, "The toy community", Bray-Curtis (two groups of 5): z values,
+        // group means 0.200593 and 0.204433, ANOVA F = 0.0055746, derived from the
+        // formula of docs/methods.md, "Dispersion" (computed with NumPy, no publication).
         let rows: Vec<Vec<f64>> = TOY.iter().map(|r| r.to_vec()).collect();
         let d = bray_curtis(&rows);
         let labels: Vec<&str> = (0..10).map(|i| if i < 5 { "A" } else { "B" }).collect();

@@ -1,5 +1,5 @@
 //! Dissimilarity matrices, stored once in condensed (upper-triangle) form, and
-//! the dissimilarity coefficients of METHODS.md §3 ([`Distance`]).
+//! the dissimilarity coefficients of docs/methods.md, "Dissimilarities" ([`Distance`]).
 //!
 //! Owns the pairwise kernels: data are copied once into a row-major contiguous
 //! buffer padded with zeros to a multiple of the SIMD chunk, rows are processed in
@@ -126,7 +126,8 @@ impl DistanceMatrix {
     }
 }
 
-/// A dissimilarity coefficient between samples (rows), METHODS.md §3.1.
+/// A dissimilarity coefficient between samples (rows); definitions and sources in
+/// docs/methods.md, "Dissimilarities".
 ///
 /// Write `A = t_i`, `B = t_k` for the totals of the two samples (after any
 /// transform) and `W = Σ_j min(y_ij, y_kj)`. What each does with *size* (the
@@ -230,7 +231,8 @@ impl Distance {
 
     /// True when the distance is, by construction, the Euclidean distance between
     /// rows of some transformed matrix (see [`Distance::euclidean_coordinates`]), so
-    /// its Gower-centred matrix is positive semidefinite (METHODS.md §3.2).
+    /// its Gower-centred matrix is positive semidefinite (Gower & Legendre 1986,
+    /// J. Classification 3:5-48; docs/methods.md, "Euclidean and non-Euclidean dissimilarities").
     pub fn is_euclidean(&self) -> bool {
         matches!(
             self,
@@ -414,8 +416,10 @@ mod tests {
 
     #[test]
     fn ll457_distances() {
-        // METHODS.md §11.2 (A): distances for pairs 1-2, 1-3, 2-3, values [D]
-        // derived there from the §3 formulas (6 decimals) on the L&L p. 457 input.
+        // Input: docs/methods.md, "Legendre & Legendre's 3 × 3 table". Distances for
+        // pairs 1-2, 1-3, 2-3 derived from the formulas of
+        // docs/methods.md, "Dissimilarities" (computed with NumPy, 6 decimals); the book
+        // gives the input only.
         let y = ll457();
         let cases = [
             (Distance::ChiSquare, [0.491052, 0.784523, 0.690910]),
@@ -429,7 +433,8 @@ mod tests {
             }
         }
         // Chord distance: Euclidean distance on rows scaled to unit length
-        // (METHODS.md §2 chord row), same table.
+        // (Legendre & Gallagher 2001, Oecologia 129:271-280;
+        // docs/methods.md, "Transformations"), values derived in the same way.
         let mut chord = y.clone();
         for mut r in chord.row_iter_mut() {
             let norm = r.norm();
@@ -443,8 +448,9 @@ mod tests {
 
     #[test]
     fn toy_community_distances() {
-        // METHODS.md §11.2 (B), values [D] printed to 9 decimals: d(1,2) and d(1,6)
-        // (1-based sample numbers), plus BC d(6,10).
+        // docs/methods.md, "The toy community": d(1,2) and d(1,6) (1-based sample
+        // numbers) derived from docs/methods.md, "Dissimilarities" (computed with NumPy,
+        // 9 decimals, no publication), plus BC d(6,10) = 1 - 2·13/40, by hand.
         let y = toy();
         let cases = [
             (Distance::BrayCurtis, 0.298245614, 0.708333333),
@@ -464,7 +470,8 @@ mod tests {
 
     #[test]
     fn bray_curtis_pure_size_pair() {
-        // METHODS.md §3.1 [D]: d_BC(c·y, y) = |c-1|/(c+1) = tanh(|ln c|/2).
+        // Derived from the definition (docs/methods.md, "Which dissimilarities carry size"):
+        // d_BC(c·y, y) = |c-1|/(c+1) = tanh(|ln c|/2).
         let y = DMatrix::from_row_slice(2, 4, &[3., 0., 7., 1., 6., 0., 14., 2.]);
         let d = Distance::BrayCurtis.compute(&y).unwrap();
         assert_relative_eq!(d.get(0, 1), 1.0 / 3.0, max_relative = 1e-14);
@@ -475,8 +482,8 @@ mod tests {
     fn empty_sample_conventions() {
         let y = DMatrix::from_row_slice(4, 3, &[1., 2., 0., 0., 0., 0., 3., 0., 1., 0., 0., 0.]);
         let one_empty = y.rows(0, 3).into_owned();
-        // METHODS.md §1: BC is exactly 1 between an empty and a non-empty sample,
-        // 0/0 between two empty samples (refused here).
+        // docs/methods.md, "Empty samples and empty taxa": BC is exactly 1 between an
+        // empty and a non-empty sample, 0/0 between two empty samples (refused here).
         let bc = Distance::BrayCurtis.compute(&one_empty).unwrap();
         assert_eq!((bc.get(0, 1), bc.get(1, 2)), (1.0, 1.0));
         assert_eq!(

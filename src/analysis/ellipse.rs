@@ -105,7 +105,8 @@ pub fn f_quantile_2(p: f64, df2: f64) -> Result<f64, AnalysisError> {
 /// `(x[i], y[i])` at confidence `level`, drawn with `segments` segments.
 ///
 /// Reference: Johnson & Wichern, *Applied Multivariate Statistical Analysis*
-/// (T² confidence region for a mean vector), cited from memory; docs/methods.md §9.3.
+/// (T² confidence region for a mean vector), cited from memory;
+/// docs/methods.md, "Ordination and centroid ellipses (tally ordinate)".
 ///
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`] when `x` and `y` differ in length;
@@ -281,7 +282,8 @@ mod tests {
 
     #[test]
     fn critical_value_for_five_points() {
-        // docs/methods.md §9.3: n = 5 gives F.95(2,3) = 9.552094 and
+        // docs/methods.md, "Ellipse constants": n = 5 gives F.95(2,3) = 9.552094
+        // (scipy.stats.f.ppf, tests/reference/ordination.json) and
         // c = 2*4/(5*3) * 9.552094 = 5.094450.
         let e = centroid_ellipse(&[0., 1., 2., 3., 1.], &[1., 0., 2., 1., 3.], 0.95, 16).unwrap();
         assert!((e.f_quantile - 9.552094).abs() < 5e-7);
@@ -318,8 +320,8 @@ mod tests {
         // with mean (2, -1). The Hotelling region must cover the mean in 95 % of
         // replicates; reps = 4000 gives a binomial sd of sqrt(.95*.05/4000) = 0.00345,
         // and the tolerance is 4 sd. The large-sample region with chi2_.95(2)/n
-        // (5.991465/n; docs/methods.md §9.3) under-covers badly at n = 5, which
-        // shows the test can tell the two apart.
+        // (5.991465/n = -2 ln(0.05)/n; docs/methods.md, "Ellipse constants") under-covers
+        // badly at n = 5, which shows the test can tell the two apart.
         let reps = 4000;
         let mut rng = ChaCha8Rng::seed_from_u64(7);
         let (mut hit, mut hit_large) = (0usize, 0usize);

@@ -1,7 +1,8 @@
 //! Gower centring: G = J A J with A = [-d²/2], computed in O(n²) from row,
 //! column and grand means (Gower 1966, Biometrika 53:325-338), and principal
 //! coordinates analysis (PCoA) of G with its negative eigenvalues reported, plus
-//! the opt-in Lingoes and Cailliez corrections (METHODS.md §4). Pure: no I/O.
+//! the opt-in Lingoes and Cailliez corrections
+//! (docs/methods.md, "Gower centring and principal coordinates"). Pure: no I/O.
 
 use nalgebra::{DMatrix, DVector, SymmetricEigen, linalg::Schur};
 
@@ -36,7 +37,8 @@ pub fn gower_centre(d: &DistanceMatrix) -> DMatrix<f64> {
     a
 }
 
-/// Correction for negative eigenvalues applied before a PCoA (METHODS.md §4.2).
+/// Correction for negative eigenvalues applied before a PCoA
+/// (docs/methods.md, "Gower centring and principal coordinates").
 ///
 /// Tests (PERMANOVA, db-RDA) never use a correction (McArdle & Anderson 2001,
 /// Ecology 82:290-297); corrections are for real coordinates only.
@@ -110,7 +112,8 @@ pub fn pcoa(d: &DistanceMatrix) -> Result<Pcoa, AnalysisError> {
     pcoa_corrected(d, Correction::None)
 }
 
-/// PCoA after the given correction for negative eigenvalues (METHODS.md §4.2).
+/// PCoA after the given correction for negative eigenvalues
+/// (docs/methods.md, "Gower centring and principal coordinates").
 ///
 /// # Errors
 /// As [`pcoa`].
@@ -181,7 +184,9 @@ pub fn lingoes_constant(d: &DistanceMatrix) -> Result<f64, AnalysisError> {
 
 /// Cailliez constant `c2`: the largest real eigenvalue of the 2n × 2n matrix
 /// `[[0, 2G], [-I, -4 G½]]`, with `G½` the Gower-centred matrix of `[-d/2]`
-/// (Cailliez 1983, Psychometrika 48:305-310, as given in METHODS.md §4.2).
+/// (Cailliez 1983, Psychometrika 48:305-310 [from memory], in the form given by
+/// Legendre & Legendre, *Numerical Ecology* [from memory];
+/// docs/methods.md, "Gower centring and principal coordinates").
 /// Adding c2 to every off-diagonal d makes G positive semidefinite.
 ///
 /// # Errors
@@ -265,8 +270,9 @@ mod tests {
 
     #[test]
     fn pcoa_of_toy_bray_curtis() {
-        // METHODS.md §11.2 (B), PCoA of BC, values [D] (6 decimals for the
-        // eigenvalues, 10 for the trace and the constants).
+        // docs/methods.md, "The toy community", PCoA of Bray-Curtis: values computed with
+        // NumPy (eigh of the Gower-centred matrix; no publication), 6 decimals for the
+        // eigenvalues, 10 for the trace.
         let d = Distance::BrayCurtis.compute(&toy()).unwrap();
         let p = pcoa(&d).unwrap();
         let want = [
@@ -296,9 +302,11 @@ mod tests {
 
     #[test]
     fn corrections_on_toy_bray_curtis() {
-        // METHODS.md §11.2 (B): Lingoes c1 = 0.0123824893, Cailliez c2 = 0.0803204785 [D];
-        // §11.1 item 9: after either correction the min eigenvalue is about 0 and one
-        // further zero eigenvalue appears beyond the trivial one.
+        // docs/methods.md, "The toy community": Lingoes c1 = 0.0123824893, Cailliez
+        // c2 = 0.0803204785, computed with NumPy from the formulas of
+        // docs/methods.md, "Gower centring and principal coordinates" (no publication).
+        // By construction (same section), after either correction the min eigenvalue is
+        // about 0 and one further zero eigenvalue appears beyond the trivial one.
         let d = Distance::BrayCurtis.compute(&toy()).unwrap();
         assert_relative_eq!(lingoes_constant(&d).unwrap(), 0.0123824893, epsilon = 1e-10);
         assert_relative_eq!(
@@ -346,7 +354,8 @@ mod tests {
 
     #[test]
     fn trace_equals_total_sum_of_squares() {
-        // Huygens identity (METHODS.md §4.1): tr(G) = (1/n) Σ_{i<k} d_ik².
+        // Huygens identity (docs/methods.md, "Gower centring and principal coordinates"):
+        // tr(G) = (1/n) Σ_{i<k} d_ik².
         let d = DistanceMatrix::from_fn(6, |i, j| ((i * 7 + j * 3) % 5) as f64 + 0.5).unwrap();
         let g = gower_centre(&d);
         let ss: f64 = d.condensed().iter().map(|v| v * v).sum::<f64>() / 6.0;

@@ -4,7 +4,8 @@
 //!
 //! Owns: [`Grouping`], [`TermSpec`], [`Design`], [`Basis`], [`fit`], [`anova_table`].
 //! Never forms the n × n hat matrix: `tr(H G) = Σ_c q_c' G q_c` over an orthonormal
-//! basis Q of the design (METHODS.md §5.1). Every basis contains the intercept.
+//! basis Q of the design (McArdle & Anderson 2001, Ecology 82:290-297;
+//! docs/methods.md, "Distance-based linear models"). Every basis contains the intercept.
 
 use std::collections::BTreeMap;
 
@@ -280,8 +281,9 @@ impl Basis {
     /// columns spanning what `X` adds. Rank detection: columns of X are scaled to unit
     /// length and projected off the current basis (twice, for stability); a
     /// column-pivoted Gram-Schmidt of the remainders then accepts a direction while
-    /// its remaining norm exceeds `prec::RANK_TOL × s_max(X scaled)` (METHODS.md
-    /// §5.1, §12.2).
+    /// its remaining norm exceeds `prec::RANK_TOL × s_max(X scaled)`, so profiles,
+    /// which sum to the intercept, add one dimension fewer than their columns
+    /// (docs/methods.md, "Distance-based linear models").
     ///
     /// # Errors
     /// [`AnalysisError::DimensionMismatch`] when X has another number of rows;
@@ -408,8 +410,8 @@ pub struct Fit {
 }
 
 /// Sums of squares of `full` over `reduced` on the centred matrix G
-/// (METHODS.md §5.1-5.3; McArdle & Anderson 2001). `reduced` must span a subspace of
-/// `full` (e.g. `full = reduced.extended(X)`).
+/// (McArdle & Anderson 2001; docs/methods.md, "Distance-based linear models").
+/// `reduced` must span a subspace of `full` (e.g. `full = reduced.extended(X)`).
 ///
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`] on size disagreement;
@@ -449,7 +451,8 @@ pub fn fit(g: &DMatrix<f64>, reduced: &Basis, full: &Basis) -> Result<Fit, Analy
     })
 }
 
-/// Ezekiel's adjusted R² (Ezekiel 1930; METHODS.md §5.3): `1 - (1 - R²)(n - 1)/(n - m - 1)`,
+/// Ezekiel's adjusted R² (Ezekiel 1930, *Methods of Correlation Analysis* [from memory];
+/// docs/methods.md, "Distance-based linear models"): `1 - (1 - R²)(n - 1)/(n - m - 1)`,
 /// m = predictor degrees of freedom (intercept excluded). NaN when `n - m - 1 <= 0`;
 /// [`fit`] refuses such models first.
 pub fn adjusted_r2(r2: f64, n: usize, m: usize) -> f64 {
@@ -614,7 +617,8 @@ mod tests {
 
     #[test]
     fn collinear_columns_are_detected() {
-        // Profiles sum to 1 = the intercept (METHODS.md §12.2): all p columns give rank p.
+        // Profiles sum to 1 = the intercept (docs/methods.md, "The shape design"): the
+        // intercept and all p profile columns give rank p.
         let p = DMatrix::from_row_slice(
             4,
             3,

@@ -6,11 +6,11 @@
 //! PCoA lives in `gower.rs`, permutation tests of the constraints in the
 //! permutation module; nothing here reads files, prints or knows the store.
 //!
-//! Notation (docs/methods.md §9): `P = Y / y_++`, row masses `r = P 1`,
-//! column masses `c = P' 1`, `D_r = diag(r)`, `D_c = diag(c)`, and the matrix of
-//! standardised residuals `S = D_r^{-1/2} (P - r c') D_c^{-1/2}` with thin SVD
-//! `S = U Σ V'`. The principal inertias are `σ_k²`; their sum, the total
-//! inertia, equals `χ² / y_++` of the table seen as a contingency table.
+//! Notation (docs/methods.md, "CA and CCA in matrix form"): `P = Y / y_++`, row
+//! masses `r = P 1`, column masses `c = P' 1`, `D_r = diag(r)`, `D_c = diag(c)`,
+//! and the matrix of standardised residuals `S = D_r^{-1/2} (P - r c') D_c^{-1/2}`
+//! with thin SVD `S = U Σ V'`. The principal inertias are `σ_k²`; their sum, the
+//! total inertia, equals `χ² / y_++` of the table seen as a contingency table.
 //!
 //! Sign convention: SVD axes have arbitrary sign. Every axis returned here is
 //! flipped so that the entry of largest absolute value in its row (sample)
@@ -349,7 +349,8 @@ fn inv_sqrt(w: &[f64]) -> Vec<f64> {
 /// sample has the same profile the total inertia is zero and no axis is returned.
 ///
 /// Reference: Greenacre (2007) *Correspondence Analysis in Practice*, 2nd ed.,
-/// Chapman & Hall/CRC (SVD of standardised residuals); docs/methods.md §9.1.
+/// Chapman & Hall/CRC (SVD of standardised residuals) [from memory];
+/// docs/methods.md, "CA and CCA in matrix form".
 ///
 /// # Errors
 /// [`AnalysisError::TooFewSamples`] for fewer than 2 rows,
@@ -590,7 +591,7 @@ mod tests {
         serde_json::from_value(v.clone()).expect("float list")
     }
 
-    /// Toy community of docs/methods.md §11.2 (B).
+    /// Toy community (docs/methods.md, "The toy community").
     fn toy() -> DMatrix<f64> {
         DMatrix::from_row_slice(
             10,
@@ -604,15 +605,17 @@ mod tests {
     }
 
     #[test]
-    fn ca_toy_matches_methods_dossier() {
+    fn ca_toy_matches_the_worked_example() {
         let res = ca(&toy()).unwrap();
-        // docs/methods.md §11.2 (B): CA principal inertias of the toy data (6 decimals).
+        // docs/methods.md, "The toy community": CA principal inertias (6 decimals),
+        // computed with NumPy (no publication); to full precision the same values are
+        // the numpy SVD of tests/reference/ordination.json, checked in the next test.
         let expected = [0.537521, 0.050774, 0.008811, 0.002318, 0.000407];
         assert_eq!(res.inertias.len(), 5);
         for (a, e) in res.inertias.iter().zip(expected) {
             assert!((a - e).abs() < 5e-7, "{a} vs {e}");
         }
-        // docs/methods.md §11.2 (B): total inertia 0.5998306 = chi^2/N.
+        // Total inertia 0.5998306 = chi^2/N (scipy.stats.chi2_contingency in the fixture).
         assert!((res.total_inertia - 0.5998306).abs() < 5e-8);
         let sum: f64 = res.inertias.iter().sum();
         assert_relative_eq!(sum, res.total_inertia, max_relative = 1e-12);
@@ -640,8 +643,9 @@ mod tests {
 
     #[test]
     fn row_principal_distances_are_chi_square_distances() {
-        // docs/methods.md §11.1 item 5: Euclidean distances between CA principal row
-        // coordinates equal chi-square distances sqrt(sum_j (a_ij - a_kj)^2 / c_j).
+        // docs/methods.md, "CA and CCA in matrix form": Euclidean distances between CA
+        // principal row coordinates equal chi-square distances
+        // sqrt(sum_j (a_ij - a_kj)^2 / c_j).
         let y = toy();
         let res = ca(&y).unwrap();
         let n = y.nrows();
@@ -755,11 +759,12 @@ mod tests {
     }
 
     #[test]
-    fn cca_toy_log_total_matches_methods_dossier() {
+    fn cca_toy_log_total_matches_the_worked_example() {
         let y = toy();
         let z = DMatrix::from_fn(10, 1, |i, _| y.row(i).sum().ln());
         let res = cca(&y, &z).unwrap();
-        // docs/methods.md §11.2 (B): CCA with E = ln(t), constrained inertia 0.0352998.
+        // docs/methods.md, "The toy community": CCA with E = ln(t), constrained inertia
+        // 0.0352998 (NumPy weighted least squares, also in tests/reference/ordination.json).
         assert!((res.constrained_inertia - 0.0352998).abs() < 5e-8);
         assert_eq!(res.constraint_rank, 1);
         assert_eq!(res.constrained_eigenvalues.len(), 1);
@@ -854,8 +859,9 @@ mod tests {
         let z = DMatrix::from_fn(10, 1, |i, _| y.row(i).sum().ln());
         let res = cca(&y, &z).unwrap();
         let f = res.pseudo_f().unwrap();
-        // docs/methods.md §9.2: F = (constrained/q) / (residual/(n - q - 1)), here with
-        // the numpy least-squares inertias of the fixture, q = 1 and n = 10.
+        // docs/methods.md, "CA and CCA in matrix form":
+        // F = (constrained/q) / (residual/(n - q - 1)), here with the numpy
+        // least-squares inertias of the fixture, q = 1 and n = 10.
         let t = &fixture()["toy"];
         let con = t["cca_constrained_inertia"].as_f64().unwrap();
         let unc = t["cca_unconstrained_inertia"].as_f64().unwrap();
@@ -872,7 +878,7 @@ mod tests {
             seed in proptest::prelude::any::<u64>(),
         ) {
             // Identity: sum of squared singular values = ||S||_F^2 = chi^2 / N
-            // (docs/methods.md §9.1), for tall and wide tables alike.
+            // (docs/methods.md, "CA and CCA in matrix form"), for tall and wide tables alike.
             let mut state = seed | 1;
             let y = DMatrix::from_fn(n, p, |_, _| {
                 state ^= state << 13;

@@ -288,7 +288,7 @@ pub struct PartitionResult {
 }
 
 /// Choose the shape design for `y` (counts after any effort standardisation):
-/// all profile dimensions, or the leading CA axes (METHODS.md §6.3).
+/// all profile dimensions, or the leading CA axes (docs/methods.md, "The shape design").
 ///
 /// # Errors
 /// [`AnalysisError::Saturated`] when even one shape axis would leave no residual
@@ -470,9 +470,10 @@ mod tests {
     }
 
     #[test]
-    fn toy_bray_curtis_matches_the_dossier_table() {
-        // METHODS.md §11.2 (B), size/shape partition table, row "BC" [D, computed with
-        // NumPy by methods_refvalues.py]: R² S 0.124836, P 0.897581, S+P 0.966897;
+    fn toy_bray_curtis_matches_the_worked_example() {
+        // docs/methods.md, "The toy community", Bray-Curtis partition. Values derived
+        // from the formulas of docs/methods.md, "The four parts" (computed with NumPy,
+        // no publication): R² S 0.124836, P 0.897581, S+P 0.966897;
         // adjusted [a] 0.131134, [b] -0.115694, [c] 0.885251, [d] 0.099310;
         // F(size|shape) = 6.281829 (df 1, 3), F(shape|size) = 15.262491 (df 5, 3).
         let f = toy_fit(Distance::BrayCurtis, Transform::None);
@@ -494,7 +495,8 @@ mod tests {
 
     #[test]
     fn toy_hellinger_and_euclidean_rows() {
-        // METHODS.md §11.2 (B), rows "Hellinger" and "Euclidean raw" [D].
+        // docs/methods.md, "The toy community", Hellinger and raw Euclidean partitions;
+        // values derived as above (NumPy, no publication).
         let h = toy_fit(Distance::Hellinger, Transform::None);
         assert!(close(h.r2_shape, 0.980081));
         assert!(close(h.adjusted_fractions.size_only, -0.011373));
@@ -507,9 +509,9 @@ mod tests {
 
     #[test]
     fn chi_square_with_full_profile_space_is_exhaustive() {
-        // METHODS.md §6.3 property 1 [D]: chi-square coordinates are linear in the
-        // profiles, so R²(shape) = 1 and [a] = 0; the unique-part tests are then
-        // not applicable.
+        // docs/methods.md, "The shape design" (derived, no publication): chi-square
+        // coordinates are linear in the profiles, so R²(shape) = 1 and [a] = 0; the
+        // unique-part tests are then not applicable.
         let f = toy_fit(Distance::ChiSquare, Transform::None);
         assert!(close(f.r2_shape, 1.0));
         assert!(f.adjusted_fractions.size_only.abs() < 1e-6);
@@ -557,7 +559,8 @@ mod tests {
     #[test]
     fn pure_size_differences_show_in_bray_curtis_and_not_in_chi_square() {
         // Greenacre (2017, Methods Ecol. Evol. 8:1415-1424) [abstract]: Bray-Curtis
-        // carries size; chi-square compares profiles only (METHODS.md §3.1, §6.3).
+        // carries size; chi-square compares profiles only
+        // (docs/methods.md, "Which dissimilarities carry size").
         let parts: Vec<f64> = [1.05, 1.2, 1.6]
             .iter()
             .map(|c| size_only_part(&pure_size(*c), Distance::BrayCurtis))
@@ -597,10 +600,11 @@ mod tests {
     #[test]
     fn pure_size_with_multinomial_noise_over_seeds() {
         // Simulation with known truth (one composition, totals spread over a factor
-        // c): Bray-Curtis between same-shape samples is tanh(|ln c|/2) (METHODS.md
-        // §6.3 [D]), so its size-only part must be positive and grow with c; the
-        // chi-square distance compares profiles only (Greenacre 2017), so with the
-        // whole profile space its size-only part is zero by construction (property 1),
+        // c): Bray-Curtis between same-shape samples is tanh(|ln c|/2) (derived in
+        // docs/methods.md, "Which dissimilarities carry size"), so its size-only part
+        // must be positive and grow with c; the chi-square distance compares profiles
+        // only (Greenacre 2017), so with the whole profile space its size-only part is
+        // zero by construction (docs/methods.md, "The shape design"),
         // and with CA axes (more taxa than the residual df allow) it stays near zero.
         for seed in 0..5 {
             // Contrasts up to 3: beyond about 5 the part levels off, because

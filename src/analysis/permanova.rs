@@ -1,12 +1,14 @@
 //! PERMANOVA (Anderson 2001, Austral Ecol. 26:32-46): the one-way fast path, the
 //! general multi-term path through the distance-based linear model with Freedman–Lane
-//! permutation of residuals under the reduced model (METHODS.md §7), and pairwise
-//! comparisons with Holm and Benjamini–Hochberg adjustment.
+//! permutation of residuals under the reduced model (Freedman & Lane 1983; McArdle &
+//! Anderson 2001; docs/methods.md, "PERMANOVA"), and pairwise comparisons with Holm
+//! and Benjamini–Hochberg adjustment.
 //!
 //! Owns: [`permanova_oneway`], [`permanova`], [`pairwise`] and their result types.
 //! The one-way path squares D once into a dense n × n row-major array and, per
 //! permutation, sums only the within-group pairs (`SS_W = Σ_g (1/n_g) Σ_{i<k∈g} d²_ik`),
-//! permutations in batches so each row stays in cache across the batch (§10.1).
+//! permutations in batches so each row stays in cache across the batch
+//! (docs/methods.md, "Computing many permutations").
 //! That square is made once per test (8n² bytes: 32 MB at n = 2000), never per
 //! permutation. The general path works on G (also n × n) and permutes basis rows.
 
@@ -400,10 +402,12 @@ impl<'a> PartialTerm<'a> {
 }
 
 /// Multi-term PERMANOVA through the distance-based linear model (McArdle & Anderson
-/// 2001; METHODS.md §5.2, §7.2-7.3). Each term is tested against its reduced model
-/// (terms before it, or all others when marginal) by permuting residuals under that
-/// reduced model: `G_R = R_r G R_r`, `F* = [tr((H_f - H_r) G*)/df] / [tr((I - H_f) G*)/df_res]`
-/// with `G* = P G_R P'`, permutations restricted by `opts.scheme`.
+/// 2001; docs/methods.md, "Distance-based linear models" and
+/// docs/methods.md, "Permutation schemes and p-values"). Each term is tested against its
+/// reduced model (terms before it, or all others when marginal) by permuting residuals
+/// under that reduced model: `G_R = R_r G R_r`,
+/// `F* = [tr((H_f - H_r) G*)/df] / [tr((I - H_f) G*)/df_res]` with `G* = P G_R P'`,
+/// permutations restricted by `opts.scheme`.
 ///
 /// # Errors
 /// As [`linear_model::anova_table`], the permuter and [`permutation::permutation_test`].
@@ -515,7 +519,8 @@ pub struct PairTest {
 }
 
 /// PERMANOVA for every pair of groups on the sub-matrix of D (D is computed once on the
-/// full data and subset, METHODS.md §2, §7.6), with Holm and BH adjustment.
+/// full data and subset: docs/methods.md, "Transformations"), with Holm and BH
+/// adjustment (docs/methods.md, "Multiple testing").
 ///
 /// # Errors
 /// As [`permanova_oneway`] for each pair (e.g. a pair with only 2 samples is saturated).
@@ -574,7 +579,7 @@ pub(crate) mod tests {
     use super::*;
     use crate::analysis::linear_model::{Term, TermSpec};
 
-    /// The toy community of METHODS.md §11.2 (B).
+    /// The toy community (docs/methods.md, "The toy community").
     pub(crate) use crate::analysis::prec::test_data::TOY;
 
     /// Bray-Curtis, `Σ|y_i - y_k| / Σ(y_i + y_k)` (Bray & Curtis 1957), local to the tests.
@@ -608,9 +613,11 @@ pub(crate) mod tests {
 
     #[test]
     fn toy_community_worked_example() {
-        // METHODS.md §11.2 (B): SS_T = 1.521270838, SS_W = 0.463061118, F = 18.281987915,
-        // R² = 0.695609022; exact enumeration over C(10,5) = 252 labelings gives 2
-        // statistics >= F, p = 2/252 = 0.0079365.
+        // docs/methods.md, "The toy community", derived from the formulas of
+        // docs/methods.md, "PERMANOVA" (computed with NumPy, no publication):
+        // SS_T = 1.521270838, SS_W = 0.463061118, F = 18.281987915, R² = 0.695609022;
+        // exact enumeration over C(10,5) = 252 labelings gives 2 statistics >= F,
+        // p = 2/252 = 0.0079365 (also so by scipy.stats.permutation_test).
         let (d, g) = toy();
         let r = permanova_oneway(&d, &g, &opts(999, Scheme::Free), None).unwrap();
         assert!((r.total.ss - 1.521270838).abs() < 1e-8);
@@ -620,7 +627,7 @@ pub(crate) mod tests {
         assert!(r.exact);
         assert_eq!(r.permutations, 252);
         assert!((r.terms[0].p_value - 2.0 / 252.0).abs() < 1e-12);
-        // Same F by the trace route of the linear model (METHODS.md §7.1).
+        // Same F by the trace route of the linear model (docs/methods.md, "PERMANOVA").
         let design =
             Design::new(10, vec![Term::new("groups", TermSpec::Factor(g.clone()))]).unwrap();
         let r2 = permanova(&d, &design, &opts(999, Scheme::Free), None).unwrap();
@@ -725,7 +732,8 @@ pub(crate) mod tests {
 
     #[test]
     fn freedman_lane_distance_form_equals_textbook_coordinate_form() {
-        // METHODS.md §7.3 / §11.1 item 10 (Freedman & Lane 1983): permuting G_R = R_r G R_r
+        // Freedman & Lane (1983) [from memory];
+        // docs/methods.md, "Permutation schemes and p-values": permuting G_R = R_r G R_r
         // gives the same F* as the textbook route Y* = H_r Y + P R_r Y refitted in
         // coordinates, for Euclidean D.
         let n = 12;
@@ -809,8 +817,9 @@ pub(crate) mod tests {
     #[test]
     fn strata_restrict_the_exact_enumeration() {
         // Two strata of 5 (rows 0,1,2,5,6 and 3,4,7,8,9), labels A A A B B and A A B B B:
-        // distinct within-stratum labelings C(5,3)·C(5,2) = 100 (METHODS.md §7.5: the count
-        // is the product over strata); brute force over those 100 gives the exact p.
+        // distinct within-stratum labelings C(5,3)·C(5,2) = 100 (the count is the product
+        // over strata: docs/methods.md, "Permutation schemes and p-values"); brute force
+        // over those 100 gives the exact p.
         let (d, g) = toy();
         let strata = vec![0, 0, 0, 1, 1, 0, 0, 1, 1, 1];
         let r = permanova_oneway(
@@ -858,11 +867,11 @@ pub(crate) mod tests {
 
     #[test]
     fn shape_only_distance_finds_shape_not_size() {
-        // Known truth (TESTING.md item 4): counts ~ Poisson(s · mu_gj) with a lognormal
-        // sample factor s. Pure size: B's means are twice A's (same composition); pure
-        // shape: same total, reversed composition. Hellinger distance depends only on
-        // profiles (METHODS.md §2), so PERMANOVA on it must reject for shape and not
-        // (beyond α) for size.
+        // Simulation with known truth (DEVELOPERS.md, "Rules"): counts ~ Poisson(s · mu_gj)
+        // with a lognormal sample factor s. Pure size: B's means are twice A's (same
+        // composition); pure shape: same total, reversed composition. Hellinger distance
+        // depends only on profiles (docs/methods.md, "Transformations"), so PERMANOVA on
+        // it must reject for shape and not (beyond α) for size.
         use crate::analysis::size_test::tests::poisson;
         use rand::RngExt;
         let comp_a = [20.0, 10.0, 8.0, 5.0, 3.0, 2.0, 1.0, 1.0];
@@ -934,9 +943,10 @@ pub(crate) mod tests {
 
     #[test]
     fn whole_blocks_enumerate_block_labelings() {
-        // Between-block factor (METHODS.md §7.4): blocks {0,1},{2,3} are A and {4,5},{6,7}
-        // are B; whole-block permutation gives C(4,2) = 6 distinct labelings, checked here
-        // against a brute force over the 6 choices of two A blocks.
+        // Between-block factor (Anderson & ter Braak 2003;
+        // docs/methods.md, "Permutation schemes and p-values"): blocks {0,1},{2,3} are A
+        // and {4,5},{6,7} are B; whole-block permutation gives C(4,2) = 6 distinct
+        // labelings, checked here against a brute force over the 6 choices of two A blocks.
         let rows: Vec<Vec<f64>> = TOY[..8].iter().map(|r| r.to_vec()).collect();
         let d = bray_curtis(&rows);
         let blocks = vec![0, 0, 1, 1, 2, 2, 3, 3];

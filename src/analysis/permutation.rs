@@ -1,4 +1,5 @@
-//! Seeded, parallel, deterministic permutation tests (METHODS.md §7.3-7.6, §10.2).
+//! Seeded, parallel, deterministic permutation tests (Phipson & Smyth 2010, Stat. Appl.
+//! Genet. Mol. Biol. 9(1):39; docs/methods.md, "Permutation schemes and p-values").
 //!
 //! Owns: the exchangeability [`Scheme`], the [`Permuter`] (random draws and exact
 //! enumeration of distinct arrangements), the test driver [`permutation_test`] and
@@ -119,7 +120,7 @@ impl Permuter {
     /// A permuter for `n` samples. `labels` (optional, one per sample) are the group
     /// labels of a one-way design: rearrangements that only swap samples with equal
     /// labels give the same statistic, so they count once when deciding whether exact
-    /// enumeration fits (METHODS.md §7.5).
+    /// enumeration fits (docs/methods.md, "Permutation schemes and p-values").
     ///
     /// # Errors
     /// [`AnalysisError::DimensionMismatch`] when strata/blocks/labels are not of length n;
@@ -369,7 +370,7 @@ pub type BatchStatistic<'a> = &'a (dyn Fn(&[usize], &mut [f64]) + Sync);
 pub type Progress<'a> = &'a (dyn Fn(usize, usize) + Sync);
 
 /// Count permuted statistics at least as large as `observed`, with relative tolerance
-/// `prec::TIE_TOL` (METHODS.md §7.5).
+/// `prec::TIE_TOL` (docs/methods.md, "Permutation schemes and p-values").
 #[inline]
 pub fn at_least(stat: f64, observed: f64) -> bool {
     stat >= observed - prec::TIE_TOL * observed.abs()
@@ -523,7 +524,7 @@ mod tests {
 
     #[test]
     fn distinct_counts() {
-        // One-way 5+5: C(10,5) = 252 labelings (METHODS.md §11.2).
+        // One-way 5+5: C(10,5) = 252 labelings (binomial coefficient, by hand).
         let labels: Vec<usize> = (0..10).map(|i| i / 5).collect();
         let p = Permuter::new(10, &Scheme::Free, Some(&labels)).unwrap();
         assert_eq!(p.distinct(), Some(252));
@@ -590,7 +591,8 @@ mod tests {
 
     #[test]
     fn adjustments_match_the_worked_example() {
-        // METHODS.md §7.6 (values computed with statsmodels multipletests there).
+        // docs/methods.md, "Multiple testing": values derived by hand from the Holm and
+        // Benjamini–Hochberg formulas there; statsmodels multipletests gives the same.
         let p = [0.01, 0.04, 0.03, 0.20];
         let h = holm(&p);
         let b = benjamini_hochberg(&p);

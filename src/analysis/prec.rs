@@ -19,14 +19,15 @@ pub fn close(a: f64, b: f64, rel: f64) -> bool {
 pub(crate) mod test_data {
     use nalgebra::DMatrix;
 
-    /// Legendre & Legendre (1998) Numerical Ecology, 2nd Engl. ed., p. 457: the
-    /// 3 × 3 input table (sites × species), as cited in METHODS.md §11.2 (A).
+    /// Legendre & Legendre (1998) Numerical Ecology, 2nd Engl. ed., p. 457 (page as
+    /// cited by Legendre & Gallagher 2001, not checked against the book): the 3 × 3
+    /// input table (sites × species); docs/methods.md, "Legendre & Legendre's 3 × 3 table".
     pub(crate) fn ll457() -> DMatrix<f64> {
         DMatrix::from_row_slice(3, 3, &[10., 10., 20., 10., 15., 10., 15., 5., 5.])
     }
 
-    /// The toy community of METHODS.md §11.2 (B) (invented there): 10 samples ×
-    /// 6 taxa, group A = rows 0-4, group B = rows 5-9.
+    /// The toy community invented for the tests (docs/methods.md, "The toy community"):
+    /// 10 samples × 6 taxa, group A = rows 0-4, group B = rows 5-9.
     pub(crate) const TOY: [[f64; 6]; 10] = [
         [12., 5., 0., 3., 1., 0.],
         [20., 8., 1., 5., 0., 2.],

@@ -7,7 +7,7 @@
 //!
 //! A draw takes each sample's individuals one by one, taxon by taxon, and keeps
 //! each with probability `still needed / still available` (selection sampling,
-//! Knuth, *The Art of Computer Programming* vol. 2, §3.4.2, Algorithm S
+//! Knuth, *The Art of Computer Programming* vol. 2, section 3.4.2, Algorithm S
 //! [value from memory]), which gives every subset of N individuals the same
 //! probability. The count of taxon j in the subsample is then hypergeometric
 //! with mean `N · y_j / t` (tested below). Draw `r` of seed `s` uses generator
@@ -182,7 +182,7 @@ mod tests {
         // Subsampling k of N individuals without replacement, K of them of taxon j:
         // the count is hypergeometric with mean k K / N and variance
         // k (K/N) (1 - K/N) (N - k)/(N - 1) (Feller 1968, An Introduction to Probability
-        // Theory vol. 1, §II.6 [value from memory]; the formulas are also those of
+        // Theory vol. 1, section II.6 [value from memory]; the formulas are also those of
         // scipy.stats.hypergeom). Over R draws the mean of the counts has sd
         // sqrt(var / R); a deviation above 4.5 sd has probability < 1e-5 per cell.
         let y = DMatrix::from_row_slice(2, 4, &[50., 30., 15., 5., 3., 90., 6., 1.]);

@@ -1,10 +1,10 @@
 //! The size test: one-way comparison of log sample totals between groups
-//! (METHODS.md §6.3 "Companion tests"). Totals are given; effort standardisation is the
-//! caller's job. The statistic is the one-way F on `ln t` with a permutation p-value
-//! from the shared engine (PERMANOVA with Euclidean distance on one variable is this F:
-//! Anderson 2001). The effect size is the ratio of each group's geometric mean total to
-//! the reference group's, with a seeded percentile-bootstrap interval that resamples
-//! samples within groups.
+//! (docs/methods.md, "The `compare` workflow", step (a)). Totals are given; effort
+//! standardisation is the caller's job. The statistic is the one-way F on `ln t` with
+//! a permutation p-value from the shared engine (PERMANOVA with Euclidean distance on
+//! one variable is this F: Anderson 2001; docs/methods.md, "PERMANOVA"). The effect
+//! size is the ratio of each group's geometric mean total to the reference group's,
+//! with a seeded percentile-bootstrap interval that resamples samples within groups.
 //!
 //! Owns: [`size_test`], [`SizeTestOptions`], [`SizeTestResult`].
 

@@ -1,6 +1,6 @@
 //! Transformations of a samples × taxa matrix applied before a dissimilarity
-//! is computed (METHODS.md §2), and the chi-square standardisation used by the
-//! chi-square distance and correspondence analysis.
+//! is computed (docs/methods.md, "Transformations"), and the chi-square
+//! standardisation used by the chi-square distance and correspondence analysis.
 //!
 //! Owns input validation for non-negative data (finite, ≥ 0) and the refusal of
 //! empty samples where a transform needs the sample total. Pure: no I/O.
@@ -78,7 +78,8 @@ impl Transform {
     /// [`AnalysisError::NonFinite`] / [`AnalysisError::Negative`] at the first bad
     /// entry (row-major order); for [`Transform::Profile`] and
     /// [`Transform::Hellinger`], [`AnalysisError::EmptySamples`] listing every
-    /// row whose total is zero (its proportions are undefined, METHODS.md §1).
+    /// row whose total is zero (its proportions are undefined:
+    /// docs/methods.md, "Empty samples and empty taxa").
     ///
     /// # Examples
     /// ```
@@ -116,11 +117,12 @@ impl Transform {
 
 /// The chi-square standardisation `a_ij / sqrt(c_j)`, with `a_ij = y_ij / t_i`
 /// the row profile and `c_j = y_+j / y_++` the column mass **of the matrix
-/// given** (METHODS.md §2, "chi-square distance transform"). Euclidean distance
-/// between its rows is the chi-square distance of correspondence analysis.
+/// given** (docs/methods.md, "Transformations"). Euclidean distance between its
+/// rows is the chi-square distance of correspondence analysis (Greenacre 2007,
+/// *Correspondence Analysis in Practice*, 2nd ed. [from memory]).
 ///
 /// The masses depend on every row: compute once on the full table and subset
-/// the resulting distances, never recompute on a subset (METHODS.md §12.6).
+/// the resulting distances, never recompute on a subset (same section).
 ///
 /// # Errors
 /// [`AnalysisError::NonFinite`] / [`AnalysisError::Negative`] on bad entries;
@@ -203,8 +205,9 @@ mod tests {
     #[test]
     #[allow(clippy::approx_constant)] // 0.707107 is the printed reference value, not 1/√2 by intent
     fn hellinger_and_chi_square_coordinates_of_ll457() {
-        // METHODS.md §11.2 (A), transformed data, values [D] (derived from the
-        // §2 formulas, printed to 6 decimals).
+        // Input: docs/methods.md, "Legendre & Legendre's 3 × 3 table". Expected values
+        // derived from the formulas of docs/methods.md, "Transformations" (computed
+        // with NumPy, printed to 6 decimals); the book gives the input only.
         let h = Transform::Hellinger.apply(&ll457()).unwrap();
         let expect_h = [
             [0.5, 0.5, 0.707107],
@@ -227,7 +230,8 @@ mod tests {
 
     #[test]
     fn elementwise_transforms() {
-        // Definitions of METHODS.md §2 evaluated on values with exact results.
+        // Definitions of docs/methods.md, "Transformations" evaluated on values with
+        // exact results.
         let y = DMatrix::from_row_slice(1, 4, &[0., 1., 16., 81.]);
         assert_eq!(
             Transform::Sqrt.apply(&y).unwrap().as_slice(),

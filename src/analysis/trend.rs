@@ -1171,7 +1171,8 @@ mod tests {
     fn balanced_year_relabelling_equals_freedman_lane_whole_blocks() {
         // In a complete site × year grid, relabelling years by π is the row
         // permutation that moves each site's year-π(c) row to year c: the
-        // Freedman–Lane statistic of METHODS.md §7.3 under synchronised blocks.
+        // Freedman–Lane statistic (docs/methods.md, "Permutation schemes and p-values")
+        // under synchronised blocks.
         let (site, year, y) = random_data(5, 4, 6, 0.0);
         let n = site.len();
         let d = Distance::BrayCurtis.compute(&y).unwrap();

@@ -524,8 +524,8 @@ fn segment_colour(k: usize) -> RGBColor {
 /// Stacked bars of the size/shape partition, one bar per dissimilarity or
 /// transform, segments bottom to top: size only, shared, shape only,
 /// unexplained. A negative adjusted fraction is a legitimate estimate
-/// (docs/methods.md §5.4) but cannot be drawn as a length: it is drawn as zero,
-/// its bar gets an asterisk, and a footnote gives the value.
+/// (docs/methods.md, "Negative fractions") but cannot be drawn as a length: it is
+/// drawn as zero, its bar gets an asterisk, and a footnote gives the value.
 ///
 /// # Errors
 /// [`SvgError::Empty`] without bars, [`SvgError::NonFinite`] for a NaN or

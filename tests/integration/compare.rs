@@ -373,7 +373,7 @@ fn partition_command_reports_fractions_tests_and_not_applicable_tests() {
         assert!(names.contains(&n), "{n} in {names:?}");
     }
     // --compare-distances: one partition per pair; chi-square with the whole profile
-    // space explains everything (METHODS.md §6.3 property 1), so its tests are null.
+    // space explains everything (docs/methods.md, "The shape design"), so its tests are null.
     let mut args: Vec<&str> = base.to_vec();
     args.extend([
         "--compare-distances",

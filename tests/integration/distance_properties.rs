@@ -1,7 +1,8 @@
 //! Property tests of the dissimilarity and PCoA kernels on random count
-//! matrices: structural properties of a dissimilarity matrix, the invariances
-//! stated in METHODS.md §2-§3, identities between coefficients (METHODS.md
-//! §11.1), and classical scaling reproducing Euclidean distances.
+//! matrices: structural properties of a dissimilarity matrix, the invariances and
+//! identities between coefficients stated in docs/methods.md, "Transformations" and
+//! docs/methods.md, "Dissimilarities" (derived from the definitions), and classical
+//! scaling reproducing Euclidean distances.
 
 use nalgebra::DMatrix;
 use proptest::prelude::*;
@@ -52,11 +53,12 @@ proptest! {
                 }
             }
             if matches!(dist, Distance::BrayCurtis | Distance::Jaccard | Distance::Kulczynski) {
-                // METHODS.md §3.1: these coefficients lie in [0, 1] for counts.
+                // docs/methods.md, "Dissimilarities": these coefficients lie in [0, 1] for counts.
                 prop_assert!(d.condensed().iter().all(|v| *v <= 1.0 + 1e-12));
             }
             if dist == Distance::Hellinger {
-                // METHODS.md §3.1: Hellinger range [0, sqrt 2] in the ecological form.
+                // docs/methods.md, "Dissimilarities": Hellinger range [0, sqrt 2] in the ecological form
+                // (Legendre & Gallagher 2001).
                 prop_assert!(d.condensed().iter().all(|v| *v <= 2f64.sqrt() + 1e-12));
             }
         }
@@ -84,8 +86,8 @@ proptest! {
 
     #[test]
     fn bray_curtis_ignores_a_common_scale(y in counts(), c in 0.01f64..100.0) {
-        // Bray & Curtis (1957); METHODS.md §3.1: unchanged when both samples are
-        // multiplied by the same constant.
+        // Bray & Curtis (1957); docs/methods.md, "Dissimilarities": unchanged when both
+        // samples are multiplied by the same constant.
         let a = Distance::BrayCurtis.compute(&y).unwrap();
         let b = Distance::BrayCurtis.compute(&(&y * c)).unwrap();
         for (u, v) in a.condensed().iter().zip(b.condensed()) {
@@ -95,8 +97,8 @@ proptest! {
 
     #[test]
     fn profile_and_hellinger_ignore_the_size_of_one_sample(y in counts(), r in 0usize..100, c in 0.01f64..100.0) {
-        // METHODS.md §2 [D]: profile and Hellinger rows depend only on the shape of
-        // each row; multiplying row r by a constant changes nothing.
+        // docs/methods.md, "Transformations" (derived): profile and Hellinger rows depend
+        // only on the shape of each row; multiplying row r by a constant changes nothing.
         let r = r % y.nrows();
         let mut ys = y.clone();
         ys.row_mut(r).scale_mut(c);
@@ -118,14 +120,15 @@ proptest! {
     fn coefficient_identities(y in counts()) {
         let n = y.nrows();
         let prof = Transform::Profile.apply(&y).unwrap();
-        // METHODS.md §11.1 item 8 [D]: Bray-Curtis on profiles = half the
+        // docs/methods.md, "Dissimilarities" (derived): Bray-Curtis on profiles = half the
         // Manhattan distance on profiles.
         let bc = Distance::BrayCurtis.compute(&prof).unwrap();
         let man = Distance::Manhattan.compute(&prof).unwrap();
-        // METHODS.md §11.1 item 4: Hellinger = Euclidean on square-root profiles.
+        // Hellinger = Euclidean on square-root profiles, by definition (Legendre &
+        // Gallagher 2001; docs/methods.md, "Transformations").
         let hel = Distance::Hellinger.compute(&y).unwrap();
         let eu = Distance::Euclidean.compute(&prof.map(f64::sqrt)).unwrap();
-        // Jaccard is binary: the same on counts and on presences (METHODS.md §3.1).
+        // Jaccard is binary: the same on counts and on presences (docs/methods.md, "Dissimilarities").
         let j1 = Distance::Jaccard.compute(&y).unwrap();
         let j2 = Distance::Jaccard.compute(&Transform::Presence.apply(&y).unwrap()).unwrap();
         for k in 0..n * (n - 1) / 2 {

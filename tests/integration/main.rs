@@ -1,5 +1,6 @@
 //! End-to-end tests: one binary, driving the built `tally` on temporary stores.
 mod architecture;
+mod citations;
 mod compare;
 mod demo_data;
 mod distance_properties;

@@ -7,8 +7,8 @@ use nalgebra::DMatrix;
 use serde_json::Value;
 use tally::analysis::{AnalysisError, Distance, Transform, pcoa};
 
-/// Relative tolerance for closed-form quantities (METHODS.md §11), with an
-/// absolute floor for values that are exactly zero in the reference.
+/// Relative tolerance for closed-form quantities (tests/reference/README.md, "Tolerances"),
+/// with an absolute floor for values that are exactly zero in the reference.
 const REL: f64 = 1e-9;
 const ABS: f64 = 1e-12;
 
@@ -111,8 +111,9 @@ fn pcoa_eigenvalues_match_numpy_eigh() {
         let tr = case["trace"].as_f64().unwrap();
         assert!(close(p.trace, tr), "{label}: trace {} vs {tr}", p.trace);
         if d.is_euclidean() {
-            // METHODS.md §3.2 table [D]: Euclidean-type distances have no negative
-            // eigenvalues beyond rounding.
+            // Gower & Legendre (1986), J. Classification 3:5-48;
+            // docs/methods.md, "Euclidean and non-Euclidean dissimilarities":
+            // Euclidean-type distances have no negative eigenvalues beyond rounding.
             assert_eq!(p.negative_sum, 0.0, "{label}");
         }
     }

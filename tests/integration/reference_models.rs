@@ -50,7 +50,7 @@ fn euclidean(rows: &[Vec<f64>]) -> DistanceMatrix {
 }
 
 fn close(a: f64, b: f64) -> bool {
-    // METHODS.md §11: 1e-9 relative for closed-form quantities.
+    // 1e-9 relative for closed-form quantities (tests/reference/README.md, "Tolerances").
     (a - b).abs() <= 1e-9 * a.abs().max(b.abs()).max(1.0)
 }
 
@@ -97,8 +97,8 @@ fn permanova_on_one_variable_equals_anova_f() {
 
 #[test]
 fn size_test_f_equals_anova_f_on_log_totals() {
-    // The size test is the one-way F on ln(total) (METHODS.md §6.3): with totals = exp(v)
-    // it must equal scipy.stats.f_oneway on v.
+    // The size test is the one-way F on ln(total) (docs/methods.md, "PERMANOVA"): with
+    // totals = exp(v) it must equal scipy.stats.f_oneway on v.
     for case in fixture("models_oneway.json")["cases"]
         .as_array()
         .expect("cases")
@@ -134,8 +134,9 @@ fn size_test_f_equals_anova_f_on_log_totals() {
 
 #[test]
 fn euclidean_db_rda_r2_equals_pooled_ols_r2() {
-    // McArdle & Anderson (2001) Ecology 82:290-297 / METHODS.md §5.1: with Euclidean D,
-    // tr(HG)/tr(G) is the pooled OLS R² of Y on the design (statsmodels OLS).
+    // McArdle & Anderson (2001) Ecology 82:290-297;
+    // docs/methods.md, "Distance-based linear models": with Euclidean D, tr(HG)/tr(G)
+    // is the pooled OLS R² of Y on the design (statsmodels OLS).
     let fx = fixture("models_ols.json");
     let y = rows(&fx["y"]);
     let n = y.len();
@@ -163,8 +164,9 @@ fn euclidean_db_rda_r2_equals_pooled_ols_r2() {
 
 #[test]
 fn sequential_and_marginal_ss_equal_statsmodels_types_one_and_two() {
-    // METHODS.md §5.2: with Euclidean D on one variable the term SS equal
-    // statsmodels anova_lm(typ=1) (sequential) and typ=2 for main effects (marginal).
+    // docs/methods.md, "Distance-based linear models": with Euclidean D on one variable
+    // the term SS equal statsmodels anova_lm(typ=1) (sequential) and typ=2 for main
+    // effects (marginal).
     let fx = fixture("models_anova.json");
     let y: Vec<Vec<f64>> = floats(&fx["y"]).into_iter().map(|v| vec![v]).collect();
     let n = y.len();
@@ -244,9 +246,9 @@ fn holm_and_bh_equal_statsmodels_multipletests() {
 
 #[test]
 fn distances_to_centroids_from_g_equal_coordinate_distances() {
-    // Anderson (2006) Biometrics 62:245-253 / METHODS.md §8.1: for Euclidean D the
-    // formula on G gives the Euclidean distance to the group centroid (NumPy), and the
-    // statistic is f_oneway on those distances.
+    // Anderson (2006) Biometrics 62:245-253; docs/methods.md, "Dispersion": for
+    // Euclidean D the formula on G gives the Euclidean distance to the group centroid
+    // (NumPy), and the statistic is f_oneway on those distances.
     let fx = fixture("models_dispersion.json");
     let x = rows(&fx["coordinates"]);
     let codes: Vec<usize> = fx["groups"]

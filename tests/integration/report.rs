@@ -113,7 +113,8 @@ fn pcoa_states_negative_eigenvalues_and_csv_has_axes() {
         ],
     ));
     let v: Value = serde_json::from_str(&out).unwrap();
-    // Bray-Curtis is not Euclidean: some negative eigenvalues (METHODS.md §3.2).
+    // Bray-Curtis is not Euclidean: some negative eigenvalues
+    // (docs/methods.md, "Euclidean and non-Euclidean dissimilarities").
     let share = v["negative_eigenvalue_share"].as_f64().unwrap();
     assert!(share > 0.0 && share < 0.5, "{share}");
     assert!(!v["negative_eigenvalues"].as_array().unwrap().is_empty());

@@ -85,7 +85,7 @@ def matrices():
 
 
 # --------------------------------------------------------------------------
-# Transforms (METHODS.md section 2), written out in NumPy
+# Transforms (docs/methods.md, "Transformations"), written out in NumPy
 # --------------------------------------------------------------------------
 
 class Refused(Exception):
@@ -125,7 +125,7 @@ TRANSFORMS = {
 # --------------------------------------------------------------------------
 # Distances. SciPy pdist where SciPy has the coefficient; NumPy formulas where
 # no general library has it (chi-square, Hellinger, quantitative Kulczynski:
-# METHODS.md section 11.3 -- there is no library oracle for those).
+# SciPy 1.17 has none of them; definitions in docs/methods.md, "Dissimilarities").
 # --------------------------------------------------------------------------
 
 def condensed(square):
@@ -142,7 +142,7 @@ def bray_curtis(x):
 
 def chi_square(x):
     # d^2(i,k) = sum_j (a_ij - a_kj)^2 / c_j, a = row profiles, c = column masses
-    # of the matrix given (METHODS.md section 3.1).
+    # of the matrix given (docs/methods.md, "Dissimilarities").
     a = profiles(x)
     cols = empty_cols(x)
     if cols:
@@ -213,13 +213,14 @@ def distances_fixture():
                 case = {"matrix": name, "transform": tname, "distance": dname, "oracle": oracle}
                 if terr is not None:
                     case["error"] = terr
-                    case["oracle"] = "METHODS.md section 1: refused (transform needs totals)"
+                    case["oracle"] = ('docs/methods.md, "Empty samples and empty taxa": '
+                                      "refused (transform needs totals)")
                 else:
                     try:
                         case["condensed"] = df(x)
                     except Refused as e:
                         case["error"] = e.payload
-                        case["oracle"] = "METHODS.md sections 1 and 3.1: refused"
+                        case["oracle"] = 'docs/methods.md, "Empty samples and empty taxa": refused'
                 cases.append(case)
                 if "condensed" in case and tname in ("none", "sqrt"):
                     ev, tr = gower_eigenvalues(np.array(case["condensed"]), y.shape[0])

@@ -78,7 +78,8 @@ def ols():
 
 
 def anova():
-    """Type I and II sums of squares (statsmodels anova_lm) on the unbalanced 3 x 2 design of METHODS.md 5.2."""
+    """Type I and II sums of squares (statsmodels anova_lm) on an unbalanced 3 x 2 design
+    (docs/methods.md, "Distance-based linear models")."""
     rng = np.random.default_rng(3)
     a = np.array(list("aaaaabbbbbbbccc"))
     b = np.array(list("xyxyxxyyxyxyyxy"))

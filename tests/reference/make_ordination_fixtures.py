@@ -16,7 +16,7 @@ import numpy as np
 import scipy
 from scipy import stats
 
-# Toy community of docs/methods.md §11.2 (B): 10 samples x 6 taxa.
+# Toy community of docs/methods.md, "The toy community": 10 samples x 6 taxa.
 TOY = np.array(
     [
         [12, 5, 0, 3, 1, 0],
