@@ -21,6 +21,7 @@ pub mod error;
 pub mod permanova;
 pub mod prepare;
 pub mod runs;
+pub mod trend;
 
 pub use error::{Result, WorkflowError};
 pub use prepare::{Prepared, prepare, resolve};
@@ -155,6 +156,7 @@ macro_rules! analyses {
 analyses! {
     Permanova => permanova,
     Dispersion => dispersion,
+    Trend => trend,
 }
 
 #[cfg(test)]
