@@ -137,6 +137,32 @@ fn replay_args(argv: &[String]) -> Vec<String> {
 /// cannot be replayed (named, with the reason); analysis errors of the replay.
 pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let r = store.run(id)?;
+    if r.kind == crate::workflow::trend::KIND {
+        // Typed specs replay in-process.
+        let w = crate::workflow::runs::verify(store, id)?;
+        return Ok(VerifyReport {
+            run_id: w.run_id,
+            kind: w.kind,
+            stored_fingerprint: w.stored_fingerprint,
+            fingerprint: w.fingerprint,
+            fingerprint_matches: w.fingerprint_matches,
+            compared: w.compared,
+            differences: w
+                .differences
+                .into_iter()
+                .map(|d| Difference {
+                    path: d.path,
+                    stored: d.stored,
+                    recomputed: d.recomputed,
+                    text_only: d.text_only,
+                })
+                .collect(),
+            numbers_differing: w.numbers_differing,
+            max_relative_difference: w.max_relative_difference,
+            stored_by: w.stored_by,
+            identical: w.identical,
+        });
+    }
     let sel: Selection =
         serde_json::from_value(r.selection.clone()).context("reading the stored selection")?;
     let m = load_matrix(store, &sel).context("reassembling the stored selection")?;
