@@ -31,7 +31,7 @@
 //! precomputed: O(k²) per permutation for k years.
 
 use nalgebra::{DMatrix, DVector};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use super::AnalysisError;
 use super::DistanceMatrix;
@@ -50,7 +50,7 @@ pub enum Baseline {
 }
 
 /// Which breakpoint to test.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum BreakpointSpec {
     /// Search every year that leaves at least two years on each side.

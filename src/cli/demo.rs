@@ -12,14 +12,17 @@ use super::common::Periods;
 use super::common::RunArgs;
 use super::report;
 use super::selection::{SelectionArgs, UnitArg, flags_of};
+use crate::analysis::trend::BreakpointSpec;
 use crate::demo::DemoFiles;
+use crate::matrix::Unit;
 use crate::report::html::{self, Part};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
+use crate::store::Selection;
 use crate::store::Store;
 use crate::store::import::{ImportKind, ImportOptions, import_bytes};
 use crate::workflow::design::DistanceSpec;
 use crate::workflow::ordinate::{self, Method};
-use crate::workflow::{self, Analysis, Silent, runs};
+use crate::workflow::{self, Analysis, Silent, runs, trend};
 
 /// Arguments of `tally demo`.
 #[derive(Debug, clap::Args)]
@@ -288,37 +291,31 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     ));
     let partition = report::partition_entry(partition_result);
     let compare = Part::Done(compare);
-    let seed = DEMO_SEED.to_string();
-    let perms = DEMO_PERMUTATIONS.to_string();
-    let trend_words = [
-        "--protocol",
-        "kick",
-        "--per-effort",
-        "--every",
-        "year",
-        "--split-by",
-        "reach",
-        "--breakpoint",
-        "auto",
-        "--permutations",
-        &perms,
-        "--seed",
-        &seed,
-    ];
-    let trend_args: super::trend::Args = super::common::args_from(&trend_words)?;
-    let trend_json = super::trend::compute_and_store(store, &trend_args)?;
+    let trend_selection = Selection {
+        protocol: Some("kick".into()),
+        per_effort: true,
+        unit: Some(Unit::SiteYear),
+        ..Selection::default()
+    };
+    let mut trend_spec = trend::Spec::new(DEMO_PERMUTATIONS, DEMO_SEED);
+    trend_spec.breakpoint = Some(BreakpointSpec::Auto);
+    let trend_parts = trend::split(store, &trend_selection, "reach")?;
+    let split = trend_spec.run_split("reach", &trend_parts, &Silent)?;
+    for id in runs::save(store, &split.to_save(&trend_spec, &trend_parts)?)? {
+        run_ids.push(("trends".to_string(), id));
+    }
     for r in reaches.iter_mut() {
-        let group = trend_json["groups"]
-            .as_array()
-            .and_then(|g| g.iter().find(|x| x["group"] == r.reach.as_str()));
-        if let Some(g) = group {
-            r.diagnosis = g["diagnosis"].as_str().unwrap_or_default().to_string();
+        if let Some(g) = split.groups.iter().find(|g| g.group == r.reach) {
+            r.diagnosis = g.outcome.diagnosis.name().to_string();
         }
     }
-    let trends = report::trend_entry(trend_json);
+    let trends = Part::Done(split.groups);
     parameters.push((
         "trends".to_string(),
-        format!("tally trend {}", trend_words.join(" ")),
+        format!(
+            "tally trend {} --every year --split-by reach --breakpoint auto --permutations {DEMO_PERMUTATIONS} --seed {DEMO_SEED}",
+            flags_of(&trend_selection)
+        ),
     ));
     let totals = Part::Done(TotalsPlot {
         title: "Organisms per minute, by reach and period".into(),

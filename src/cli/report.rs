@@ -18,12 +18,13 @@ use super::common::RunArgs;
 use super::common::{Periods, parse_periods};
 use super::ordinate::write_new_file;
 use super::selection::{SelectionArgs, flags_of};
+use crate::analysis::trend::BreakpointSpec;
 use crate::report::html::{self, Labelled, OrdinationPart, Part, ReportInput};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
 use crate::store::Store;
 use crate::workflow::design::DistanceSpec;
 use crate::workflow::ordinate::{self, Method};
-use crate::workflow::{self, Analysis, Silent};
+use crate::workflow::{self, Analysis, Silent, runs, trend};
 
 /// Arguments of `tally report`.
 #[derive(Debug, Clone, clap::Args)]
@@ -128,9 +129,34 @@ pub fn partition_entry(result: Value) -> Part<Value> {
     Part::Done(result)
 }
 
-/// A `tally trend` JSON result (single or with `--split-by` groups).
-pub fn trend_entry(result: Value) -> Part<Value> {
-    Part::Done(result)
+/// The trends of the report: `tally trend --split-by FIELD --every year
+/// --breakpoint auto` on the report's selection, one stored run per group
+/// (unless `--no-store`, each id listed under `trends`).
+///
+/// # Errors
+/// Selection, field and analysis errors; SQLite errors.
+fn trend_groups(
+    store: &mut Store,
+    args: &Args,
+    field: &str,
+    run_ids: &mut Vec<(String, i64)>,
+) -> anyhow::Result<Vec<trend::Group>> {
+    let sel = trend::resolve(
+        store,
+        args.selection.selection.as_deref(),
+        &args.selection.explicit(),
+        trend::Every::Year,
+    )?;
+    let parts = trend::split(store, &sel, field)?;
+    let mut spec = trend::Spec::new(args.run.permutations, args.run.seed());
+    spec.breakpoint = Some(BreakpointSpec::Auto);
+    let split = spec.run_split(field, &parts, &Silent)?;
+    if !args.run.no_store {
+        for id in runs::save(store, &split.to_save(&spec, &parts)?)? {
+            run_ids.push(("trends".to_string(), id));
+        }
+    }
+    Ok(split.groups)
 }
 
 /// The run id a command put in its JSON (`run_id`), if any.
@@ -230,28 +256,16 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
     };
     let trends = match &args.split_by {
         Some(split) => {
-            let mut t: super::trend::Args = super::common::args_from(&[
-                "--split-by",
-                split,
-                "--every",
-                "year",
-                "--breakpoint",
-                "auto",
-            ])?;
-            t.selection = args.selection.clone();
-            t.run = args.run.clone();
-            trend_entry(
-                super::trend::compute_and_store(store, &t).context("trends for the report")?,
-            )
+            let groups =
+                trend_groups(store, args, split, &mut run_ids).context("trends for the report")?;
+            parameters.push((
+                "trends".to_string(),
+                format!("tally trend {flags} --split-by {split} --every year --breakpoint auto"),
+            ));
+            Part::Done(groups)
         }
         None => Part::NotRequested,
     };
-    if args.split_by.is_some() {
-        parameters.push((
-            "trends".to_string(),
-            format!("tally trend {flags} --split-by {field} --every year --breakpoint auto"),
-        ));
-    }
     Ok(ReportInput {
         title: "Community change report".to_string(),
         selection_text,

@@ -9,6 +9,7 @@ use serde_json::json;
 use super::FormatArg;
 use crate::report::format::{new_table, opt_num, write_json, write_table};
 use crate::store::Store;
+use crate::workflow::trend;
 
 /// Arguments of `tally runs`.
 #[derive(Debug, clap::Args)]
@@ -47,7 +48,9 @@ pub enum Action {
         #[arg(long, value_enum, default_value_t = FormatArg::Table)]
         format: FormatArg,
     },
-    /// A stored number across runs, ordered by the period each run's data covers.
+    /// A stored number across runs, ordered by the period each run's data covers
+    /// (for `--kind trend`, a per-period value such as `size_part` gives one
+    /// point per trend run and period, dated by the period).
     Series {
         /// Kind of run.
         #[arg(long)]
@@ -183,7 +186,12 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 Some(name) => Some(serde_json::to_value(store.selection(&name)?)?),
                 None => None,
             };
-            let points = store.series(&kind, &value, sel.as_ref())?;
+            let mut points = store.series(&kind, &value, sel.as_ref())?;
+            if points.is_empty() && kind == trend::KIND {
+                // Per-period values of trend runs (`period.2016.size_part`), one
+                // point per run and period, dated by the period.
+                points = trend::period_series(store, &value, sel.as_ref())?;
+            }
             match format {
                 FormatArg::Json => {
                     let list: Vec<_> = points

@@ -137,8 +137,8 @@ fn replay_args(argv: &[String]) -> Vec<String> {
 /// cannot be replayed (named, with the reason); analysis errors of the replay.
 pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let r = store.run(id)?;
-    if r.kind == crate::workflow::ordinate::KIND {
-        // Typed spec: replayed in-process by the workflow layer.
+    if r.kind == crate::workflow::ordinate::KIND || r.kind == crate::workflow::trend::KIND {
+        // Typed specs replay in-process.
         let w = crate::workflow::runs::verify(store, id)?;
         return Ok(VerifyReport {
             run_id: w.run_id,

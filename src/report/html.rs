@@ -11,9 +11,12 @@
 
 use serde_json::Value;
 
+use super::format::fmt_p;
 use super::svg::{
     self, OrdinationPlot, PartitionBar, PartitionPlot, TotalsPlot, TrendPlot, TrendPoint,
 };
+use crate::analysis::trend::Diagnosis;
+use crate::workflow::trend;
 
 /// One part of the report.
 #[derive(Debug, Clone, PartialEq)]
@@ -76,8 +79,9 @@ pub struct ReportInput {
     pub ordination: Part<Vec<OrdinationPart>>,
     /// Totals per group.
     pub totals: Part<TotalsPlot>,
-    /// `tally trend` result (single, or with `groups` from `--split-by`).
-    pub trends: Part<Value>,
+    /// `tally trend` outcomes: one per group of `--split-by` (or one with an
+    /// empty group name for a single trend).
+    pub trends: Part<Vec<trend::Group>>,
     /// Which stored run produced which part: (part, run id).
     pub run_ids: Vec<(String, i64)>,
     /// How each part was obtained: (part, parameters or command line).
@@ -301,75 +305,88 @@ fn figure(svg_text: Result<String, svg::SvgError>, label: &str, caption: &str) -
     }
 }
 
-/// The trend objects of a trend result: the `groups` list, or the result itself.
-fn trend_groups(v: &Value) -> Vec<(String, &Value)> {
-    match v.get("groups").and_then(Value::as_array) {
-        Some(gs) => gs.iter().map(|g| (text_of(&g["group"]), g)).collect(),
-        None => vec![(String::new(), v)],
+/// A trend number for people, as the other report numbers (`—` when not computed).
+fn fnum(v: Option<f64>, digits: usize) -> String {
+    f(&serde_json::json!(v), digits)
+}
+
+/// The position of a period on the time axis: its year, with the periods of
+/// one year (seasons) spread evenly across that year.
+fn period_position(t: &trend::Outcome, p: &trend::Period) -> f64 {
+    let same: Vec<&trend::Period> = t.periods.iter().filter(|q| q.year == p.year).collect();
+    let k = same.iter().position(|q| q.period == p.period).unwrap_or(0);
+    f64::from(p.year) + k as f64 / same.len().max(1) as f64
+}
+
+/// Where a breakpoint `year` (the first year "after") is drawn: midway between
+/// the last period before it and the first period from it on.
+fn breakpoint_position(t: &trend::Outcome, year: i32) -> f64 {
+    let before = t
+        .periods
+        .iter()
+        .filter(|p| p.year < year)
+        .map(|p| period_position(t, p))
+        .reduce(f64::max);
+    let after = t
+        .periods
+        .iter()
+        .filter(|p| p.year >= year)
+        .map(|p| period_position(t, p))
+        .reduce(f64::min);
+    match (before, after) {
+        (Some(a), Some(b)) => (a + b) / 2.0,
+        _ => f64::from(year) - 0.5,
     }
 }
 
-/// A period value as a position on the time axis (`2016`, `"2016"`, `"2016-spring"`).
-fn period_position(v: &Value) -> Option<f64> {
-    match v {
-        Value::Number(n) => n.as_f64(),
-        Value::String(s) => {
-            let digits: String = s.chars().take_while(|c| c.is_ascii_digit()).collect();
-            digits.parse::<f64>().ok()
-        }
-        _ => None,
-    }
-}
-
-/// The trend panel input of one trend object.
-fn trend_plot(label: &str, t: &Value, subtitle: &str) -> Option<TrendPlot> {
-    let periods = t.get("periods")?.as_array()?;
+/// The trend panel input of one trend. The baseline band spans the baseline
+/// periods; a breakpoint is drawn when its max-F test alone would count its
+/// aspect as changed under the diagnosis rule (`min(1, 2 p) ≤ alpha`).
+fn trend_plot(label: &str, t: &trend::Outcome, subtitle: &str) -> Option<TrendPlot> {
     let mut points = Vec::new();
     let mut with_interval = false;
-    for pe in periods {
-        let (Some(x), Some(a)) = (period_position(&pe["period"]), pe["abundance"].as_f64()) else {
+    for pe in &t.periods {
+        let Some(a) = pe.abundance.filter(|a| a.is_finite()) else {
             continue;
         };
-        let lo = pe["abundance_low"].as_f64().or(pe["ci_low"].as_f64());
-        let hi = pe["abundance_high"].as_f64().or(pe["ci_high"].as_f64());
+        let (lo, hi) = (pe.abundance_ci_low, pe.abundance_ci_high);
         with_interval |= lo.is_some() && hi.is_some();
         points.push(TrendPoint {
-            period: x,
+            period: period_position(t, pe),
             abundance: a,
             lower: lo.unwrap_or(a),
             upper: hi.unwrap_or(a),
-            shape_distance: pe["shape_distance"].as_f64(),
+            shape_distance: pe.shape_distance,
         });
     }
     if points.is_empty() {
         return None;
     }
-    let baseline = match &t["baseline"] {
-        Value::Array(a) if a.len() == 2 => a[0].as_f64().zip(a[1].as_f64()),
-        Value::String(s) => s.split_once("..").and_then(|(a, b)| {
-            Some((a.trim().parse::<f64>().ok()?, b.trim().parse::<f64>().ok()?))
-        }),
-        Value::Object(o) => o
-            .get("from")
-            .and_then(Value::as_f64)
-            .zip(o.get("to").and_then(Value::as_f64)),
-        _ => None,
+    let base: Vec<f64> = t
+        .periods
+        .iter()
+        .filter(|p| p.baseline)
+        .map(|p| period_position(t, p))
+        .collect();
+    let baseline = match (
+        base.iter().copied().reduce(f64::min),
+        base.iter().copied().reduce(f64::max),
+    ) {
+        (Some(a), Some(b)) => (a, b),
+        _ => (points[0].period, points[0].period),
+    };
+    let mut breakpoints: Vec<f64> = Vec::new();
+    if let Some(b) = &t.breakpoints {
+        for (year, p) in [
+            (b.size.year, b.size.p_value),
+            (b.shape.year, b.shape.p_value),
+        ] {
+            let x = breakpoint_position(t, year);
+            if (2.0 * p).min(1.0) <= t.alpha && !breakpoints.contains(&x) {
+                breakpoints.push(x);
+            }
+        }
     }
-    .unwrap_or((points[0].period, points[0].period));
-    let breakpoints = t["breakpoints"]
-        .as_array()
-        .map(|b| {
-            b.iter()
-                .filter_map(|x| {
-                    x.as_f64().or_else(|| {
-                        ["year", "period", "at"]
-                            .iter()
-                            .find_map(|k| x.get(*k).and_then(period_position_ref))
-                    })
-                })
-                .collect()
-        })
-        .unwrap_or_default();
     Some(TrendPlot {
         title: if label.is_empty() {
             "Abundance and composition over time".into()
@@ -377,24 +394,21 @@ fn trend_plot(label: &str, t: &Value, subtitle: &str) -> Option<TrendPlot> {
             format!("{label}: abundance and composition over time")
         },
         subtitle: subtitle.to_string(),
-        abundance_label: t["abundance_label"]
-            .as_str()
-            .unwrap_or("Organisms per unit effort")
-            .to_string(),
+        abundance_label: if t.per_effort {
+            "Organisms per unit effort".into()
+        } else {
+            "Organisms per sample".into()
+        },
         interval_label: if with_interval {
             "95% interval".into()
         } else {
             "no interval reported".into()
         },
-        distance_label: "Shape distance to baseline".into(),
+        distance_label: format!("Shape distance to baseline ({})", t.distances.shape.name()),
         points,
         baseline,
         breakpoints,
     })
-}
-
-fn period_position_ref(v: &Value) -> Option<f64> {
-    period_position(v)
 }
 
 /// Partition bars from a partition result (`partitions` list or one result)
@@ -441,27 +455,25 @@ fn glance(out: &mut String, input: &ReportInput) {
             ));
         }
     }
-    if let Some(t) = input.trends.done() {
-        for (g, tv) in trend_groups(t) {
-            let d = text_of(&tv["diagnosis"]);
-            let meaning = match d.as_str() {
-                "abundance" => "organisms fewer or more, mix of taxa steady",
-                "composition" => "mix of taxa changing, numbers steady",
-                "both" => "numbers and mix of taxa both changing",
-                "none" => "no trend in numbers or in the mix of taxa",
-                _ => "",
-            };
-            cards.push_str(&format!(
-                "<div class=\"card\"><h3>Trend{}</h3><p><span class=\"tag diag\">{}</span> {}</p><p>Size: {} % per year (p = {}); shape: R² {} (p = {})</p></div>\n",
-                if g.is_empty() { String::new() } else { format!(": {}", esc(&g)) },
-                esc(&d),
-                esc(meaning),
-                f(&tv["size_trend"]["slope_pct_per_year"], 1),
-                p(&tv["size_trend"]["p_value"]),
-                f(&tv["shape_trend"]["r2"], 3),
-                p(&tv["shape_trend"]["p_value"]),
-            ));
-        }
+    for g in input.trends.done().into_iter().flatten() {
+        let t = &g.outcome;
+        let d = t.diagnosis.name();
+        let meaning = match t.diagnosis {
+            Diagnosis::Abundance => "organisms fewer or more, mix of taxa steady",
+            Diagnosis::Composition => "mix of taxa changing, numbers steady",
+            Diagnosis::Both => "numbers and mix of taxa both changing",
+            Diagnosis::None => "no trend in numbers or in the mix of taxa",
+        };
+        cards.push_str(&format!(
+            "<div class=\"card\"><h3>Trend{}</h3><p><span class=\"tag diag\">{}</span> {}</p><p>Size: {} % per year (p = {}); shape: R² {} (p = {})</p></div>\n",
+            if g.group.is_empty() { String::new() } else { format!(": {}", esc(&g.group)) },
+            esc(d),
+            esc(meaning),
+            fnum(Some(t.size_trend.slope_pct_per_year), 1),
+            fmt_p(t.size_trend.p_value, t.permutations),
+            fnum(Some(t.shape_trend.r2), 3),
+            fmt_p(t.shape_trend.p_value, t.permutations),
+        ));
     }
     if let Some(os) = input.ordination.done() {
         for o in os {
@@ -748,53 +760,71 @@ fn ordination_part(out: &mut String, part: &Part<Vec<OrdinationPart>>) {
 fn trends_part(out: &mut String, input: &ReportInput) {
     open_section(out, "trends");
     if !not_shown(out, &input.trends, "a trend analysis") {
-        for (g, t) in input.trends.done().map(trend_groups).unwrap_or_default() {
-            if !g.is_empty() {
-                out.push_str(&format!("<h3>{}</h3>\n", esc(&g)));
+        for g in input.trends.done().into_iter().flatten() {
+            let t = &g.outcome;
+            if !g.group.is_empty() {
+                out.push_str(&format!("<h3>{}</h3>\n", esc(&g.group)));
             }
             out.push_str(&format!(
                 "<p>Diagnosis: <span class=\"tag diag\">{}</span> — size trend {} % per year (p = {}), shape trend R² {} (p = {}).</p>\n",
-                esc(&text_of(&t["diagnosis"])),
-                f(&t["size_trend"]["slope_pct_per_year"], 2),
-                p(&t["size_trend"]["p_value"]),
-                f(&t["shape_trend"]["r2"], 3),
-                p(&t["shape_trend"]["p_value"]),
+                esc(t.diagnosis.name()),
+                fnum(Some(t.size_trend.slope_pct_per_year), 2),
+                fmt_p(t.size_trend.p_value, t.permutations),
+                fnum(Some(t.shape_trend.r2), 3),
+                fmt_p(t.shape_trend.p_value, t.permutations),
             ));
-            match trend_plot(&g, t, &input.selection_text) {
+            if let Some(b) = &t.breakpoints {
+                out.push_str(&format!(
+                    "<p>Best before/after split: size from {} ({} %, p = {}), shape from {} (R² {}, p = {}).</p>\n",
+                    b.size.year,
+                    fnum(Some(b.size.change_pct), 1),
+                    fmt_p(b.size.p_value, t.permutations),
+                    b.shape.year,
+                    fnum(Some(b.shape.r2), 3),
+                    fmt_p(b.shape.p_value, t.permutations),
+                ));
+            }
+            match trend_plot(&g.group, t, &input.selection_text) {
                 Some(plot) => out.push_str(&figure(
                     svg::trend_svg(&plot),
                     &plot.title,
-                    "Top: organisms per unit effort. Bottom: distance of each period's composition from the baseline composition.",
+                    "Top: organisms per unit effort with the 95% interval of each period. Bottom: distance of each period's composition from the baseline composition. Shaded: the baseline years. Dashed lines: breakpoints that alone count their aspect as changed (2·p ≤ alpha).",
                 )),
                 None => out.push_str("<p class=\"notrun\">No period values to draw.</p>\n"),
             }
-            if let Some(ps) = t["periods"].as_array() {
-                let rows: Vec<Vec<String>> = ps
-                    .iter()
-                    .map(|x| {
-                        vec![
-                            esc(&text_of(&x["period"])),
-                            f(&x["abundance"], 2),
-                            f(&x["change_pct"], 1),
-                            f(&x["shape_distance"], 3),
-                            f(&x["size_part"], 3),
-                            f(&x["shape_part"], 3),
-                        ]
-                    })
-                    .collect();
-                out.push_str(&table(
-                    &[
-                        "Period",
-                        "Abundance",
-                        "Change %",
-                        "Shape distance",
-                        "Size part",
-                        "Shape part",
-                    ],
-                    &rows,
-                    &[false, true, true, true, true, true],
-                ));
-            }
+            let rows: Vec<Vec<String>> = t
+                .periods
+                .iter()
+                .map(|x| {
+                    vec![
+                        esc(&x.period),
+                        fnum(x.abundance, 2),
+                        match (x.abundance_ci_low, x.abundance_ci_high) {
+                            (Some(a), Some(b)) => {
+                                format!("{}–{}", fnum(Some(a), 2), fnum(Some(b), 2))
+                            }
+                            _ => "—".to_string(),
+                        },
+                        fnum(x.change_pct, 1),
+                        fnum(x.shape_distance, 3),
+                        fnum(x.size_part, 3),
+                        fnum(x.shape_part, 3),
+                    ]
+                })
+                .collect();
+            out.push_str(&table(
+                &[
+                    "Period",
+                    "Abundance",
+                    "95% interval",
+                    "Change %",
+                    "Shape distance",
+                    "Size part",
+                    "Shape part",
+                ],
+                &rows,
+                &[false, true, true, true, true, true, true],
+            ));
         }
     }
     out.push_str("</section>\n");
@@ -895,17 +925,111 @@ mod tests {
         })
     }
 
-    fn trend_json() -> Value {
-        let periods: Vec<Value> = (2008..2026)
-            .map(|y| json!({"period": y, "abundance": 100.0 - (y - 2008) as f64, "change_pct": -1.0,
-                            "shape_distance": 0.01 * (y - 2008) as f64, "size_part": 0.1, "shape_part": 0.2}))
+    fn trend_outcome(
+        diagnosis: Diagnosis,
+        slope: f64,
+        r2: f64,
+        breaks: (i32, f64, i32, f64),
+    ) -> trend::Outcome {
+        use crate::analysis::trend::ShapeTrend;
+        use crate::workflow::trend::{
+            Breakpoints, Decision, Distances, Outcome, Period, ShapeBreak, SizeBreak, SizeTrend,
+        };
+        let periods: Vec<Period> = (2008..2026)
+            .map(|y| Period {
+                period: y.to_string(),
+                year: y,
+                season: None,
+                n: 6,
+                sites: 6,
+                baseline: y < 2011,
+                too_few: false,
+                n_reference: 18,
+                abundance: Some(100.0 - f64::from(y - 2008)),
+                abundance_ci_low: Some(90.0 - f64::from(y - 2008)),
+                abundance_ci_high: Some(110.0 - f64::from(y - 2008)),
+                change_pct: Some(-1.0),
+                shape_distance: Some(0.01 * f64::from(y - 2008)),
+                combined_distance: Some(0.3),
+                size_part: Some(0.1),
+                shape_part: Some(0.2),
+                period_start: format!("{y}-04-01"),
+                period_end: format!("{y}-10-01"),
+            })
             .collect();
-        json!({"groups": [
-            {"group": "lower", "diagnosis": "abundance", "size_trend": {"slope_pct_per_year": -3.2, "p_value": 0.001},
-             "shape_trend": {"r2": 0.02, "p_value": 0.6}, "breakpoints": [2016], "periods": periods.clone()},
-            {"group": "middle", "diagnosis": "composition", "size_trend": {"slope_pct_per_year": 0.1, "p_value": 0.7},
-             "shape_trend": {"r2": 0.5, "p_value": 0.001}, "breakpoints": [{"year": 2019}], "periods": periods}
-        ]})
+        Outcome {
+            diagnosis,
+            alpha: 0.05,
+            size_trend: SizeTrend {
+                slope_pct_per_year: slope,
+                p_value: 0.001,
+                ci_low: slope - 1.0,
+                ci_high: slope + 1.0,
+                ci_method: trend::CI_METHOD,
+                slope_log: slope / 100.0,
+                se_ols_log: 0.01,
+                pseudo_f: 12.0,
+                df_resid: 100,
+            },
+            shape_trend: ShapeTrend {
+                r2,
+                pseudo_f: 2.0,
+                p_value: 0.6,
+                df_resid: 100,
+            },
+            decision: Decision {
+                size_p: 0.002,
+                shape_p: 1.0,
+                rule: "an aspect changed when min(1, 2 min(p_trend, p_breakpoint)) <= alpha",
+            },
+            breakpoints: Some(Breakpoints {
+                size: SizeBreak {
+                    year: breaks.0,
+                    p_value: breaks.1,
+                    pseudo_f: 30.0,
+                    change_pct: -40.0,
+                    candidates: 14,
+                },
+                shape: ShapeBreak {
+                    year: breaks.2,
+                    p_value: breaks.3,
+                    pseudo_f: 1.2,
+                    r2: 0.01,
+                    candidates: 14,
+                },
+            }),
+            periods,
+            n: 108,
+            years: (2008..2026).collect(),
+            sites: 6,
+            baseline_years: vec![2008, 2009, 2010],
+            permutations: 199,
+            exact: false,
+            seed: 1,
+            scheme: "whole years".into(),
+            distances: Distances {
+                shape: crate::workflow::design::ShapeDistance::Hellinger,
+                combined: crate::analysis::dissimilarity::Distance::BrayCurtis,
+                transform: crate::analysis::transform::Transform::Sqrt,
+            },
+            unit: crate::matrix::Unit::SiteYear,
+            per_effort: true,
+            fingerprint: "ab".repeat(32),
+            notes: Vec::new(),
+        }
+    }
+
+    fn trend_groups() -> Vec<trend::Group> {
+        vec![
+            trend::Group {
+                group: "lower".into(),
+                outcome: trend_outcome(Diagnosis::Abundance, -3.2, 0.02, (2016, 0.005, 2012, 0.8)),
+            },
+            trend::Group {
+                group: "middle".into(),
+                outcome: trend_outcome(Diagnosis::Composition, 0.1, 0.5, (2010, 0.5, 2019, 0.005)),
+            },
+        ]
     }
 
     fn input() -> ReportInput {
@@ -933,7 +1057,7 @@ mod tests {
                  "adjusted_fractions": {"size_only": 0.0, "shared": 0.0, "shape_only": 0.6, "unexplained": 0.4}}]})),
             ordination: Part::NotRequested,
             totals: Part::Unavailable("every total is zero".into()),
-            trends: Part::Done(trend_json()),
+            trends: Part::Done(trend_groups()),
             run_ids: vec![("compare lower reach".into(), 3)],
             parameters: vec![(
                 "compare lower reach".into(),
@@ -990,12 +1114,31 @@ mod tests {
 
     #[test]
     fn trend_plot_reads_periods_baseline_and_breakpoints() {
-        let t = trend_json();
-        let g = &t["groups"][1];
-        let plot = trend_plot("middle", g, "x").unwrap();
+        let g = &trend_groups()[1];
+        let plot = trend_plot("middle", &g.outcome, "x").unwrap();
         assert_eq!(plot.points.len(), 18);
-        assert_eq!(plot.breakpoints, vec![2019.0]);
-        assert_eq!(plot.baseline, (2008.0, 2008.0));
-        assert_eq!(plot.interval_label, "no interval reported");
+        // Only the shape breakpoint passes 2·p ≤ alpha; drawn between 2018 and 2019.
+        assert_eq!(plot.breakpoints, vec![2018.5]);
+        assert_eq!(plot.baseline, (2008.0, 2010.0));
+        assert_eq!(plot.interval_label, "95% interval");
+        assert_eq!((plot.points[3].lower, plot.points[3].upper), (87.0, 107.0));
+        assert_eq!(plot.abundance_label, "Organisms per unit effort");
+    }
+
+    #[test]
+    fn seasons_are_spread_across_their_year() {
+        let mut t = trend_groups().remove(0).outcome;
+        for (i, p) in t.periods.iter_mut().enumerate() {
+            p.year = 2008 + (i / 2) as i32;
+            p.season = Some(if i % 2 == 0 { "spring" } else { "autumn" }.into());
+            p.period = format!("{}-{}", p.year, p.season.as_deref().unwrap());
+            p.baseline = i < 2;
+        }
+        let plot = trend_plot("", &t, "x").unwrap();
+        let xs: Vec<f64> = plot.points.iter().map(|p| p.period).collect();
+        assert_eq!(&xs[..4], &[2008.0, 2008.5, 2009.0, 2009.5]);
+        assert_eq!(plot.baseline, (2008.0, 2008.5));
+        // The size break of 2016 falls between 2015-autumn and 2016-spring.
+        assert_eq!(plot.breakpoints, vec![2015.75]);
     }
 }

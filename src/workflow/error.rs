@@ -76,6 +76,17 @@ pub enum WorkflowError {
         #[source]
         source: AnalysisError,
     },
+    /// One group of a split analysis failed.
+    #[error("trend of group {value} ({field}): {source}")]
+    InGroup {
+        /// The split field.
+        field: String,
+        /// The group's value.
+        value: String,
+        /// Why it failed.
+        #[source]
+        source: Box<WorkflowError>,
+    },
     /// A stored run cannot be replayed.
     #[error("run {id} cannot be replayed: {reason}")]
     NotReplayable {

@@ -22,6 +22,7 @@ pub mod ordinate;
 pub mod permanova;
 pub mod prepare;
 pub mod runs;
+pub mod trend;
 
 pub use error::{Result, WorkflowError};
 pub use prepare::{Prepared, prepare, resolve};
@@ -157,6 +158,7 @@ analyses! {
     Permanova => permanova,
     Dispersion => dispersion,
     Ordinate => ordinate,
+    Trend => trend,
 }
 
 #[cfg(test)]

@@ -104,22 +104,105 @@ fn demo_reaches_tell_their_stories() {
         "lower change after 2018: {mean} %"
     );
 
-    // Each trend and each period is stored: a series of size parts across years.
+    // One run per group, its periods among its values: a series of size parts
+    // across years, one point per group and year, dated by the year.
     let s = env.stdout([
         "runs",
         "series",
         "--kind",
-        "trend-period",
+        "trend",
         "--value",
         "size_part",
         "--format",
         "json",
     ]);
     let s: Value = serde_json::from_str(&s).unwrap();
-    assert_eq!(s["points"].as_array().unwrap().len(), 3 * 18);
-    let t = env.stdout(["runs", "list", "--kind", "trend", "--format", "json"]);
+    let points = s["points"].as_array().unwrap();
+    assert_eq!(points.len(), 3 * 18);
+    assert!(
+        points[0]["period_start"]
+            .as_str()
+            .unwrap()
+            .starts_with("2008")
+    );
+    assert!(
+        points[53]["period_end"]
+            .as_str()
+            .unwrap()
+            .starts_with("2025")
+    );
+    let t = env.stdout(["runs", "list", "--format", "json"]);
     let t: Value = serde_json::from_str(&t).unwrap();
-    assert_eq!(t.as_array().unwrap().len(), 3);
+    let kinds: Vec<&str> = t
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| r["kind"].as_str().unwrap())
+        .collect();
+    assert_eq!(kinds, vec!["trend"; 3]);
+    let ids = ["lower", "middle", "upper"].map(|g| group(&v, g)["run_id"].as_i64().unwrap());
+    // Each group's run holds its group as a selection filter.
+    let lower: Value = serde_json::from_str(&env.stdout([
+        "runs",
+        "show",
+        &ids[0].to_string(),
+        "--format",
+        "json",
+    ]))
+    .unwrap();
+    assert_eq!(
+        lower["selection"]["site_where"],
+        serde_json::json!([["reach", "lower"]])
+    );
+    assert!(lower["parameters"].get("split_by").is_none());
+}
+
+#[test]
+fn every_split_run_replays() {
+    let env = demo();
+    let out = env.stdout([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--split-by",
+        "reach",
+        "--breakpoint",
+        "auto",
+        "--permutations",
+        "99",
+        "--seed",
+        "4",
+        "--format",
+        "json",
+    ]);
+    let v: Value = serde_json::from_str(&out).unwrap();
+    let groups = v["groups"].as_array().unwrap();
+    assert_eq!(groups.len(), 3);
+    for g in groups {
+        let id = g["run_id"].as_i64().expect("run_id").to_string();
+        let rep: Value =
+            serde_json::from_str(&env.stdout(["runs", "verify", &id, "--format", "json"])).unwrap();
+        assert_eq!(rep["identical"], true, "{rep}");
+        assert_eq!(rep["numbers_differing"], 0, "{rep}");
+        assert!(rep["compared"].as_u64().unwrap() > 18 * 6, "{rep}");
+    }
+    // A field that no selection can express is refused before anything is stored.
+    let (code, _, err) = env.run([
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--split-by",
+        "year",
+        "--permutations",
+        "99",
+    ]);
+    assert_ne!(code, 0);
+    assert!(
+        err.contains("--split-by") && err.contains("replayed"),
+        "{err}"
+    );
 }
 
 #[test]

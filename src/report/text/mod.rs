@@ -7,6 +7,7 @@ use std::io::{self, Write};
 pub mod dispersion;
 pub mod ordinate;
 pub mod permanova;
+pub mod trend;
 
 /// An outcome that can be printed as a table for people and as CSV for scripts.
 pub trait Render {

@@ -1,0 +1,227 @@
+//! Tables and CSV of trend outcomes: one trend, or the groups of `--split-by`.
+
+use std::io::{self, Write};
+
+use super::Render;
+use crate::report::format::{MISSING, csv_num, fmt_num, fmt_p, new_table, write_table};
+use crate::workflow::trend::{Outcome, Split};
+
+fn opt(v: Option<f64>) -> String {
+    fmt_num(v.unwrap_or(f64::NAN))
+}
+
+/// The per-period table and the diagnosis line of one trend.
+fn periods_table(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
+    let mut t = new_table(&[
+        "period",
+        "n",
+        "sites",
+        "abundance",
+        "95% interval",
+        "change %",
+        "shape distance",
+        "size part",
+        "shape part",
+    ]);
+    for p in &o.periods {
+        let label = if p.baseline {
+            format!("{} (baseline)", p.period)
+        } else {
+            p.period.clone()
+        };
+        let ci = match (p.abundance_ci_low, p.abundance_ci_high) {
+            (Some(a), Some(b)) => format!("{}–{}", fmt_num(a), fmt_num(b)),
+            _ => MISSING.into(),
+        };
+        let abundance = if p.too_few {
+            "too few samples".to_string()
+        } else {
+            opt(p.abundance)
+        };
+        t.add_row(vec![
+            label,
+            p.n.to_string(),
+            p.sites.to_string(),
+            abundance,
+            ci,
+            opt(p.change_pct),
+            opt(p.shape_distance),
+            opt(p.size_part),
+            opt(p.shape_part),
+        ]);
+    }
+    write_table(out, &t)?;
+    writeln!(out, "{}", diagnosis_line(o))
+}
+
+fn diagnosis_line(o: &Outcome) -> String {
+    let s = &o.size_trend;
+    let h = &o.shape_trend;
+    let p = |v: f64| fmt_p(v, o.permutations);
+    let mut line = format!(
+        "diagnosis: {} — size {} % per year [{}, {}], p = {}; shape R² = {}, p = {}",
+        o.diagnosis.name(),
+        fmt_num(s.slope_pct_per_year),
+        fmt_num(s.ci_low),
+        fmt_num(s.ci_high),
+        p(s.p_value),
+        fmt_num(h.r2),
+        p(h.p_value)
+    );
+    if let Some(b) = &o.breakpoints {
+        line.push_str(&format!(
+            "; breakpoints: size {} ({} %, p = {}), shape {} (R² = {}, p = {})",
+            b.size.year,
+            fmt_num(b.size.change_pct),
+            p(b.size.p_value),
+            b.shape.year,
+            fmt_num(b.shape.r2),
+            p(b.shape.p_value)
+        ));
+    }
+    line.push_str(&format!("; alpha = {}", o.alpha));
+    line
+}
+
+/// How the trend was tested: permutations, scheme, seed, rule, dissimilarities.
+fn footer(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
+    writeln!(
+        out,
+        "permutations: {} ({}), scheme: {}, seed {}",
+        o.permutations,
+        if o.exact {
+            "every arrangement"
+        } else {
+            "random"
+        },
+        o.scheme,
+        o.seed
+    )?;
+    writeln!(
+        out,
+        "rule: {} (alpha {}); abundance as geometric mean with a t interval on the log scale; size parts of {} on {} vs shape ({})",
+        if o.breakpoints.is_some() {
+            "an aspect changed when min(1, 2·min(p trend, p breakpoint)) ≤ alpha"
+        } else {
+            "an aspect changed when p trend ≤ alpha"
+        },
+        o.alpha,
+        o.distances.combined.name(),
+        o.distances.transform.name(),
+        o.distances.shape.name()
+    )
+}
+
+const CSV_HEADER: [&str; 13] = [
+    "group",
+    "period",
+    "n",
+    "sites",
+    "baseline",
+    "abundance",
+    "abundance_ci_low",
+    "abundance_ci_high",
+    "change_pct",
+    "shape_distance",
+    "size_part",
+    "shape_part",
+    "diagnosis",
+];
+
+fn csv_rows<W: Write>(w: &mut csv::Writer<W>, group: &str, o: &Outcome) -> io::Result<()> {
+    let c = |v: Option<f64>| csv_num(v.unwrap_or(f64::NAN));
+    for p in &o.periods {
+        w.write_record([
+            group.to_string(),
+            p.period.clone(),
+            p.n.to_string(),
+            p.sites.to_string(),
+            p.baseline.to_string(),
+            c(p.abundance),
+            c(p.abundance_ci_low),
+            c(p.abundance_ci_high),
+            c(p.change_pct),
+            c(p.shape_distance),
+            c(p.size_part),
+            c(p.shape_part),
+            o.diagnosis.name().to_string(),
+        ])?;
+    }
+    Ok(())
+}
+
+impl Render for Outcome {
+    fn table(&self, out: &mut dyn Write) -> io::Result<()> {
+        periods_table(self, out)?;
+        writeln!(out)?;
+        footer(self, out)
+    }
+
+    fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
+        let mut w = csv::Writer::from_writer(out);
+        w.write_record(CSV_HEADER)?;
+        csv_rows(&mut w, "", self)?;
+        w.flush()
+    }
+}
+
+impl Render for Split {
+    fn table(&self, out: &mut dyn Write) -> io::Result<()> {
+        for g in &self.groups {
+            writeln!(out, "{} = {}", self.split_by, g.group)?;
+            periods_table(&g.outcome, out)?;
+            writeln!(out)?;
+        }
+        let mut t = new_table(&[
+            "group",
+            "diagnosis",
+            "size % / year",
+            "95% interval",
+            "size p",
+            "shape R²",
+            "shape p",
+            "size break (p)",
+            "shape break (p)",
+        ]);
+        for g in &self.groups {
+            let o = &g.outcome;
+            let p = |v: f64| fmt_p(v, o.permutations);
+            let (bs, bh) = match &o.breakpoints {
+                Some(b) => (
+                    format!("{} ({})", b.size.year, p(b.size.p_value)),
+                    format!("{} ({})", b.shape.year, p(b.shape.p_value)),
+                ),
+                None => (MISSING.into(), MISSING.into()),
+            };
+            t.add_row(vec![
+                g.group.clone(),
+                o.diagnosis.name().to_string(),
+                fmt_num(o.size_trend.slope_pct_per_year),
+                format!(
+                    "{} to {}",
+                    fmt_num(o.size_trend.ci_low),
+                    fmt_num(o.size_trend.ci_high)
+                ),
+                p(o.size_trend.p_value),
+                fmt_num(o.shape_trend.r2),
+                p(o.shape_trend.p_value),
+                bs,
+                bh,
+            ]);
+        }
+        write_table(out, &t)?;
+        match self.groups.first() {
+            Some(g) => footer(&g.outcome, out),
+            None => Ok(()),
+        }
+    }
+
+    fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
+        let mut w = csv::Writer::from_writer(out);
+        w.write_record(CSV_HEADER)?;
+        for g in &self.groups {
+            csv_rows(&mut w, &g.group, &g.outcome)?;
+        }
+        w.flush()
+    }
+}
