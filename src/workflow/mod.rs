@@ -15,9 +15,11 @@ use std::fmt::Debug;
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
+pub mod compare;
 pub mod design;
 pub mod dispersion;
 pub mod error;
+pub mod partition;
 pub mod permanova;
 pub mod prepare;
 pub mod runs;
@@ -155,6 +157,8 @@ macro_rules! analyses {
 analyses! {
     Permanova => permanova,
     Dispersion => dispersion,
+    Partition => partition,
+    Compare => compare,
 }
 
 #[cfg(test)]

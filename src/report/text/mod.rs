@@ -4,7 +4,9 @@
 
 use std::io::{self, Write};
 
+pub mod compare;
 pub mod dispersion;
+pub mod partition;
 pub mod permanova;
 
 /// An outcome that can be printed as a table for people and as CSV for scripts.
