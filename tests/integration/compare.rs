@@ -8,8 +8,9 @@ use serde_json::Value;
 use tally::analysis::gower::gower_centre;
 use tally::analysis::partition::{ShapeAxes, SizeCoding, fit, shape_design, size_design};
 use tally::analysis::{Distance, Transform};
-use tally::cli::compare::{Params, compute_on};
 use tally::matrix::{CountMatrix, SampleMeta, TaxonMeta};
+use tally::workflow::compare::Spec;
+use tally::workflow::{Analysis, Prepared, Silent};
 
 use crate::util::{TestEnv, root};
 
@@ -154,20 +155,8 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
     let a = [20.0, 10.0, 8.0, 5.0, 3.0, 2.0, 1.0, 1.0];
     let b = [1.0, 1.0, 2.0, 3.0, 5.0, 8.0, 10.0, 20.0];
     let labels: Vec<&str> = (0..20).map(|i| if i < 10 { "a" } else { "b" }).collect();
-    let params = Params {
-        by: "group".into(),
-        strata: None,
-        reference: None,
-        periods: None,
-        shape_distance: tally::cli::compare::ShapeDistance::Hellinger,
-        rarefy: None,
-        rarefy_reps: 10,
-        alpha: 0.05,
-        distance: "bray-curtis".into(),
-        transform: "sqrt".into(),
-        permutations: 99,
-        bootstrap: 0,
-    };
+    let mut spec = Spec::new("group", 99, 0);
+    spec.bootstrap = 0;
     let reps = 120;
     let (mut size_rej, mut shape_rej) = (0, 0);
     for seed in 0..reps {
@@ -182,7 +171,13 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
                 y[(i, j)] = poisson(&mut rng, mu[j] * s);
             }
         }
-        let (v, _) = compute_on(&synthetic(y, &labels), false, &params, seed).unwrap();
+        spec.seed = seed;
+        let prepared = Prepared {
+            selection: Default::default(),
+            matrix: synthetic(y, &labels),
+            notes: vec![],
+        };
+        let v = serde_json::to_value(spec.run(&prepared, &Silent).unwrap()).unwrap();
         assert!(v["abundance_differs"].is_boolean() && v["size"]["p_value"].is_number());
         if v["abundance_differs"] == true {
             assert!(v["size"]["p_value"].as_f64().unwrap() <= 0.05);
