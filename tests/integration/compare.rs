@@ -564,3 +564,80 @@ fn runs_that_store_their_arguments_are_replayed_by_the_binary() {
     assert_eq!(o.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&o.stderr).contains("cannot be replayed"));
 }
+
+#[test]
+fn strata_equal_to_the_groups_are_refused() {
+    // Permuting within the levels of the grouping itself cannot move any sample
+    // to another group; this used to overflow an integer in debug builds.
+    let env = demo_env();
+    for cmd in [
+        ["compare", "--by", "reach", "--strata", "reach"],
+        // Every site lies in one reach: no stratum leaves the groups room to vary.
+        ["compare", "--by", "reach", "--strata", "site"],
+    ] {
+        let mut args: Vec<&str> = cmd.to_vec();
+        args.extend([
+            "--protocol",
+            "kick",
+            "--unit",
+            "site-year",
+            "--permutations",
+            "99",
+            "--seed",
+            "1",
+        ]);
+        let o = env.cmd(&args).output().unwrap();
+        assert_eq!(o.status.code(), Some(1), "{args:?}");
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert!(err.contains(&format!("--strata {}", args[4])), "{err}");
+    }
+    // Nothing was stored.
+    let runs = json_of(&env.stdout(["runs", "list", "--format", "json"]));
+    assert_eq!(runs.as_array().map(Vec::len), Some(0), "{runs}");
+}
+
+#[test]
+fn compare_and_partition_runs_are_replayed_in_process() {
+    // Runs stored by the commands keep their typed spec (strata, shape axes and
+    // periods included); `runs verify` replays it on the stored selection.
+    let env = demo_env();
+    let sel = ["--protocol", "kick", "--per-effort", "--unit", "site-year"];
+    let mut args = vec![
+        "partition",
+        "--site-where",
+        "reach=upper",
+        "--shape-axes",
+        "5",
+    ];
+    args.extend(sel);
+    args.extend(["--strata", "site", "--permutations", "99", "--seed", "3"]);
+    env.stdout(&args);
+    let mut args = vec![
+        "compare",
+        "--by",
+        "period",
+        "--periods",
+        "2008..2013,2014..2025",
+    ];
+    args.extend(sel);
+    args.extend(["--strata", "site", "--permutations", "99", "--seed", "4"]);
+    let v = json_of(&env.stdout(args.iter().copied().chain(["--format", "json"])));
+    assert_eq!(v["run_id"], 2);
+    assert!(
+        v["scheme"].as_str().unwrap().contains("within"),
+        "{}",
+        v["scheme"]
+    );
+    let shown = json_of(&env.stdout(["runs", "show", "2", "--format", "json"]));
+    let params = &shown["parameters"];
+    assert_eq!(params["kind"], "compare", "{params}");
+    assert_eq!(
+        params["periods"],
+        serde_json::json!([[2008, 2013], [2014, 2025]])
+    );
+    for id in ["1", "2"] {
+        let rep = json_of(&env.stdout(["runs", "verify", id, "--format", "json"]));
+        assert_eq!(rep["identical"], true, "run {id}: {rep}");
+        assert!(rep["compared"].as_u64().unwrap() > 20, "run {id}: {rep}");
+    }
+}
