@@ -30,7 +30,7 @@ use super::permutation::{
 use super::transform::{refuse_empty_rows, row_totals};
 
 /// How sample size enters the partition.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum SizeCoding {
     /// Natural log of the sample total (default; the natural size variable of

@@ -17,12 +17,12 @@ use crate::demo::DemoFiles;
 use crate::matrix::Unit;
 use crate::report::html::{self, Part};
 use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
-use crate::store::Selection;
-use crate::store::Store;
 use crate::store::import::{ImportKind, ImportOptions, import_bytes};
+use crate::store::{Selection, Store};
 use crate::workflow::design::DistanceSpec;
 use crate::workflow::ordinate::{self, Method};
-use crate::workflow::{self, Analysis, Silent, runs, trend};
+use crate::workflow::runs::{self, ToSave};
+use crate::workflow::{self, Analysis, Silent, trend};
 
 /// Arguments of `tally demo`.
 #[derive(Debug, clap::Args)]
@@ -150,6 +150,7 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     let mut run_ids = Vec::new();
     let mut parameters = vec![("store summary".to_string(), "tally summary".to_string())];
     let mut compare = Vec::new();
+    let mut compared = Vec::new();
     for reach in ["lower", "middle", "upper"] {
         let sel = SelectionArgs {
             protocol: Some("kick".into()),
@@ -227,69 +228,66 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             compare_run_id: None,
             diagnosis: String::new(),
         });
-        let seed = DEMO_SEED.to_string();
-        let perms = DEMO_PERMUTATIONS.to_string();
-        let where_reach = format!("reach={reach}");
-        let words = [
-            "--protocol",
-            "kick",
-            "--per-effort",
-            "--unit",
-            "site-year",
-            "--site-where",
-            &where_reach,
-            "--periods",
-            "2008..2015,2016..2025",
-            "--by",
-            "period",
-            "--permutations",
-            &perms,
-            "--seed",
-            &seed,
-        ];
-        let compare_args: super::compare::Args = super::common::args_from(&words)?;
-        let (result, id) = super::compare::compute_and_store(store, &compare_args)?;
-        if let Some(id) = id {
-            run_ids.push((format!("{label}: size and shape comparison"), id));
-        }
+        let mut spec = workflow::compare::Spec::new("period", DEMO_PERMUTATIONS, DEMO_SEED);
+        spec.periods = Some(periods.clone());
+        let prepared = workflow::prepare(store, &sel.resolve(store)?)?;
+        let outcome = spec.run(&prepared, &Silent)?;
         parameters.push((
             format!("{label}: size and shape comparison"),
-            format!("tally compare {}", words.join(" ")),
+            format!(
+                "tally compare {} --periods 2008..2015,2016..2025 --by period --permutations {DEMO_PERMUTATIONS} --seed {DEMO_SEED}",
+                flags_of(&prepared.selection)
+            ),
         ));
         if let Some(last) = reaches.last_mut() {
-            last.verdict = result["verdict"].as_str().unwrap_or_default().to_string();
-            last.compare_run_id = id;
+            last.verdict = outcome.verdict.clone();
         }
-        compare.push(report::compare_entry(&label, result));
+        compared.push((label, prepared, spec, outcome));
     }
-    let seed = DEMO_SEED.to_string();
-    let perms = DEMO_PERMUTATIONS.to_string();
-    let partition_words = [
-        "--protocol",
-        "kick",
-        "--per-effort",
-        "--unit",
-        "site-year",
-        "--compare-distances",
-        "--permutations",
-        &perms,
-        "--seed",
-        &seed,
-    ];
-    let partition_args: super::partition::Args = super::common::args_from(&partition_words)?;
-    let (partition_result, partition_id) =
-        super::partition::compute_and_store(store, &partition_args)?;
-    if let Some(id) = partition_id {
-        run_ids.push((
-            "size/shape partition of five dissimilarities".to_string(),
-            id,
-        ));
+    let partition_sel = workflow::resolve(
+        store,
+        None,
+        &Selection {
+            protocol: Some("kick".into()),
+            per_effort: true,
+            unit: Some(Unit::SiteYear),
+            ..Selection::default()
+        },
+    )?;
+    let partition_prepared = workflow::prepare(store, &partition_sel)?;
+    let partition_spec = workflow::partition::Spec::compared(DEMO_PERMUTATIONS, DEMO_SEED);
+    let partition_outcome = partition_spec.run(&partition_prepared, &Silent)?;
+    // The comparisons and the partition are stored together, in one transaction.
+    let mut to_save = Vec::new();
+    for (_, prepared, spec, outcome) in &compared {
+        to_save.push(ToSave::new(prepared, spec, outcome)?);
     }
+    to_save.push(ToSave::new(
+        &partition_prepared,
+        &partition_spec,
+        &partition_outcome,
+    )?);
+    let ids = runs::save(store, &to_save)?;
+    drop(to_save);
+    for ((label, _, _, outcome), (id, finding)) in
+        compared.iter().zip(ids.iter().zip(reaches.iter_mut()))
+    {
+        run_ids.push((format!("{label}: size and shape comparison"), *id));
+        finding.compare_run_id = Some(*id);
+        compare.push(report::compare_entry(label, serde_json::to_value(outcome)?));
+    }
+    run_ids.push((
+        "size/shape partition of five dissimilarities".to_string(),
+        ids[compared.len()],
+    ));
     parameters.push((
         "size/shape partition".to_string(),
-        format!("tally partition {}", partition_words.join(" ")),
+        format!(
+            "tally partition {} --compare-distances --permutations {DEMO_PERMUTATIONS} --seed {DEMO_SEED}",
+            flags_of(&partition_prepared.selection)
+        ),
     ));
-    let partition = report::partition_entry(partition_result);
+    let partition = report::partition_entry(serde_json::to_value(&partition_outcome)?);
     let compare = Part::Done(compare);
     let trend_selection = Selection {
         protocol: Some("kick".into()),

@@ -222,22 +222,30 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
     let mut run_ids = Vec::new();
     let (compare, partition) = match &args.by {
         Some(by) => {
-            let mut c: super::compare::Args = super::common::args_from(&["--by", by])?;
-            c.selection = args.selection.clone();
-            c.run = args.run.clone();
-            c.periods = args.periods.as_ref().cloned();
-            let (cr, cid) = super::compare::compute_and_store(store, &c)
+            // The ordination above printed the assembly notes of this selection.
+            let prepared = crate::workflow::prepare(store, &args.selection.resolve(store)?)?;
+            let seed = args.run.seed();
+            let mut c =
+                crate::workflow::compare::Spec::new(by.clone(), args.run.permutations, seed);
+            c.periods = args.periods.clone();
+            let cr = c
+                .run(&prepared, &Silent)
                 .context("size and shape comparison for the report")?;
-            let mut p: super::partition::Args = super::common::args_from(&["--compare-distances"])?;
-            p.selection = args.selection.clone();
-            p.run = args.run.clone();
-            let (pr, pid) = super::partition::compute_and_store(store, &p)
+            let p = crate::workflow::partition::Spec::compared(args.run.permutations, seed);
+            let pr = p
+                .run(&prepared, &Silent)
                 .context("size/shape partition for the report")?;
-            if let Some(id) = cid {
-                run_ids.push((format!("comparison by {by}"), id));
-            }
-            if let Some(id) = pid {
-                run_ids.push(("size/shape partition".to_string(), id));
+            if !args.run.no_store {
+                let ids = runs::save(
+                    store,
+                    &[
+                        runs::ToSave::new(&prepared, &c, &cr)?,
+                        runs::ToSave::new(&prepared, &p, &pr)?,
+                    ],
+                )
+                .context("storing the runs of the report")?;
+                run_ids.push((format!("comparison by {by}"), ids[0]));
+                run_ids.push(("size/shape partition".to_string(), ids[1]));
             }
             parameters.push((
                 "comparison".to_string(),
@@ -248,8 +256,11 @@ pub fn build(store: &mut Store, args: &Args) -> anyhow::Result<ReportInput> {
                 format!("tally partition {flags} --compare-distances"),
             ));
             (
-                Part::Done(vec![compare_entry(&format!("by {by}"), cr)]),
-                partition_entry(pr),
+                Part::Done(vec![compare_entry(
+                    &format!("by {by}"),
+                    serde_json::to_value(&cr)?,
+                )]),
+                partition_entry(serde_json::to_value(&pr)?),
             )
         }
         None => (Part::NotRequested, Part::NotRequested),

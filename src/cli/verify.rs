@@ -3,7 +3,7 @@
 //! report `identical` or every stored number that differs.
 //!
 //! Kinds `partition` and `compare` are replayed in-process from their stored
-//! parameters ([`super::partition::Params`], [`super::compare::Params`]). Any
+//! typed specs ([`runs::verify`]). Any
 //! other kind is replayed when its parameters hold the command arguments under
 //! `argv`: the same binary is run again on the same store with the stored seed,
 //! `--no-store` and `--format json`, and its JSON is compared with the stored
@@ -14,14 +14,14 @@ use std::io::Write;
 
 use anyhow::{Context, anyhow, bail};
 use serde::Serialize;
-use serde_json::{Value, json};
+use serde_json::Value;
 
 use super::FormatArg;
 use super::selection::load_matrix;
-use super::{compare, partition};
 use crate::report::format::{new_table, write_json, write_table};
 use crate::store::Store;
 use crate::store::query::Selection;
+use crate::workflow::runs;
 
 /// One stored number (or text) that the recomputation did not reproduce.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -130,6 +130,32 @@ fn replay_args(argv: &[String]) -> Vec<String> {
     out
 }
 
+/// The report of a run replayed in-process by [`runs::verify`].
+fn in_process(w: runs::VerifyReport) -> VerifyReport {
+    VerifyReport {
+        run_id: w.run_id,
+        kind: w.kind,
+        stored_fingerprint: w.stored_fingerprint,
+        fingerprint: w.fingerprint,
+        fingerprint_matches: w.fingerprint_matches,
+        compared: w.compared,
+        differences: w
+            .differences
+            .into_iter()
+            .map(|d| Difference {
+                path: d.path,
+                stored: d.stored,
+                recomputed: d.recomputed,
+                text_only: d.text_only,
+            })
+            .collect(),
+        numbers_differing: w.numbers_differing,
+        max_relative_difference: w.max_relative_difference,
+        stored_by: w.stored_by,
+        identical: w.identical,
+    }
+}
+
 /// Verify run `id` against the store as it is now.
 ///
 /// # Errors
@@ -137,31 +163,8 @@ fn replay_args(argv: &[String]) -> Vec<String> {
 /// cannot be replayed (named, with the reason); analysis errors of the replay.
 pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let r = store.run(id)?;
-    if r.kind == crate::workflow::ordinate::KIND || r.kind == crate::workflow::trend::KIND {
-        // Typed specs replay in-process.
-        let w = crate::workflow::runs::verify(store, id)?;
-        return Ok(VerifyReport {
-            run_id: w.run_id,
-            kind: w.kind,
-            stored_fingerprint: w.stored_fingerprint,
-            fingerprint: w.fingerprint,
-            fingerprint_matches: w.fingerprint_matches,
-            compared: w.compared,
-            differences: w
-                .differences
-                .into_iter()
-                .map(|d| Difference {
-                    path: d.path,
-                    stored: d.stored,
-                    recomputed: d.recomputed,
-                    text_only: d.text_only,
-                })
-                .collect(),
-            numbers_differing: w.numbers_differing,
-            max_relative_difference: w.max_relative_difference,
-            stored_by: w.stored_by,
-            identical: w.identical,
-        });
+    if crate::workflow::AnalysisSpec::KINDS.contains(&r.kind.as_str()) {
+        return Ok(in_process(runs::verify(store, id)?));
     }
     let sel: Selection =
         serde_json::from_value(r.selection.clone()).context("reading the stored selection")?;
@@ -170,89 +173,48 @@ pub fn verify(store: &Store, id: i64) -> anyhow::Result<VerifyReport> {
     let seed = r
         .seed
         .ok_or_else(|| anyhow!("run {id} has no stored seed"))?;
-    let (result, values): (Value, Option<partition::StoredValues>) = match r.kind.as_str() {
-        partition::KIND => {
-            let p: partition::Params = serde_json::from_value(r.parameters.clone())
-                .context("reading the stored partition parameters")?;
-            let (v, vals, _) = partition::compute_on(&m, &p, seed)?;
-            (v, Some(vals))
+    // Runs of other kinds: rerun the binary on their recorded arguments.
+    let result: Value = {
+        let kind = r.kind.as_str();
+        let Some(argv) = r.parameters.get("argv").and_then(Value::as_array) else {
+            bail!(
+                "runs of kind '{kind}' cannot be replayed: their parameters do not record the command arguments"
+            );
+        };
+        let argv: Vec<String> = argv
+            .iter()
+            .filter_map(|a| a.as_str().map(String::from))
+            .collect();
+        let db = store
+            .path()
+            .ok_or_else(|| anyhow!("the store has no file to replay against"))?;
+        let exe = std::env::current_exe().context("locating the tally binary")?;
+        let output = std::process::Command::new(exe)
+            .arg("--db")
+            .arg(db)
+            .args(replay_args(&argv))
+            .args([
+                "--seed",
+                &seed.to_string(),
+                "--no-store",
+                "--format",
+                "json",
+            ])
+            .output()
+            .context("rerunning the stored command")?;
+        if !output.status.success() {
+            bail!(
+                "rerunning the stored command failed: {}",
+                String::from_utf8_lossy(&output.stderr).trim()
+            );
         }
-        compare::KIND => {
-            let p: compare::Params = serde_json::from_value(r.parameters.clone())
-                .context("reading the stored compare parameters")?;
-            let (v, vals) = compare::compute_on(&m, sel.per_effort, &p, seed)?;
-            (v, Some(vals))
-        }
-        kind => {
-            let Some(argv) = r.parameters.get("argv").and_then(Value::as_array) else {
-                bail!(
-                    "runs of kind '{kind}' cannot be replayed: their parameters do not record the command arguments"
-                );
-            };
-            let argv: Vec<String> = argv
-                .iter()
-                .filter_map(|a| a.as_str().map(String::from))
-                .collect();
-            let db = store
-                .path()
-                .ok_or_else(|| anyhow!("the store has no file to replay against"))?;
-            let exe = std::env::current_exe().context("locating the tally binary")?;
-            let output = std::process::Command::new(exe)
-                .arg("--db")
-                .arg(db)
-                .args(replay_args(&argv))
-                .args([
-                    "--seed",
-                    &seed.to_string(),
-                    "--no-store",
-                    "--format",
-                    "json",
-                ])
-                .output()
-                .context("rerunning the stored command")?;
-            if !output.status.success() {
-                bail!(
-                    "rerunning the stored command failed: {}",
-                    String::from_utf8_lossy(&output.stderr).trim()
-                );
-            }
-            (
-                serde_json::from_slice(&output.stdout).context("reading the rerun's JSON")?,
-                None,
-            )
-        }
+        serde_json::from_slice(&output.stdout).context("reading the rerun's JSON")?
     };
     // The same round trip as storage: serialise, then parse.
     let result: Value = serde_json::from_str(&result.to_string())?;
     let mut compared = 0;
     let mut differences = Vec::new();
     diff("", &r.result, &result, &mut compared, &mut differences);
-    if let Some(vals) = values {
-        let now: std::collections::BTreeMap<String, Option<f64>> = vals
-            .into_iter()
-            .map(|(k, v)| (k, v.filter(|x| x.is_finite())))
-            .collect();
-        let stored: std::collections::BTreeMap<String, Option<f64>> =
-            r.values.iter().cloned().collect();
-        let mut keys: Vec<&String> = now.keys().chain(stored.keys()).collect();
-        keys.sort();
-        keys.dedup();
-        for k in keys {
-            compared += 1;
-            let (a, b) = (
-                stored.get(k).copied().flatten(),
-                now.get(k).copied().flatten(),
-            );
-            if a != b || stored.contains_key(k) != now.contains_key(k) {
-                differences.push(Difference {
-                    path: format!("value:{k}"),
-                    stored: json!(a),
-                    recomputed: json!(b),
-                    text_only: false,
-                });
-            }
-        }
-    }
     let fingerprint_matches = fingerprint == r.fingerprint;
     let numbers_differing = differences.iter().filter(|d| !d.text_only).count();
     let max_relative_difference = differences
@@ -397,6 +359,7 @@ pub fn run(id: i64, format: FormatArg, store: &Store, out: &mut dyn Write) -> an
 #[cfg(test)]
 mod tests {
     use super::*;
+    use serde_json::json;
 
     #[test]
     fn differences_are_found_by_path() {

@@ -15,10 +15,12 @@ use std::fmt::Debug;
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
+pub mod compare;
 pub mod design;
 pub mod dispersion;
 pub mod error;
 pub mod ordinate;
+pub mod partition;
 pub mod permanova;
 pub mod prepare;
 pub mod runs;
@@ -159,6 +161,8 @@ analyses! {
     Dispersion => dispersion,
     Ordinate => ordinate,
     Trend => trend,
+    Partition => partition,
+    Compare => compare,
 }
 
 #[cfg(test)]

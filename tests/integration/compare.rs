@@ -8,8 +8,9 @@ use serde_json::Value;
 use tally::analysis::gower::gower_centre;
 use tally::analysis::partition::{ShapeAxes, SizeCoding, fit, shape_design, size_design};
 use tally::analysis::{Distance, Transform};
-use tally::cli::compare::{Params, compute_on};
 use tally::matrix::{CountMatrix, SampleMeta, TaxonMeta};
+use tally::workflow::compare::Spec;
+use tally::workflow::{Analysis, Prepared, Silent};
 
 use crate::util::{TestEnv, root};
 
@@ -154,20 +155,8 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
     let a = [20.0, 10.0, 8.0, 5.0, 3.0, 2.0, 1.0, 1.0];
     let b = [1.0, 1.0, 2.0, 3.0, 5.0, 8.0, 10.0, 20.0];
     let labels: Vec<&str> = (0..20).map(|i| if i < 10 { "a" } else { "b" }).collect();
-    let params = Params {
-        by: "group".into(),
-        strata: None,
-        reference: None,
-        periods: None,
-        shape_distance: tally::cli::compare::ShapeDistance::Hellinger,
-        rarefy: None,
-        rarefy_reps: 10,
-        alpha: 0.05,
-        distance: "bray-curtis".into(),
-        transform: "sqrt".into(),
-        permutations: 99,
-        bootstrap: 0,
-    };
+    let mut spec = Spec::new("group", 99, 0);
+    spec.bootstrap = 0;
     let reps = 120;
     let (mut size_rej, mut shape_rej) = (0, 0);
     for seed in 0..reps {
@@ -182,7 +171,13 @@ fn pure_shape_difference_rejects_size_at_the_nominal_rate_only() {
                 y[(i, j)] = poisson(&mut rng, mu[j] * s);
             }
         }
-        let (v, _) = compute_on(&synthetic(y, &labels), false, &params, seed).unwrap();
+        spec.seed = seed;
+        let prepared = Prepared {
+            selection: Default::default(),
+            matrix: synthetic(y, &labels),
+            notes: vec![],
+        };
+        let v = serde_json::to_value(spec.run(&prepared, &Silent).unwrap()).unwrap();
         assert!(v["abundance_differs"].is_boolean() && v["size"]["p_value"].is_number());
         if v["abundance_differs"] == true {
             assert!(v["size"]["p_value"].as_f64().unwrap() <= 0.05);
@@ -568,4 +563,81 @@ fn runs_that_store_their_arguments_are_replayed_by_the_binary() {
         .unwrap();
     assert_eq!(o.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&o.stderr).contains("cannot be replayed"));
+}
+
+#[test]
+fn strata_equal_to_the_groups_are_refused() {
+    // Permuting within the levels of the grouping itself cannot move any sample
+    // to another group; this used to overflow an integer in debug builds.
+    let env = demo_env();
+    for cmd in [
+        ["compare", "--by", "reach", "--strata", "reach"],
+        // Every site lies in one reach: no stratum leaves the groups room to vary.
+        ["compare", "--by", "reach", "--strata", "site"],
+    ] {
+        let mut args: Vec<&str> = cmd.to_vec();
+        args.extend([
+            "--protocol",
+            "kick",
+            "--unit",
+            "site-year",
+            "--permutations",
+            "99",
+            "--seed",
+            "1",
+        ]);
+        let o = env.cmd(&args).output().unwrap();
+        assert_eq!(o.status.code(), Some(1), "{args:?}");
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert!(err.contains(&format!("--strata {}", args[4])), "{err}");
+    }
+    // Nothing was stored.
+    let runs = json_of(&env.stdout(["runs", "list", "--format", "json"]));
+    assert_eq!(runs.as_array().map(Vec::len), Some(0), "{runs}");
+}
+
+#[test]
+fn compare_and_partition_runs_are_replayed_in_process() {
+    // Runs stored by the commands keep their typed spec (strata, shape axes and
+    // periods included); `runs verify` replays it on the stored selection.
+    let env = demo_env();
+    let sel = ["--protocol", "kick", "--per-effort", "--unit", "site-year"];
+    let mut args = vec![
+        "partition",
+        "--site-where",
+        "reach=upper",
+        "--shape-axes",
+        "5",
+    ];
+    args.extend(sel);
+    args.extend(["--strata", "site", "--permutations", "99", "--seed", "3"]);
+    env.stdout(&args);
+    let mut args = vec![
+        "compare",
+        "--by",
+        "period",
+        "--periods",
+        "2008..2013,2014..2025",
+    ];
+    args.extend(sel);
+    args.extend(["--strata", "site", "--permutations", "99", "--seed", "4"]);
+    let v = json_of(&env.stdout(args.iter().copied().chain(["--format", "json"])));
+    assert_eq!(v["run_id"], 2);
+    assert!(
+        v["scheme"].as_str().unwrap().contains("within"),
+        "{}",
+        v["scheme"]
+    );
+    let shown = json_of(&env.stdout(["runs", "show", "2", "--format", "json"]));
+    let params = &shown["parameters"];
+    assert_eq!(params["kind"], "compare", "{params}");
+    assert_eq!(
+        params["periods"],
+        serde_json::json!([[2008, 2013], [2014, 2025]])
+    );
+    for id in ["1", "2"] {
+        let rep = json_of(&env.stdout(["runs", "verify", id, "--format", "json"]));
+        assert_eq!(rep["identical"], true, "run {id}: {rep}");
+        assert!(rep["compared"].as_u64().unwrap() > 20, "run {id}: {rep}");
+    }
 }

@@ -4,8 +4,10 @@
 
 use std::io::{self, Write};
 
+pub mod compare;
 pub mod dispersion;
 pub mod ordinate;
+pub mod partition;
 pub mod permanova;
 pub mod trend;
 
