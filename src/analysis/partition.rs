@@ -18,7 +18,6 @@
 use nalgebra::DMatrix;
 use serde::Serialize;
 
-use super::AnalysisError;
 use super::DistanceMatrix;
 use super::gower::gower_centre;
 use super::linear_model::Basis;
@@ -28,6 +27,7 @@ use super::permutation::{
     PermutationOptions, PermutationResult, Permuter, Progress, Scheme, permutation_test,
 };
 use super::transform::{refuse_empty_rows, row_totals};
+use super::{AnalysisError, prec};
 
 /// How sample size enters the partition.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
@@ -168,7 +168,7 @@ pub fn fit(
         return Err(AnalysisError::Saturated { rank: rank_full, n });
     }
     let total = g.trace();
-    if !(total > 0.0) {
+    if prec::not_positive(total) {
         return Err(AnalysisError::InvalidArgument {
             name: "dissimilarities",
             reason: "all dissimilarities are zero; there is no variation to partition".into(),

@@ -14,6 +14,14 @@ pub fn close(a: f64, b: f64, rel: f64) -> bool {
     (a - b).abs() <= rel * scale
 }
 
+/// True unless `x` is a number greater than zero: the NaN-aware guard of the
+/// kernels (`NaN` is not positive, so it is refused like zero or a negative
+/// value, where `x <= 0.0` would let it through).
+#[inline]
+pub fn not_positive(x: f64) -> bool {
+    x.is_nan() || x <= 0.0
+}
+
 /// Small published or documented inputs shared by the kernels' unit tests.
 #[cfg(test)]
 pub(crate) mod test_data {

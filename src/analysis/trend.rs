@@ -33,11 +33,11 @@
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
-use super::AnalysisError;
 use super::DistanceMatrix;
 use super::gower::gower_centre;
 use super::linear_model::{Basis, Grouping};
 use super::permutation::{BLOCK, Permuter, Scheme, at_least, block_rng};
+use super::{AnalysisError, prec};
 
 /// Which periods form the baseline.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -534,7 +534,7 @@ fn two_group_parts(
     let bsz = bs.extended(&z)?;
     let ss_z = bz.trace_hg(&g);
     let ss_z_given_s = bsz.trace_hg(&g) - bs.trace_hg(&g);
-    if !(ss_z.abs() > 1e-12 * g.trace().abs().max(f64::MIN_POSITIVE)) {
+    if prec::not_positive(ss_z.abs() - 1e-12 * g.trace().abs().max(f64::MIN_POSITIVE)) {
         return Ok((0.0, 0.0));
     }
     let shape_share = ss_z_given_s / ss_z;
@@ -732,7 +732,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
     let x = DVector::from_fn(n, |i, _| yearv[code[i]]);
     let rx = &x - q * (q.transpose() * &x);
     let xrx = rx.dot(&rx);
-    if !(xrx > 0.0) {
+    if prec::not_positive(xrx) {
         return Err(AnalysisError::InvalidArgument {
             name: "year",
             reason: "year is confounded with site: no site is sampled in two years".into(),
@@ -985,7 +985,7 @@ fn t_cdf(t: f64, df: f64) -> f64 {
 /// # Errors
 /// [`AnalysisError::InvalidArgument`] unless `0 < p < 1` and `df > 0`.
 pub fn t_quantile(p: f64, df: f64) -> Result<f64, AnalysisError> {
-    if !(p > 0.0 && p < 1.0) || !(df > 0.0) {
+    if prec::not_positive(p) || prec::not_positive(1.0 - p) || prec::not_positive(df) {
         return Err(AnalysisError::InvalidArgument {
             name: "t quantile",
             reason: format!("needs 0 < p < 1 and df > 0, got p = {p}, df = {df}"),

@@ -27,7 +27,7 @@ pub enum Action {
         name: String,
         /// The selection to save.
         #[command(flatten)]
-        selection: SelectionArgs,
+        selection: Box<SelectionArgs>,
         /// Overwrite a selection of the same name.
         #[arg(long)]
         replace: bool,
@@ -64,7 +64,15 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             selection,
             replace,
         } => {
-            let sel = selection.resolve(store)?;
+            // Only the flags given (over a saved selection, if named): defaults
+            // such as the unit are applied by the command that uses it, so a
+            // saved selection never turns `trend`'s site-year rows into events.
+            let explicit = selection.explicit();
+            let mut sel = match &selection.selection {
+                Some(from) => crate::store::Selection::merge(&store.selection(from)?, &explicit),
+                None => explicit,
+            };
+            sel.validate()?;
             let replaced = store.save_selection(&name, &sel, replace)?;
             store.checkpoint()?;
             let verb = if replaced { "replaced" } else { "saved" };

@@ -496,7 +496,15 @@ mod tests {
         add_taxon(&s, "Ecdyonurus", "genus", Some("Heptageniidae"), None).unwrap();
         add_taxon(&s, "Oldname", "genus", None, Some("Ecdyonurus")).unwrap();
         add_taxon(&s, "Oligochaeta", "class", None, None).unwrap();
-        let events: &[(&str, &str, &str, &str, f64, &[(&str, f64)])] = &[
+        type EventRow<'a> = (
+            &'a str,
+            &'a str,
+            &'a str,
+            &'a str,
+            f64,
+            &'a [(&'a str, f64)],
+        );
+        let events: &[EventRow] = &[
             (
                 "E1",
                 "S1",

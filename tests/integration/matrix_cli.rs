@@ -155,6 +155,14 @@ fn saved_selections_with_explicit_overrides() {
     assert_eq!(events, "sample,Baetis,Ecdyonurus\nA1,3,1\nA2,0,2\n");
 
     env.stdout(["selections", "save", "lower", "--site", "S2", "--replace"]);
+    // Only the flags given are saved: no unit was given, so none is stored and
+    // each command applies its own default (a trend pools site-years).
+    let shown = json(&env, &["selections", "show", "lower", "--format", "json"]);
+    assert_eq!(shown["selection"]["unit"], serde_json::Value::Null);
+    assert!(
+        !env.stdout(["selections", "list"]).contains("--unit"),
+        "a default unit was saved"
+    );
     let replaced = env.stdout(["matrix", "--selection", "lower", "--format", "csv"]);
     assert_eq!(replaced, "sample,Baetis,Ecdyonurus\nA3,5,0\nA4,4,4\n");
     env.stdout(["selections", "delete", "lower"]);
