@@ -218,15 +218,26 @@ impl Distance {
     /// a positive constant leaves its distances unchanged. For chi-square this
     /// holds for fixed column masses; the masses themselves use every row.
     pub fn is_shape_only(&self) -> bool {
-        matches!(
-            self,
-            Distance::ChiSquare | Distance::Hellinger | Distance::Jaccard
-        )
+        // Exhaustive on purpose: a new coefficient must decide.
+        match self {
+            Distance::ChiSquare | Distance::Hellinger | Distance::Jaccard => true,
+            Distance::BrayCurtis
+            | Distance::Euclidean
+            | Distance::Kulczynski
+            | Distance::Manhattan => false,
+        }
     }
 
     /// True when the coefficient needs non-negative input (all but Euclidean and Manhattan).
     pub fn needs_non_negative(&self) -> bool {
-        !matches!(self, Distance::Euclidean | Distance::Manhattan)
+        match self {
+            Distance::Euclidean | Distance::Manhattan => false,
+            Distance::BrayCurtis
+            | Distance::ChiSquare
+            | Distance::Hellinger
+            | Distance::Jaccard
+            | Distance::Kulczynski => true,
+        }
     }
 
     /// True when the distance is, by construction, the Euclidean distance between
@@ -234,10 +245,13 @@ impl Distance {
     /// its Gower-centred matrix is positive semidefinite (Gower & Legendre 1986,
     /// J. Classification 3:5-48; docs/methods.md, "Euclidean and non-Euclidean dissimilarities").
     pub fn is_euclidean(&self) -> bool {
-        matches!(
-            self,
-            Distance::Euclidean | Distance::ChiSquare | Distance::Hellinger
-        )
+        match self {
+            Distance::Euclidean | Distance::ChiSquare | Distance::Hellinger => true,
+            Distance::BrayCurtis
+            | Distance::Jaccard
+            | Distance::Kulczynski
+            | Distance::Manhattan => false,
+        }
     }
 
     /// For Euclidean-type distances, the coordinates whose Euclidean distances
