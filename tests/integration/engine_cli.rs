@@ -5,11 +5,9 @@ use serde_json::Value;
 
 use crate::util::TestEnv;
 
-/// A demo store (`tally demo`).
+/// A demo store (`tally demo`): a copy of one demo run per test binary.
 fn demo() -> TestEnv {
-    let env = TestEnv::new();
-    env.cmd(["demo"]).assert().success();
-    env
+    TestEnv::with_demo()
 }
 
 /// Site attribute `depth` of sample i (a numeric covariate).

@@ -10,10 +10,9 @@ use crate::util::TestEnv;
 
 const SEL: [&str; 5] = ["--protocol", "kick", "--per-effort", "--unit", "site-year"];
 
+/// A copy of the store and report of one `tally demo` run per test binary.
 fn demo_env() -> TestEnv {
-    let env = TestEnv::new();
-    env.stdout(["demo"]);
-    env
+    TestEnv::with_demo()
 }
 
 fn args<'a>(command: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
@@ -245,8 +244,8 @@ fn report_is_one_self_contained_file() {
 
 #[test]
 fn demo_recovers_the_stories_and_writes_its_report() {
-    let env = TestEnv::new();
-    let account = env.stdout(["demo"]);
+    let env = TestEnv::with_demo();
+    let account = crate::util::demo_account();
     let report = env.dir.path().join("tally-demo-report.html");
     let html = std::fs::read_to_string(&report).unwrap();
     sections_present(&html);
