@@ -223,14 +223,21 @@ fn report_is_one_self_contained_file() {
     let env = demo_env();
     let out = env.path("r.html");
     let out_s = out.to_string_lossy().to_string();
-    env.stdout(args("report", &["--by", "reach", "--out", &out_s]));
+    // The p-values of the report are not under test: few permutations.
+    env.stdout(args(
+        "report",
+        &["--by", "reach", "--permutations", "199", "--out", &out_s],
+    ));
     let html = std::fs::read_to_string(&out).unwrap();
     sections_present(&html);
     assert!(html.contains("Correspondence analysis by reach"));
     // The trend part was not asked for with --by; the comparison was.
     assert!(html.contains("Not run: a trend analysis was not requested"));
     let o = env
-        .cmd(args("report", &["--by", "reach", "--out", &out_s]))
+        .cmd(args(
+            "report",
+            &["--by", "reach", "--permutations", "199", "--out", &out_s],
+        ))
         .output()
         .unwrap();
     assert_eq!(o.status.code(), Some(1));
