@@ -330,6 +330,26 @@ fn chromium() -> Option<PathBuf> {
     None
 }
 
+/// The browser of a test that needs Chromium. When none is on the PATH the
+/// test fails if `TALLY_REQUIRE_CHROMIUM=1` (CI installs it and sets this),
+/// and is skipped otherwise, with a notice written past the test harness's
+/// output capture so that it shows in a plain `cargo test`.
+fn require_chromium(test: &str) -> Option<PathBuf> {
+    if let Some(p) = chromium() {
+        return Some(p);
+    }
+    if std::env::var_os("TALLY_REQUIRE_CHROMIUM").is_some_and(|v| v == "1") {
+        panic!("{test} needs Chromium: no chromium on the PATH and TALLY_REQUIRE_CHROMIUM=1");
+    }
+    use std::io::Write;
+    let _ = writeln!(
+        std::io::stderr(),
+        "notice: {test} SKIPPED: it needs Chromium and no chromium is on the PATH \
+         (set TALLY_REQUIRE_CHROMIUM=1 to make this a failure)"
+    );
+    None
+}
+
 /// Decode a PNG and return (width, height, grey levels).
 fn grey_pixels(png_path: &Path) -> (u32, u32, Vec<f64>) {
     let decoder = png::Decoder::new(std::fs::File::open(png_path).unwrap());
@@ -351,10 +371,10 @@ fn grey_pixels(png_path: &Path) -> (u32, u32, Vec<f64>) {
     (info.width, info.height, px)
 }
 
+/// Needs Chromium (see [`require_chromium`]).
 #[test]
 fn report_renders_in_headless_chromium() {
-    let Some(browser) = chromium() else {
-        println!("notice: chromium is not installed; the rendering test is skipped");
+    let Some(browser) = require_chromium("report_renders_in_headless_chromium") else {
         return;
     };
     let env = demo_env();
