@@ -2,6 +2,63 @@
 #![allow(dead_code)]
 
 use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
+
+/// The demo data imported into a fresh store (see [`TestEnv::with_demo_data`]).
+static DEMO_DATA: OnceLock<Template> = OnceLock::new();
+/// The store, report and account of `tally demo` (see [`TestEnv::with_demo`]).
+static DEMO: OnceLock<Template> = OnceLock::new();
+
+/// The files of a store built once per test binary, held in memory so that no
+/// temporary directory outlives the process; each test writes its own copy.
+struct Template {
+    /// (file name in the directory, content): the store `t.db` and any files
+    /// the building commands wrote beside it.
+    files: Vec<(String, Vec<u8>)>,
+    /// What the building commands printed.
+    stdout: String,
+}
+
+impl Template {
+    /// Run `build` in a fresh [`TestEnv`], flush the store's write-ahead log
+    /// into the main file, and keep every file of the directory.
+    fn build(build: impl FnOnce(&TestEnv) -> String) -> Template {
+        let env = TestEnv::new();
+        let stdout = build(&env);
+        // Every command checkpoints before it exits; do it once more so the
+        // main file is complete, then close the last connection.
+        tally::store::Store::open(&env.db)
+            .expect("open template store")
+            .checkpoint()
+            .expect("checkpoint template store");
+        let mut files = Vec::new();
+        for entry in std::fs::read_dir(env.dir.path()).expect("template directory") {
+            let p = entry.expect("directory entry").path();
+            let name = p.file_name().unwrap().to_string_lossy().into_owned();
+            let bytes = std::fs::read(&p).expect("template file");
+            if name.ends_with("-wal") || name.ends_with("-shm") {
+                assert!(
+                    !name.ends_with("-wal") || bytes.is_empty(),
+                    "the template store's write-ahead log was not checkpointed"
+                );
+                continue;
+            }
+            files.push((name, bytes));
+        }
+        assert!(files.iter().any(|(n, _)| n == "t.db"), "no template store");
+        Template { files, stdout }
+    }
+}
+
+fn demo_template() -> &'static Template {
+    DEMO.get_or_init(|| Template::build(|env| env.stdout(["demo"])))
+}
+
+/// What `tally demo` printed when the template of [`TestEnv::with_demo`] was
+/// built (its paths name the template's directory, not the test's).
+pub fn demo_account() -> &'static str {
+    &demo_template().stdout
+}
 
 /// A temporary working directory holding one store.
 pub struct TestEnv {
@@ -17,18 +74,38 @@ impl TestEnv {
     }
 
     /// A store holding the demo data and no stored runs (`tally demo` itself
-    /// stores the runs of its analyses), built through `tally import`.
+    /// stores the runs of its analyses), built through `tally import`: a copy of
+    /// one store built once per test binary.
     pub fn with_demo_data() -> TestEnv {
+        TestEnv::from_template(DEMO_DATA.get_or_init(|| {
+            Template::build(|env| {
+                env.stdout(["init"]);
+                for (kind, file) in [
+                    ("sites", "sites.csv"),
+                    ("protocols", "protocols.csv"),
+                    ("taxa", "taxa.csv"),
+                    ("records", "records.csv"),
+                ] {
+                    let path = root().join("demo-data").join(file);
+                    env.stdout(["import", kind, path.to_str().expect("UTF-8 path")]);
+                }
+                String::new()
+            })
+        }))
+    }
+
+    /// The store and report written by `tally demo` (its runs included): a copy
+    /// of one demo run once per test binary. Its printed account is
+    /// [`demo_account`].
+    pub fn with_demo() -> TestEnv {
+        TestEnv::from_template(demo_template())
+    }
+
+    /// A new temporary directory holding a copy of the template's files.
+    fn from_template(t: &Template) -> TestEnv {
         let env = TestEnv::new();
-        env.stdout(["init"]);
-        for (kind, file) in [
-            ("sites", "sites.csv"),
-            ("protocols", "protocols.csv"),
-            ("taxa", "taxa.csv"),
-            ("records", "records.csv"),
-        ] {
-            let path = root().join("demo-data").join(file);
-            env.stdout(["import", kind, path.to_str().expect("UTF-8 path")]);
+        for (name, bytes) in &t.files {
+            std::fs::write(env.path(name), bytes).expect("copy of the template store");
         }
         env
     }
