@@ -346,4 +346,33 @@ mod tests {
         assert_eq!(r.clamped, 0);
         assert!(r.p_value > 0.5);
     }
+
+    #[test]
+    fn exact_residual_permutation_counts_the_observed_arrangement() {
+        // 3 + 3 samples on one variable: 20 distinct labellings, enumerated.
+        // Permuting residuals of the full model gives the identity arrangement
+        // F = 0, not the observed F; the observed data must still count once,
+        // so p >= 1/20 (an exact p-value counts the observed arrangement:
+        // Phipson & Smyth 2010, Stat. Appl. Genet. Mol. Biol. 9:39).
+        let x: [f64; 6] = [0.0, 1.0, 2.0, 0.0, 10.0, 20.0];
+        let d = DistanceMatrix::from_fn(6, |i, k| (x[i] - x[k]).abs()).unwrap();
+        let g = Grouping::from_labels(&["a", "a", "a", "b", "b", "b"]);
+        for permute in [Permute::Residuals, Permute::Values] {
+            let opts = DispersionOptions {
+                permutations: 999,
+                seed: 1,
+                scheme: Scheme::Free,
+                permute,
+            };
+            let r = dispersion(&d, &g, &opts, None).unwrap();
+            assert!(r.exact);
+            assert_eq!(r.permutations, 20);
+            assert!(
+                r.p_value >= 1.0 / 20.0 - 1e-15,
+                "{permute:?}: p = {}",
+                r.p_value
+            );
+            assert!(r.p_value <= 1.0);
+        }
+    }
 }

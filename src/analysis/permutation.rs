@@ -420,7 +420,15 @@ pub fn permutation_test(
             .par_chunks(BLOCK * n.max(1))
             .map(|c| count_block(c, total))
             .collect();
-        (total, counts.iter().sum::<usize>())
+        // The observed arrangement is one of those enumerated and must count
+        // as at least as large as itself. Statistics computed from a pool that
+        // is not the data (residuals of the full model, ter Braak 1992) give the
+        // identity arrangement a different value; count the observed data once
+        // in its place, so an exact p-value is never below 1/total.
+        let mut identity_stat = [0.0];
+        stat(&(0..n).collect::<Vec<usize>>(), &mut identity_stat);
+        let extra = usize::from(!at_least(identity_stat[0], observed));
+        (total, counts.iter().sum::<usize>() + extra)
     } else {
         let total = opts.permutations;
         let blocks = total.div_ceil(BLOCK);
