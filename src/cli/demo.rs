@@ -10,7 +10,6 @@ use anyhow::{Context, bail};
 
 use super::common::Periods;
 use super::common::RunArgs;
-use super::report;
 use super::selection::{SelectionArgs, UnitArg, flags_of};
 use crate::analysis::trend::BreakpointSpec;
 use crate::demo::DemoFiles;
@@ -136,7 +135,7 @@ fn geometric_mean(v: &[f64]) -> f64 {
 /// # Errors
 /// Selection and kernel errors (the demo data is checked by the test suite).
 pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
-    let summary = report::summary_json(store)?;
+    let summary = workflow::summary::summary(store)?;
     let periods = Periods(DEMO_PERIODS.to_vec());
     let run = RunArgs {
         permutations: DEMO_PERMUTATIONS,
@@ -200,9 +199,11 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             format!("{label}: composition test"),
             format!("tally ordinate {flags} --method cca --constraint period --periods 2008..2015,2016..2025 --permutations {DEMO_PERMUTATIONS} --seed {DEMO_SEED}"),
         ));
-        if let Some(p) =
-            report::ordination_part(&ca, &format!("{label}: samples by period"), Some(&cca))
-        {
+        if let Some(p) = crate::report::input::ordination_part(
+            &ca,
+            &format!("{label}: samples by period"),
+            Some(&cca),
+        ) {
             parts.push(p);
         }
         let mut means = Vec::new();
@@ -274,7 +275,10 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
     {
         run_ids.push((format!("{label}: size and shape comparison"), *id));
         finding.compare_run_id = Some(*id);
-        compare.push(report::compare_entry(label, serde_json::to_value(outcome)?));
+        compare.push(html::Labelled {
+            label: label.clone(),
+            outcome: outcome.clone(),
+        });
     }
     run_ids.push((
         "size/shape partition of five dissimilarities".to_string(),
@@ -287,7 +291,7 @@ pub fn analyse(store: &mut Store) -> anyhow::Result<DemoAnalysis> {
             flags_of(&partition_prepared.selection)
         ),
     ));
-    let partition = report::partition_entry(serde_json::to_value(&partition_outcome)?);
+    let partition = Part::Done(partition_outcome.clone());
     let compare = Part::Done(compare);
     let trend_selection = Selection {
         protocol: Some("kick".into()),

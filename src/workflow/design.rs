@@ -299,7 +299,12 @@ mod tests {
     fn strata_that_leave_the_factor_no_room_are_refused() {
         // A site-level treatment is constant within each site: permuting within
         // sites can only give back the observed labelling (one arrangement).
-        let m = plots(&[("A", "control"), ("A", "control"), ("B", "fenced"), ("B", "fenced")]);
+        let m = plots(&[
+            ("A", "control"),
+            ("A", "control"),
+            ("B", "fenced"),
+            ("B", "fenced"),
+        ]);
         let err = scheme(&m, Some("site"), Some("treatment")).unwrap_err();
         assert!(err.to_string().contains("one possible"), "{err}");
         assert!(matches!(
@@ -307,7 +312,12 @@ mod tests {
             Err(WorkflowError::StrataIsFactor { .. })
         ));
         // A factor that varies within at least one stratum can be tested.
-        let m = plots(&[("A", "control"), ("A", "fenced"), ("B", "fenced"), ("B", "fenced")]);
+        let m = plots(&[
+            ("A", "control"),
+            ("A", "fenced"),
+            ("B", "fenced"),
+            ("B", "fenced"),
+        ]);
         assert!(matches!(
             scheme(&m, Some("site"), Some("treatment")),
             Ok(Scheme::WithinStrata(_))
@@ -315,7 +325,10 @@ mod tests {
         assert_eq!(scheme(&m, None, Some("treatment")).unwrap(), Scheme::Free);
         assert!(matches!(
             scheme(&m, Some("reach"), None),
-            Err(WorkflowError::Field { option: "--strata", .. })
+            Err(WorkflowError::Field {
+                option: "--strata",
+                ..
+            })
         ));
     }
 
