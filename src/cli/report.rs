@@ -24,7 +24,7 @@ use crate::workflow::{Silent, runs};
 
 /// Arguments of `tally report`.
 #[derive(Debug, Clone, clap::Args)]
-#[command(group(clap::ArgGroup::new("grouping").required(true).args(["by", "split_by"])))]
+#[command(group(clap::ArgGroup::new("grouping").required(true).multiple(true).args(["by", "split_by"])))]
 pub struct Args {
     /// Which events, and what one row is.
     #[command(flatten)]
