@@ -7,5 +7,6 @@
 //! invented counts.
 
 pub mod generate;
+pub mod scenario;
 
 pub use generate::*;

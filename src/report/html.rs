@@ -3,20 +3,22 @@
 //! addresses at all, readable on a phone and printable.
 //!
 //! [`render`] is a pure function from a [`ReportInput`] to a `String`. The
-//! analysis parts arrive as the JSON the commands print (`tally compare`,
-//! `tally partition`, `tally trend`, `tally ordinate`, `tally summary`), so the
-//! report shows exactly what the commands computed; this module computes no
-//! statistic. Each part is a [`Part`]: not requested, requested but not
-//! available (with the reason, shown as such), or done.
+//! analysis parts arrive as the typed outcomes of the workflow
+//! (`workflow::compare`, `workflow::partition`, `workflow::trend`,
+//! `workflow::ordinate`) and the typed store summary (`workflow::summary`), the
+//! same outcomes the commands print and store, so the report shows exactly what
+//! the commands computed; this module computes no statistic. Each part is a
+//! [`Part`]: not requested, requested but not available (with the reason,
+//! shown as such), or done.
 
-use serde_json::Value;
-
-use super::format::fmt_p;
+use super::format::{MISSING, fmt_p};
 use super::svg::{
     self, OrdinationPlot, PartitionBar, PartitionPlot, TotalsPlot, TrendPlot, TrendPoint,
 };
+use crate::analysis::partition::Fractions;
 use crate::analysis::trend::Diagnosis;
-use crate::workflow::trend;
+use crate::workflow::summary::Summary;
+use crate::workflow::{compare, partition, trend};
 
 /// One part of the report.
 #[derive(Debug, Clone, PartialEq)]
@@ -39,13 +41,13 @@ impl<T> Part<T> {
     }
 }
 
-/// A JSON result with the label of what it is about (e.g. `lower reach`).
-#[derive(Debug, Clone, PartialEq)]
+/// A comparison outcome with the label of what it is about (e.g. `lower reach`).
+#[derive(Debug, Clone)]
 pub struct Labelled {
-    /// What the result is about.
+    /// What the comparison is about.
     pub label: String,
-    /// The command's JSON output.
-    pub value: Value,
+    /// The `tally compare` outcome.
+    pub outcome: compare::Outcome,
 }
 
 /// One ordination: its plot input and the `tally ordinate` outcome.
@@ -63,18 +65,18 @@ pub struct OrdinationPart {
 }
 
 /// Everything the report shows.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone)]
 pub struct ReportInput {
     /// Page title.
     pub title: String,
     /// The selection, in plain words.
     pub selection_text: String,
-    /// `tally summary --format json` object.
-    pub summary: Value,
+    /// What the store holds (`tally summary`).
+    pub summary: Summary,
     /// `tally compare` results, one per comparison run (e.g. per reach).
     pub compare: Part<Vec<Labelled>>,
-    /// `tally partition` result (single, or with `partitions` from `--compare-distances`).
-    pub partition: Part<Value>,
+    /// `tally partition` outcome (one dissimilarity, or the pairs of `--compare-distances`).
+    pub partition: Part<partition::Outcome>,
     /// Ordinations.
     pub ordination: Part<Vec<OrdinationPart>>,
     /// Totals per group.
@@ -143,35 +145,19 @@ pub fn inline_svg(svg: &str, label: &str) -> String {
     }
 }
 
-fn f(v: &Value, digits: usize) -> String {
-    match v.as_f64() {
+/// A number for people with `digits` decimals (`—` when not computed).
+fn fnum(v: Option<f64>, digits: usize) -> String {
+    match v.filter(|x| x.is_finite()) {
         Some(x) => format!("{x:.digits$}"),
-        None => "—".to_string(),
+        None => MISSING.to_string(),
     }
 }
 
-/// A p-value printed in full (four significant digits, never "<0.001").
-fn p(v: &Value) -> String {
-    match v.as_f64() {
-        Some(x) if x >= 0.001 => format!("{x:.4}"),
-        Some(x) => format!("{x:.3e}"),
-        None => "—".to_string(),
-    }
-}
-
-fn yes_no(v: &Value) -> &'static str {
-    match v.as_bool() {
-        Some(true) => "<span class=\"tag yes\">yes</span>",
-        Some(false) => "<span class=\"tag no\">no</span>",
-        None => "—",
-    }
-}
-
-fn text_of(v: &Value) -> String {
-    match v {
-        Value::String(s) => s.clone(),
-        Value::Null => String::new(),
-        other => other.to_string(),
+fn yes_no(v: bool) -> &'static str {
+    if v {
+        "<span class=\"tag yes\">yes</span>"
+    } else {
+        "<span class=\"tag no\">no</span>"
     }
 }
 
@@ -305,11 +291,6 @@ fn figure(svg_text: Result<String, svg::SvgError>, label: &str, caption: &str) -
     }
 }
 
-/// A trend number for people, as the other report numbers (`—` when not computed).
-fn fnum(v: Option<f64>, digits: usize) -> String {
-    f(&serde_json::json!(v), digits)
-}
-
 /// The position of a period on the time axis: its year, with the periods of
 /// one year (seasons) spread evenly across that year.
 fn period_position(t: &trend::Outcome, p: &trend::Period) -> f64 {
@@ -411,29 +392,25 @@ fn trend_plot(label: &str, t: &trend::Outcome, subtitle: &str) -> Option<TrendPl
     })
 }
 
-/// Partition bars from a partition result (`partitions` list or one result)
-/// or from compare results (`combined.adjusted_fractions`).
-fn partition_bars_from_partition(v: &Value) -> Vec<PartitionBar> {
-    let list: Vec<&Value> = match v.get("partitions").and_then(Value::as_array) {
-        Some(a) => a.iter().collect(),
-        None => vec![v],
-    };
-    list.into_iter()
-        .filter_map(|x| {
-            let label = format!("{} ({})", text_of(&x["distance"]), text_of(&x["transform"]));
-            bar(&label, &x["adjusted_fractions"])
+/// Partition bars from a partition outcome: one per dissimilarity and transform.
+fn partition_bars_from_partition(o: &partition::Outcome) -> Vec<PartitionBar> {
+    o.parts()
+        .iter()
+        .map(|x| {
+            let label = format!("{} ({})", x.distance.name(), x.transform.name());
+            bar(&label, &x.adjusted_fractions)
         })
         .collect()
 }
 
-fn bar(label: &str, a: &Value) -> Option<PartitionBar> {
-    Some(PartitionBar {
+fn bar(label: &str, a: &Fractions) -> PartitionBar {
+    PartitionBar {
         label: label.to_string(),
-        size_only: a["size_only"].as_f64()?,
-        shared: a["shared"].as_f64()?,
-        shape_only: a["shape_only"].as_f64()?,
-        unexplained: a["unexplained"].as_f64()?,
-    })
+        size_only: a.size_only,
+        shared: a.shared,
+        shape_only: a.shape_only,
+        unexplained: a.unexplained,
+    }
 }
 
 fn glance(out: &mut String, input: &ReportInput) {
@@ -441,17 +418,14 @@ fn glance(out: &mut String, input: &ReportInput) {
     let mut cards = String::new();
     if let Some(cs) = input.compare.done() {
         for c in cs {
-            let first = c.value["comparisons"]
-                .as_array()
-                .and_then(|a| a.first())
-                .cloned()
-                .unwrap_or(Value::Null);
+            let (abundance, composition) = match c.outcome.comparisons.first() {
+                Some(x) => (yes_no(x.abundance_differs), yes_no(x.composition_differs)),
+                None => (MISSING, MISSING),
+            };
             cards.push_str(&format!(
-                "<div class=\"card\"><h3>{}</h3><p>Abundance differs: {} · Composition differs: {}</p><p>{}</p></div>\n",
+                "<div class=\"card\"><h3>{}</h3><p>Abundance differs: {abundance} · Composition differs: {composition}</p><p>{}</p></div>\n",
                 esc(&c.label),
-                yes_no(&first["abundance_differs"]),
-                yes_no(&first["composition_differs"]),
-                esc(&text_of(&c.value["verdict"]))
+                esc(&c.outcome.verdict)
             ));
         }
     }
@@ -496,63 +470,59 @@ fn glance(out: &mut String, input: &ReportInput) {
     out.push_str("</section>\n");
 }
 
-fn store_part(out: &mut String, s: &Value) {
+fn store_part(out: &mut String, s: &Summary) {
     open_section(out, "store");
     out.push_str(&format!(
         "<p>{} sites, {} sampling events, {} taxon names, {} counts in {} import batch(es); events from {} to {}.</p>\n",
-        f(&s["sites"], 0),
-        f(&s["events"], 0),
-        f(&s["taxa"], 0),
-        f(&s["counts"], 0),
-        f(&s["batches"], 0),
-        esc(&text_of(&s["first_date"])),
-        esc(&text_of(&s["last_date"]))
+        s.sites,
+        s.events,
+        s.taxa,
+        s.counts,
+        s.batches,
+        esc(s.first_date.as_deref().unwrap_or_default()),
+        esc(s.last_date.as_deref().unwrap_or_default())
     ));
-    if let Some(ps) = s["protocols"].as_array() {
-        let rows: Vec<Vec<String>> = ps
-            .iter()
-            .map(|x| {
-                vec![
-                    esc(&text_of(&x["code"])),
-                    esc(&text_of(&x["effort_unit"])),
-                    f(&x["events"], 0),
-                    f(&x["total_effort"], 1),
-                ]
-            })
-            .collect();
-        out.push_str(&table(
-            &["Protocol", "Effort unit", "Events", "Total effort"],
-            &rows,
-            &[false, false, true, true],
-        ));
+    let rows: Vec<Vec<String>> = s
+        .protocols
+        .iter()
+        .map(|x| {
+            vec![
+                esc(&x.code),
+                esc(&x.effort_unit),
+                x.events.to_string(),
+                fnum(Some(x.total_effort), 1),
+            ]
+        })
+        .collect();
+    out.push_str(&table(
+        &["Protocol", "Effort unit", "Events", "Total effort"],
+        &rows,
+        &[false, false, true, true],
+    ));
+    out.push_str("<h3>Events per site and year</h3>\n<div class=\"scroll\"><table class=\"grid\"><thead><tr><th>Site</th>");
+    for y in &s.years {
+        // Two-digit years keep the grid narrow on a phone.
+        let t = y.to_string();
+        let short = if t.len() == 4 {
+            format!("'{}", &t[2..])
+        } else {
+            t
+        };
+        out.push_str(&format!("<th>{}</th>", esc(&short)));
     }
-    if let (Some(years), Some(cov)) = (s["years"].as_array(), s["coverage"].as_array()) {
-        out.push_str("<h3>Events per site and year</h3>\n<div class=\"scroll\"><table class=\"grid\"><thead><tr><th>Site</th>");
-        for y in years {
-            // Two-digit years keep the grid narrow on a phone.
-            let t = text_of(y);
-            let short = if t.len() == 4 {
-                format!("'{}", &t[2..])
+    out.push_str("</tr></thead><tbody>\n");
+    for c in &s.coverage {
+        out.push_str(&format!("<tr><th>{}</th>", esc(&c.site)));
+        for &n in &c.events {
+            if n == 0 {
+                out.push_str("<td class=\"zero\">·</td>");
             } else {
-                t
-            };
-            out.push_str(&format!("<th>{}</th>", esc(&short)));
-        }
-        out.push_str("</tr></thead><tbody>\n");
-        for c in cov {
-            out.push_str(&format!("<tr><th>{}</th>", esc(&text_of(&c["site"]))));
-            for e in c["events"].as_array().into_iter().flatten() {
-                let n = e.as_i64().unwrap_or(0);
-                if n == 0 {
-                    out.push_str("<td class=\"zero\">·</td>");
-                } else {
-                    out.push_str(&format!("<td>{n}</td>"));
-                }
+                out.push_str(&format!("<td>{n}</td>"));
             }
-            out.push_str("</tr>\n");
         }
-        out.push_str("</tbody></table></div>\n");
+        out.push_str("</tr>\n");
     }
+    out.push_str("</tbody></table></div>\n");
     out.push_str("</section>\n");
 }
 
@@ -560,44 +530,42 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
     open_section(out, "compare");
     if !not_shown(out, part, "the comparison of abundance and composition") {
         for c in part.done().into_iter().flatten() {
-            let v = &c.value;
+            let v = &c.outcome;
             out.push_str(&format!("<h3>{}</h3>\n", esc(&c.label)));
             out.push_str(&format!(
                 "<p><strong>Verdict:</strong> {}</p>\n",
-                esc(&text_of(&v["verdict"]))
+                esc(&v.verdict)
             ));
-            let size = &v["size"];
-            let shape = &v["shape"];
-            let comb = &v["combined"];
+            let (size, shape, comb) = (&v.size, &*v.shape, &*v.combined);
             let rows = vec![
                 vec![
                     "Abundance (size)".into(),
                     format!(
                         "ratio {} (95% CI {}–{})",
-                        f(&size["ratio"], 3),
-                        f(&size["ci_low"], 3),
-                        f(&size["ci_high"], 3)
+                        fnum(size.ratio, 3),
+                        fnum(size.ci_low, 3),
+                        fnum(size.ci_high, 3)
                     ),
-                    p(&size["p_value"]),
+                    fmt_p(size.p_value, size.permutations),
                 ],
                 vec![
-                    format!("Composition (shape, {})", esc(&text_of(&shape["distance"]))),
-                    format!("pseudo-F {}", f(&shape["pseudo_f"], 3)),
-                    p(&shape["p_value"]),
+                    format!("Composition (shape, {})", esc(shape.distance.name())),
+                    format!("pseudo-F {}", fnum(Some(shape.pseudo_f), 3)),
+                    fmt_p(shape.p_value, shape.permutations),
                 ],
                 vec![
                     "Spread of composition (dispersion)".into(),
                     String::new(),
-                    p(&shape["dispersion_p_value"]),
+                    fmt_p(shape.dispersion_p_value, shape.dispersion_permutations),
                 ],
                 vec![
                     format!(
                         "Combined ({}, {})",
-                        esc(&text_of(&comb["distance"])),
-                        esc(&text_of(&comb["transform"]))
+                        esc(comb.distance.name()),
+                        esc(comb.transform.name())
                     ),
-                    format!("pseudo-F {}", f(&comb["pseudo_f"], 3)),
-                    p(&comb["p_value"]),
+                    format!("pseudo-F {}", fnum(Some(comb.pseudo_f), 3)),
+                    fmt_p(comb.p_value, comb.permutations),
                 ],
             ];
             out.push_str(&table(
@@ -605,16 +573,17 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
                 &rows,
                 &[false, false, true],
             ));
-            if let Some(cs) = v["comparisons"].as_array().filter(|a| !a.is_empty()) {
-                let rows: Vec<Vec<String>> = cs
+            if !v.comparisons.is_empty() {
+                let rows: Vec<Vec<String>> = v
+                    .comparisons
                     .iter()
                     .map(|x| {
                         vec![
-                            esc(&text_of(&x["group"])),
-                            esc(&text_of(&x["reference"])),
-                            yes_no(&x["abundance_differs"]).to_string(),
-                            yes_no(&x["composition_differs"]).to_string(),
-                            esc(&text_of(&x["verdict"])),
+                            esc(&x.group),
+                            esc(&x.reference),
+                            yes_no(x.abundance_differs).to_string(),
+                            yes_no(x.composition_differs).to_string(),
+                            esc(&x.verdict),
                         ]
                     })
                     .collect();
@@ -642,8 +611,8 @@ fn partition_part(out: &mut String, input: &ReportInput) {
     let mut bars = Vec::new();
     if let Some(cs) = input.compare.done() {
         for c in cs {
-            if let Some(b) = bar(&c.label, &c.value["combined"]["adjusted_fractions"]) {
-                bars.push(b);
+            if let Some(a) = &c.outcome.combined.adjusted_fractions {
+                bars.push(bar(&c.label, a));
             }
         }
     }
@@ -660,8 +629,8 @@ fn partition_part(out: &mut String, input: &ReportInput) {
         ));
     }
     match &input.partition {
-        Part::Done(v) => {
-            let bars = partition_bars_from_partition(v);
+        Part::Done(o) => {
+            let bars = partition_bars_from_partition(o);
             if bars.is_empty() {
                 out.push_str("<p class=\"notrun\">The partition result holds no adjusted fractions to draw.</p>\n");
             } else {
@@ -910,19 +879,191 @@ pub fn render(input: &ReportInput) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use serde_json::json;
+    fn fractions(size_only: f64, shared: f64, shape_only: f64, unexplained: f64) -> Fractions {
+        Fractions {
+            size_only,
+            shared,
+            shape_only,
+            unexplained,
+        }
+    }
 
-    fn compare_json(abund: bool, comp: bool) -> Value {
-        json!({
-            "size": {"ratio": 0.61, "ci_low": 0.52, "ci_high": 0.72, "p_value": 0.0001},
-            "shape": {"distance": "hellinger", "pseudo_f": 1.1, "p_value": 0.38, "dispersion_p_value": 0.5},
-            "combined": {"distance": "bray-curtis", "transform": "sqrt", "pseudo_f": 9.0, "p_value": 0.0001,
-                         "adjusted_fractions": {"size_only": 0.2, "shared": 0.05, "shape_only": 0.02, "unexplained": 0.73}},
-            "verdict": "abundance lower <x0.61>; composition not different",
-            "comparisons": [{"group": "2016–2025", "reference": "2008–2015",
-                             "abundance_differs": abund, "composition_differs": comp}],
-            "run_id": 3
-        })
+    fn compare_outcome(abund: bool, comp: bool) -> compare::Outcome {
+        use crate::analysis::dissimilarity::Distance;
+        use crate::analysis::transform::Transform;
+        use crate::workflow::compare::{
+            Combined, Comparison, Outcome, PairN, PairShape, PairSize, Shape, Size,
+        };
+        Outcome {
+            by: "period".into(),
+            reference: "2008–2015".into(),
+            groups: Vec::new(),
+            alpha: 0.05,
+            per_effort: true,
+            size: Size {
+                ratio: Some(0.61),
+                ci_low: Some(0.52),
+                ci_high: Some(0.72),
+                p_value: 0.0001,
+                f: 20.0,
+                df: (1, 10),
+                confidence: 0.95,
+                bootstrap: 999,
+                permutations: 9999,
+                exact: false,
+                groups: Vec::new(),
+            },
+            shape: Box::new(Shape {
+                distance: Distance::Hellinger,
+                pseudo_f: 1.1,
+                r2: 0.1,
+                p_value: 0.38,
+                permutations: 9999,
+                exact: false,
+                dispersion_f: 0.5,
+                dispersion_p_value: 0.5,
+                dispersion_permutations: 9999,
+                dispersion_groups: Vec::new(),
+                rarefied: None,
+            }),
+            combined: Box::new(Combined {
+                distance: Distance::BrayCurtis,
+                transform: Transform::Sqrt,
+                pseudo_f: 9.0,
+                r2: 0.3,
+                p_value: 0.0001,
+                permutations: 9999,
+                fractions: None,
+                adjusted_fractions: Some(fractions(0.2, 0.05, 0.02, 0.73)),
+                partition_p_values: None,
+                shape_axes: None,
+            }),
+            comparisons: vec![Comparison {
+                group: "2016–2025".into(),
+                reference: "2008–2015".into(),
+                n: PairN {
+                    group: 6,
+                    reference: 6,
+                },
+                size: PairSize {
+                    ratio: 0.61,
+                    ci_low: 0.52,
+                    ci_high: 0.72,
+                    p_value: 0.0001,
+                    p_adjusted: None,
+                    permutations: 9999,
+                },
+                shape: PairShape {
+                    distance: Distance::Hellinger,
+                    pseudo_f: 1.1,
+                    p_value: 0.38,
+                    p_adjusted: None,
+                    permutations: 9999,
+                    dispersion_p_value: 0.5,
+                    dispersion_p_adjusted: None,
+                    dispersion_permutations: 9999,
+                },
+                abundance_differs: abund,
+                composition_differs: comp,
+                dispersion_differs: false,
+                verdict: "abundance lower".into(),
+            }],
+            verdict: "abundance lower <x0.61>; composition not different".into(),
+            seed: 3,
+            scheme: "free".into(),
+            permutations: 9999,
+            notes: Vec::new(),
+            caution: "",
+            differs: None,
+            assembly_notes: 0,
+        }
+    }
+
+    fn partition_outcome() -> partition::Outcome {
+        use crate::analysis::dissimilarity::Distance;
+        use crate::analysis::partition::{SizeCoding, UniqueTest};
+        use crate::analysis::transform::Transform;
+        use crate::workflow::partition::{Part as P, Partitions, R2, Tests};
+        let test = UniqueTest {
+            pseudo_f: Some(2.0),
+            p_value: Some(0.01),
+            df: 1,
+            df_resid: 20,
+            permutations: 199,
+            exact: false,
+        };
+        let part = |distance, adjusted| P {
+            distance,
+            transform: Transform::None,
+            size: SizeCoding::LogTotal,
+            n: 24,
+            total_variation: 1.0,
+            r2: R2 {
+                size: 0.1,
+                shape: 0.4,
+                both: 0.5,
+            },
+            fractions: adjusted,
+            adjusted_fractions: adjusted,
+            tests: Tests {
+                size_only: test.clone(),
+                shape_only: test.clone(),
+            },
+            shape_axes: 2,
+            shape_design: "ca axes",
+            shape_inertia_share: 0.6,
+            df_resid: 20,
+            one_block_explains_all: false,
+            seed: 1,
+            scheme: "free".into(),
+            notes: Vec::new(),
+        };
+        partition::Outcome {
+            partitions: Partitions::Compared {
+                partitions: vec![
+                    part(Distance::BrayCurtis, fractions(0.1, -0.02, 0.4, 0.52)),
+                    part(Distance::Hellinger, fractions(0.0, 0.0, 0.6, 0.4)),
+                ],
+                seed: 1,
+                n: 24,
+            },
+            permutations: 199,
+            per_effort: true,
+            caution: "",
+            shared_means: "",
+            notes: Vec::new(),
+            assembly_notes: 0,
+        }
+    }
+
+    fn summary() -> Summary {
+        use crate::workflow::summary::{ProtocolSummary, SiteCoverage};
+        Summary {
+            sites: 2,
+            events: 3,
+            taxa: 4,
+            counts: 5,
+            batches: 1,
+            first_date: Some("2008-04-01".into()),
+            last_date: Some("2009-05-01".into()),
+            years: vec![2008, 2009],
+            protocols: vec![ProtocolSummary {
+                code: "kick".into(),
+                effort_unit: "minutes".into(),
+                events: 3,
+                total_effort: 9.0,
+            }],
+            coverage: vec![
+                SiteCoverage {
+                    site: "S01".into(),
+                    events: vec![1, 0],
+                },
+                SiteCoverage {
+                    site: "S02".into(),
+                    events: vec![1, 1],
+                },
+            ],
+        }
     }
 
     fn trend_outcome(
@@ -1036,25 +1177,18 @@ mod tests {
         ReportInput {
             title: "Wren & Valley".into(),
             selection_text: "kick samples, per minute".into(),
-            summary: json!({"sites": 2, "events": 3, "taxa": 4, "counts": 5, "batches": 1,
-                            "first_date": "2008-04-01", "last_date": "2009-05-01", "years": [2008, 2009],
-                            "protocols": [{"code": "kick", "effort_unit": "minutes", "events": 3, "total_effort": 9.0}],
-                            "coverage": [{"site": "S01", "events": [1, 0]}, {"site": "S02", "events": [1, 1]}]}),
+            summary: summary(),
             compare: Part::Done(vec![
                 Labelled {
                     label: "lower reach".into(),
-                    value: compare_json(true, false),
+                    outcome: compare_outcome(true, false),
                 },
                 Labelled {
                     label: "middle reach".into(),
-                    value: compare_json(false, true),
+                    outcome: compare_outcome(false, true),
                 },
             ]),
-            partition: Part::Done(json!({"partitions": [
-                {"distance": "bray-curtis", "transform": "none",
-                 "adjusted_fractions": {"size_only": 0.1, "shared": -0.02, "shape_only": 0.4, "unexplained": 0.52}},
-                {"distance": "hellinger", "transform": "none",
-                 "adjusted_fractions": {"size_only": 0.0, "shared": 0.0, "shape_only": 0.6, "unexplained": 0.4}}]})),
+            partition: Part::Done(partition_outcome()),
             ordination: Part::NotRequested,
             totals: Part::Unavailable("every total is zero".into()),
             trends: Part::Done(trend_groups()),

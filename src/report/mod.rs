@@ -3,6 +3,7 @@
 
 pub mod format;
 pub mod html;
+pub mod input;
 pub mod svg;
 pub mod text;
 

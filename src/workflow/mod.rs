@@ -23,7 +23,9 @@ pub mod ordinate;
 pub mod partition;
 pub mod permanova;
 pub mod prepare;
+pub mod report;
 pub mod runs;
+pub mod summary;
 pub mod trend;
 
 pub use error::{Result, WorkflowError};

@@ -298,8 +298,10 @@ fn demo_recovers_the_stories_and_writes_its_report() {
     let html = std::fs::read_to_string(&report).unwrap();
     sections_present(&html);
     let mut store = tally::store::Store::open(&env.db).unwrap();
-    let a = tally::cli::demo::analyse(&mut store).unwrap();
-    let by: std::collections::HashMap<&str, &tally::cli::demo::ReachFinding> =
+    let ran = tally::demo::scenario::run(&store).unwrap();
+    let ids = tally::workflow::runs::save(&mut store, &ran.to_save().unwrap()).unwrap();
+    let a = ran.analysis(&ids).unwrap();
+    let by: std::collections::HashMap<&str, &tally::demo::scenario::ReachFinding> =
         a.reaches.iter().map(|r| (r.reach.as_str(), r)).collect();
     // demo-data/README.md stories: lower loses ~40 % per minute from 2016 with
     // composition unchanged; middle changes composition at constant totals;
@@ -356,6 +358,51 @@ fn demo_recovers_the_stories_and_writes_its_report() {
     ] {
         assert!(account.contains(line), "{line} missing from:\n{account}");
     }
+}
+
+#[test]
+fn every_run_the_demo_and_a_report_store_verifies() {
+    // `tally demo` stores its composition tests, comparisons, partition and
+    // trends; a report with --by and --split-by stores its comparison,
+    // partition and one trend per group. `runs verify` replays each from its
+    // stored spec and selection and must reproduce every stored number.
+    let env = demo_env();
+    let out = env.path("r.html");
+    let out_s = out.to_string_lossy().to_string();
+    env.stdout(args(
+        "report",
+        &[
+            "--by",
+            "reach",
+            "--split-by",
+            "reach",
+            "--out",
+            &out_s,
+            "--permutations",
+            "99",
+            "--seed",
+            "7",
+        ],
+    ));
+    let list: Value =
+        serde_json::from_str(&env.stdout(["runs", "list", "--format", "json"])).unwrap();
+    let ids: Vec<String> = list
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| r["id"].as_i64().unwrap().to_string())
+        .collect();
+    // Demo: 3 composition tests, 3 comparisons, 1 partition, 3 trends;
+    // report: 1 comparison, 1 partition, 3 trends.
+    assert_eq!(ids.len(), 15, "{list}");
+    for id in &ids {
+        let rep: Value =
+            serde_json::from_str(&env.stdout(["runs", "verify", id, "--format", "json"])).unwrap();
+        assert_eq!(rep["identical"], true, "run {id}: {rep}");
+    }
+    // The report names the seed and permutations of each stored part.
+    let html = std::fs::read_to_string(&out).unwrap();
+    assert!(html.contains("--permutations 99 --seed 7"));
 }
 
 fn chromium() -> Option<PathBuf> {

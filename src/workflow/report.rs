@@ -1,0 +1,282 @@
+//! The analyses of `tally report`, as one workflow: the selection is prepared
+//! once, then the correspondence analysis ([`ordinate`]), the size and shape
+//! comparison ([`compare`]) and the five-way partition ([`partition`]) with
+//! `by`, and the trends ([`trend::split`]) with `split_by`. Each part keeps its
+//! prepared data, its spec, its outcome and the command line that computes the
+//! same numbers on its own (`--seed` and `--permutations` included), so the
+//! report can show where every number comes from and `runs verify` can replay
+//! every stored run.
+
+use crate::analysis::trend::BreakpointSpec;
+use crate::store::{Selection, Store};
+
+use super::design::{DistanceSpec, Periods};
+use super::ordinate::{self, Method};
+use super::runs::ToSave;
+use super::summary::{self, Summary};
+use super::{Analysis, Prepared, Progress, Result, WorkflowError, compare, partition, prepare};
+use super::{resolve, trend};
+
+/// What the report is of.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Spec {
+    /// The saved selection the flags apply over, if any.
+    pub saved: Option<String>,
+    /// The selection flags given explicitly.
+    pub selection: Selection,
+    /// Compare the groups of this field (CA, comparison, partition).
+    pub by: Option<String>,
+    /// Follow each group of this field across the years (trends).
+    pub split_by: Option<String>,
+    /// Year ranges defining the field `period`.
+    pub periods: Option<Periods>,
+    /// Random permutations of every test.
+    pub permutations: usize,
+    /// Seed of every random stream.
+    pub seed: u64,
+}
+
+/// One analysis of the report: its spec, its outcome and the command line
+/// that computes the same outcome.
+#[derive(Debug, Clone)]
+pub struct Done<S: Analysis> {
+    /// The spec.
+    pub spec: S,
+    /// The outcome.
+    pub outcome: S::Outcome,
+    /// The equivalent `tally …` command line.
+    pub command: String,
+}
+
+/// The trends of the report: one per group of `field`, each on its own selection.
+#[derive(Debug, Clone)]
+pub struct Trends {
+    /// The field split by.
+    pub field: String,
+    /// The spec shared by every group.
+    pub spec: trend::Spec,
+    /// The prepared data of each group, in order.
+    pub parts: Vec<(String, Prepared)>,
+    /// The outcome of each group.
+    pub split: trend::Split,
+    /// The equivalent `tally trend …` command line.
+    pub command: String,
+}
+
+/// Everything the report computed.
+#[derive(Debug, Clone)]
+pub struct Report {
+    /// What was asked for.
+    pub spec: Spec,
+    /// The field of the ordination (`by`, else `split_by`).
+    pub field: String,
+    /// What the store holds.
+    pub summary: Summary,
+    /// The prepared selection of the ordination, the comparison and the partition.
+    pub prepared: Prepared,
+    /// The correspondence analysis by `field`.
+    pub ordination: Done<ordinate::Spec>,
+    /// The comparison by `by`.
+    pub compare: Option<Done<compare::Spec>>,
+    /// The five-way size/shape partition (with `by`).
+    pub partition: Option<Done<partition::Spec>>,
+    /// The trends by `split_by`.
+    pub trends: Option<Trends>,
+}
+
+/// Labels of the report's parts, shared by its provenance rows and run ids.
+pub mod label {
+    /// The store summary.
+    pub const SUMMARY: &str = "store summary";
+    /// The correspondence analysis.
+    pub const ORDINATION: &str = "ordination";
+    /// The size/shape partition.
+    pub const PARTITION: &str = "size/shape partition";
+    /// The trends.
+    pub const TRENDS: &str = "trends";
+
+    /// The comparison by `by`.
+    pub fn comparison(by: &str) -> String {
+        format!("comparison by {by}")
+    }
+}
+
+/// `--periods A..B,C..D`, with a leading space (empty without periods).
+pub fn periods_flag(periods: Option<&Periods>) -> String {
+    periods
+        .map(|p| {
+            format!(
+                " --periods {}",
+                p.0.iter()
+                    .map(|(a, b)| format!("{a}..{b}"))
+                    .collect::<Vec<_>>()
+                    .join(",")
+            )
+        })
+        .unwrap_or_default()
+}
+
+impl Report {
+    /// The runs to store, in the order of [`Report::stored_parts`]: the
+    /// comparison, the partition, then one trend per group.
+    ///
+    /// # Errors
+    /// Serialisation errors.
+    pub fn to_save(&self) -> Result<Vec<ToSave<'_>>> {
+        let mut v = Vec::new();
+        if let Some(c) = &self.compare {
+            v.push(ToSave::new(&self.prepared, &c.spec, &c.outcome)?);
+        }
+        if let Some(p) = &self.partition {
+            v.push(ToSave::new(&self.prepared, &p.spec, &p.outcome)?);
+        }
+        if let Some(t) = &self.trends {
+            v.extend(t.split.to_save(&t.spec, &t.parts)?);
+        }
+        Ok(v)
+    }
+
+    /// The part each run of [`Report::to_save`] belongs to, in the same order.
+    pub fn stored_parts(&self) -> Vec<String> {
+        let mut v = Vec::new();
+        if let Some(c) = &self.compare {
+            v.push(label::comparison(&c.spec.by));
+        }
+        if self.partition.is_some() {
+            v.push(label::PARTITION.to_string());
+        }
+        if let Some(t) = &self.trends {
+            v.extend(t.parts.iter().map(|_| label::TRENDS.to_string()));
+        }
+        v
+    }
+
+    /// How each part was obtained: (part, equivalent command line).
+    pub fn commands(&self) -> Vec<(String, String)> {
+        let mut v = vec![
+            (label::SUMMARY.to_string(), "tally summary".to_string()),
+            (
+                label::ORDINATION.to_string(),
+                self.ordination.command.clone(),
+            ),
+        ];
+        if let Some(c) = &self.compare {
+            v.push((label::comparison(&c.spec.by), c.command.clone()));
+        }
+        if let Some(p) = &self.partition {
+            v.push((label::PARTITION.to_string(), p.command.clone()));
+        }
+        if let Some(t) = &self.trends {
+            v.push((label::TRENDS.to_string(), t.command.clone()));
+        }
+        v
+    }
+}
+
+/// Run the report's analyses.
+///
+/// # Errors
+/// [`WorkflowError::Invalid`] without `by` and `split_by`; selection, field and
+/// analysis errors of every part; SQLite errors.
+pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report> {
+    let field = spec
+        .by
+        .clone()
+        .or_else(|| spec.split_by.clone())
+        .ok_or_else(|| WorkflowError::Invalid {
+            option: "--by",
+            reason: "--by or --split-by is required".to_string(),
+        })?;
+    let summary = summary::summary(store)?;
+    let prepared = prepare(
+        store,
+        &resolve(store, spec.saved.as_deref(), &spec.selection)?,
+    )?;
+    let flags = prepared.selection.to_flags();
+    let periods = periods_flag(spec.periods.as_ref());
+    let (p, s) = (spec.permutations, spec.seed);
+    // The periods of the ordination are applied by the one periods rule
+    // (`Periods::apply`), as in the comparison.
+    let ca = ordinate::Spec {
+        method: Method::Ca,
+        by: Some(field.clone()),
+        periods: spec.periods.clone(),
+        constraints: Vec::new(),
+        axes: 2,
+        distance: DistanceSpec::default(),
+        permutations: p,
+        seed: None,
+    };
+    let ordination = Done {
+        outcome: ca.run(&prepared, progress)?,
+        spec: ca,
+        // A correspondence analysis draws no random numbers: no seed.
+        command: format!("tally ordinate {flags} --method ca --by {field}{periods}"),
+    };
+    let (compare, partition) = match &spec.by {
+        Some(by) => {
+            let mut c = compare::Spec::new(by.clone(), p, s);
+            c.periods = spec.periods.clone();
+            let pa = partition::Spec::compared(p, s);
+            (
+                Some(Done {
+                    outcome: c.run(&prepared, progress)?,
+                    spec: c,
+                    command: format!(
+                        "tally compare {flags} --by {by}{periods} --permutations {p} --seed {s}"
+                    ),
+                }),
+                Some(Done {
+                    outcome: pa.run(&prepared, progress)?,
+                    spec: pa,
+                    command: format!(
+                        "tally partition {flags} --compare-distances --permutations {p} --seed {s}"
+                    ),
+                }),
+            )
+        }
+        None => (None, None),
+    };
+    let trends = match &spec.split_by {
+        Some(split_by) => Some(trends(store, spec, split_by, progress)?),
+        None => None,
+    };
+    Ok(Report {
+        spec: spec.clone(),
+        field,
+        summary,
+        prepared,
+        ordination,
+        compare,
+        partition,
+        trends,
+    })
+}
+
+/// The trends of the report: `tally trend --split-by FIELD --every year
+/// --breakpoint auto` on the report's selection (rows pooled per site and year
+/// unless a unit is given), one run per group.
+fn trends(store: &Store, spec: &Spec, field: &str, progress: &dyn Progress) -> Result<Trends> {
+    let base = trend::resolve(
+        store,
+        spec.saved.as_deref(),
+        &spec.selection,
+        trend::Every::Year,
+    )?;
+    let parts = trend::split(store, &base, field)?;
+    let mut t = trend::Spec::new(spec.permutations, spec.seed);
+    t.breakpoint = Some(BreakpointSpec::Auto);
+    let split = t.run_split(field, &parts, progress)?;
+    Ok(Trends {
+        field: field.to_string(),
+        command: format!(
+            "tally trend {} --every year --split-by {field} --breakpoint auto --permutations {} --seed {}",
+            base.to_flags(),
+            spec.permutations,
+            spec.seed
+        ),
+        spec: t,
+        parts,
+        split,
+    })
+}
