@@ -275,6 +275,7 @@ fn merging_a_genus_into_its_own_species_is_refused_and_the_store_stays_sound() {
     for sp in ["Baetis rhodani", "Baetis muticus", "Baetis vernus"] {
         assert!(tree.contains(&format!("      {sp} (species)")), "{tree}");
     }
+    assert!(env.stdout(["check"]).contains("taxonomy ok"));
 }
 
 #[test]
@@ -299,6 +300,50 @@ fn a_parent_loop_through_move_is_refused_with_the_store_unchanged() {
         "{err}"
     );
     assert_eq!(env.dump(), before);
+}
+
+#[test]
+fn check_names_a_loop_planted_through_sql() {
+    let env = mayflies();
+    assert!(env.stdout(["check"]).contains("taxonomy ok"));
+    {
+        // Straight through SQLite, as a careless script would: Baetis becomes a
+        // synonym of its own species, and Ecdyonurus a synonym of a synonym.
+        let c = rusqlite::Connection::open(&env.db).unwrap();
+        c.execute(
+            "UPDATE taxon SET accepted_id = (SELECT id FROM taxon WHERE name = 'Baetis rhodani') \
+             WHERE name = 'Baetis'",
+            [],
+        )
+        .unwrap();
+        c.execute(
+            "UPDATE taxon SET accepted_id = (SELECT id FROM taxon WHERE name = 'Baetis') \
+             WHERE name = 'Ecdyonurus'",
+            [],
+        )
+        .unwrap();
+    }
+    let (code, out, err) = env.run(["check"]);
+    assert_eq!(code, 1, "{out}{err}");
+    assert!(
+        out.contains(
+            "taxonomy: parent loop: Baetis rhodani → parent Baetis → accepted Baetis rhodani"
+        ),
+        "{out}"
+    );
+    assert!(
+        out.contains(
+            "taxonomy: synonym of a synonym: Ecdyonurus → accepted Baetis → accepted Baetis rhodani"
+        ),
+        "{out}"
+    );
+    assert!(err.contains("2 problem(s)"), "{err}");
+    // The tree says what it cannot show.
+    let o = env.cmd(["taxa", "tree"]).output().unwrap();
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("are not shown: their parent chain loops"),
+        "{o:?}"
+    );
 }
 
 #[test]
@@ -356,6 +401,7 @@ fn rename_merge_and_move_each_undo_to_the_original_store_and_matrices() {
             ("undo".into(), Some(5), None),
         ]
     );
+    assert!(env.stdout(["check"]).contains("taxonomy ok"));
 }
 
 #[test]
