@@ -1,4 +1,5 @@
-//! `tally check`: integrity check of the store file (structure, CHECK constraints, foreign keys).
+//! `tally check`: integrity check of the store file (structure, CHECK constraints,
+//! foreign keys) and of its taxonomy (loops, synonyms of synonyms, rank order).
 
 use std::io::Write;
 
@@ -15,7 +16,10 @@ pub struct Args {}
 pub fn run(_args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     let r = store.check()?;
     if r.is_ok() {
-        writeln!(out, "store is sound: integrity ok, foreign keys ok")?;
+        writeln!(
+            out,
+            "store is sound: integrity ok, foreign keys ok, taxonomy ok"
+        )?;
         return Ok(());
     }
     for line in &r.integrity {
@@ -24,8 +28,8 @@ pub fn run(_args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Resul
     for line in &r.foreign_keys {
         writeln!(out, "foreign key: {line}")?;
     }
-    anyhow::bail!(
-        "the store has {} problem(s)",
-        r.integrity.len() + r.foreign_keys.len()
-    )
+    for line in &r.taxonomy {
+        writeln!(out, "taxonomy: {line}")?;
+    }
+    anyhow::bail!("the store has {} problem(s)", r.problems())
 }

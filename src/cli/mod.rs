@@ -79,9 +79,9 @@ pub enum Command {
     Batches(batches::Args),
     /// What is stored: totals, years, protocols, events per site and year.
     Summary(summary::Args),
-    /// Taxonomy upkeep: list, tree, rename, merge, history.
+    /// Taxonomy upkeep: list, tree, rename, merge, move, undo, history.
     Taxa(taxa::Args),
-    /// Check the store file's integrity and foreign keys.
+    /// Check the store file's integrity, foreign keys and taxonomy.
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
     Backup(backup::Args),

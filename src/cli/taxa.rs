@@ -1,8 +1,9 @@
-//! `tally taxa list|tree|rename|merge|history`: taxonomy upkeep. Renames and
-//! merges never rewrite counts: a merged name becomes a synonym and is counted
-//! under its accepted name by every query; each change is recorded.
+//! `tally taxa list|tree|rename|merge|move|undo|history`: taxonomy upkeep.
+//! Changes never rewrite counts: a merged name becomes a synonym and is counted
+//! under its accepted name by every query. Each change is checked against the
+//! taxonomy's rules first, recorded with its reason, and can be undone.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, BTreeSet};
 use std::io::Write;
 
 use clap::Subcommand;
@@ -11,7 +12,8 @@ use serde_json::json;
 use super::{FormatArg, note};
 use crate::report::format::{new_table, write_json, write_table};
 use crate::store::Store;
-use crate::store::taxa::TaxonRow;
+use crate::store::taxa::integrity::Taxonomy;
+use crate::store::taxa::{TaxonChange, TaxonRow};
 
 /// Arguments of `tally taxa`.
 #[derive(Debug, clap::Args)]
@@ -39,20 +41,42 @@ pub enum Action {
         /// The new name.
         to: String,
         /// Why (recorded with the change).
-        #[arg(long, default_value = "")]
+        #[arg(long)]
         reason: String,
     },
     /// Count one taxon under another from now on (FROM becomes a synonym of INTO).
     Merge {
         /// The name to merge.
         from: String,
-        /// The accepted name to count it under.
+        /// The accepted name to count it under (a synonym stands for its accepted name).
         into: String,
         /// Why (recorded with the change).
-        #[arg(long, default_value = "")]
+        #[arg(long)]
         reason: String,
     },
-    /// Every recorded rename and merge.
+    /// Give a taxon another parent (or none, with --no-parent).
+    Move {
+        /// The taxon to move.
+        taxon: String,
+        /// The new parent (a synonym stands for its accepted name).
+        #[arg(long, required_unless_present = "no_parent")]
+        parent: Option<String>,
+        /// Make the taxon a top-level one.
+        #[arg(long, conflicts_with = "parent")]
+        no_parent: bool,
+        /// Why (recorded with the change).
+        #[arg(long)]
+        reason: String,
+    },
+    /// Reverse a rename, merge or move (ids in `taxa history`).
+    Undo {
+        /// The change id.
+        change: i64,
+        /// Why (recorded with the undo).
+        #[arg(long)]
+        reason: String,
+    },
+    /// Every recorded change, with its id.
     History {
         /// Output format.
         #[arg(long, value_enum, default_value_t)]
@@ -68,23 +92,46 @@ fn years(t: &TaxonRow) -> String {
     }
 }
 
-fn write_tree(out: &mut dyn Write, taxa: &[TaxonRow]) -> std::io::Result<()> {
+/// The tree as roll-up sees it: an accepted taxon sits under the accepted name
+/// of its parent. Taxa whose chain loops are not reachable from the top; they
+/// are counted in a note.
+fn write_tree(out: &mut dyn Write, taxa: &[TaxonRow], tax: &Taxonomy) -> std::io::Result<()> {
+    let by_name: BTreeMap<&str, &TaxonRow> = taxa.iter().map(|t| (t.name.as_str(), t)).collect();
     let mut children: BTreeMap<Option<&str>, Vec<&TaxonRow>> = BTreeMap::new();
     let mut synonyms: BTreeMap<&str, Vec<&str>> = BTreeMap::new();
-    for t in taxa {
+    for n in tax.nodes() {
+        let Some(t) = by_name.get(n.name.as_str()) else {
+            continue;
+        };
         match &t.accepted {
             Some(a) => synonyms.entry(a.as_str()).or_default().push(&t.name),
-            None => children.entry(t.parent.as_deref()).or_default().push(t),
+            None => {
+                let parent = tax
+                    .effective_parent(n.id)
+                    .and_then(|p| tax.get(p))
+                    .map(|p| p.name.as_str());
+                children.entry(parent).or_default().push(t);
+            }
         }
     }
-    fn walk(
+    for list in children.values_mut() {
+        list.sort_by(|a, b| a.name.cmp(&b.name));
+    }
+    for list in synonyms.values_mut() {
+        list.sort_unstable();
+    }
+    fn walk<'a>(
         out: &mut dyn Write,
         node: Option<&str>,
         depth: usize,
-        children: &BTreeMap<Option<&str>, Vec<&TaxonRow>>,
+        children: &BTreeMap<Option<&str>, Vec<&'a TaxonRow>>,
         synonyms: &BTreeMap<&str, Vec<&str>>,
+        shown: &mut BTreeSet<&'a str>,
     ) -> std::io::Result<()> {
         for t in children.get(&node).map(Vec::as_slice).unwrap_or_default() {
+            if !shown.insert(t.name.as_str()) {
+                continue;
+            }
             let rank = if t.rank.is_empty() {
                 String::new()
             } else {
@@ -95,112 +142,189 @@ fn write_tree(out: &mut dyn Write, taxa: &[TaxonRow]) -> std::io::Result<()> {
                 .map(|s| format!("  [also recorded as: {}]", s.join(", ")))
                 .unwrap_or_default();
             writeln!(out, "{}{}{rank}{syn}", "  ".repeat(depth), t.name)?;
-            walk(out, Some(&t.name), depth + 1, children, synonyms)?;
+            walk(out, Some(&t.name), depth + 1, children, synonyms, shown)?;
         }
         Ok(())
     }
-    walk(out, None, 0, &children, &synonyms)
+    let mut shown = BTreeSet::new();
+    walk(out, None, 0, &children, &synonyms, &mut shown)?;
+    let accepted = taxa.iter().filter(|t| t.accepted.is_none()).count();
+    if shown.len() < accepted {
+        note(&format!(
+            "{} accepted taxa are not shown: their parent chain loops (`tally check` names the loop)",
+            accepted - shown.len()
+        ));
+    }
+    Ok(())
+}
+
+fn write_history(
+    out: &mut dyn Write,
+    changes: &[TaxonChange],
+    format: FormatArg,
+) -> anyhow::Result<()> {
+    let opt = |v: Option<i64>| v.map(|x| x.to_string()).unwrap_or_default();
+    match format {
+        FormatArg::Json => write_json(out, &json!(changes))?,
+        FormatArg::Csv => {
+            let mut w = csv::Writer::from_writer(out);
+            w.write_record([
+                "id",
+                "kind",
+                "from",
+                "to",
+                "changed_at",
+                "reason",
+                "undoes",
+                "undone_by",
+            ])?;
+            for c in changes {
+                w.write_record([
+                    c.id.to_string(),
+                    c.kind.clone(),
+                    c.from.clone(),
+                    c.to.clone(),
+                    c.changed_at.clone(),
+                    c.reason.clone(),
+                    opt(c.undoes),
+                    opt(c.undone_by),
+                ])?;
+            }
+            w.flush()?;
+        }
+        FormatArg::Table => {
+            let by_id: BTreeMap<i64, &TaxonChange> = changes.iter().map(|c| (c.id, c)).collect();
+            let mut tab = new_table(&["id", "change", "when", "reason", "undone by"]);
+            for c in changes {
+                let what = match c.undoes.and_then(|u| by_id.get(&u)) {
+                    Some(u) => format!("{} ({})", c.describe(), u.describe()),
+                    None => c.describe(),
+                };
+                tab.add_row(vec![
+                    c.id.to_string(),
+                    what,
+                    c.changed_at.clone(),
+                    c.reason.clone(),
+                    opt(c.undone_by),
+                ]);
+            }
+            write_table(out, &tab)?;
+        }
+    }
+    Ok(())
+}
+
+fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyhow::Result<()> {
+    match format {
+        FormatArg::Json => write_json(out, &serde_json::to_value(taxa)?)?,
+        FormatArg::Csv => {
+            let mut w = csv::Writer::from_writer(out);
+            w.write_record([
+                "name",
+                "rank",
+                "parent",
+                "accepted",
+                "count_rows",
+                "first_year",
+                "last_year",
+            ])?;
+            for t in taxa {
+                w.write_record([
+                    t.name.clone(),
+                    t.rank.clone(),
+                    t.parent.clone().unwrap_or_default(),
+                    t.accepted.clone().unwrap_or_default(),
+                    t.count_rows.to_string(),
+                    t.first_year.map(|y| y.to_string()).unwrap_or_default(),
+                    t.last_year.map(|y| y.to_string()).unwrap_or_default(),
+                ])?;
+            }
+            w.flush()?;
+        }
+        FormatArg::Table => {
+            let mut tab = new_table(&[
+                "taxon",
+                "rank",
+                "parent",
+                "counted as",
+                "count rows",
+                "recorded",
+            ]);
+            for t in taxa {
+                tab.add_row(vec![
+                    t.name.clone(),
+                    t.rank.clone(),
+                    t.parent.clone().unwrap_or_default(),
+                    t.accepted.clone().unwrap_or_else(|| "itself".into()),
+                    t.count_rows.to_string(),
+                    years(t),
+                ]);
+            }
+            write_table(out, &tab)?;
+        }
+    }
+    Ok(())
 }
 
 /// Run `tally taxa`.
 ///
 /// # Errors
-/// Unknown names, refused renames or merges, SQLite and I/O errors.
+/// Unknown names, refused changes, SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    match args.action {
-        Action::List { format } => {
-            let taxa = store.taxa()?;
-            match format {
-                FormatArg::Json => write_json(out, &serde_json::to_value(&taxa)?)?,
-                FormatArg::Csv => {
-                    let mut w = csv::Writer::from_writer(out);
-                    w.write_record([
-                        "name",
-                        "rank",
-                        "parent",
-                        "accepted",
-                        "count_rows",
-                        "first_year",
-                        "last_year",
-                    ])?;
-                    for t in &taxa {
-                        w.write_record([
-                            t.name.clone(),
-                            t.rank.clone(),
-                            t.parent.clone().unwrap_or_default(),
-                            t.accepted.clone().unwrap_or_default(),
-                            t.count_rows.to_string(),
-                            t.first_year.map(|y| y.to_string()).unwrap_or_default(),
-                            t.last_year.map(|y| y.to_string()).unwrap_or_default(),
-                        ])?;
-                    }
-                    w.flush()?;
-                }
-                FormatArg::Table => {
-                    let mut tab = new_table(&[
-                        "taxon",
-                        "rank",
-                        "parent",
-                        "counted as",
-                        "count rows",
-                        "recorded",
-                    ]);
-                    for t in &taxa {
-                        tab.add_row(vec![
-                            t.name.clone(),
-                            t.rank.clone(),
-                            t.parent.clone().unwrap_or_default(),
-                            t.accepted.clone().unwrap_or_else(|| "itself".into()),
-                            t.count_rows.to_string(),
-                            years(t),
-                        ]);
-                    }
-                    write_table(out, &tab)?;
-                }
-            }
+    let done = match args.action {
+        Action::List { format } => return write_list(out, &store.taxa()?, format),
+        Action::Tree => {
+            write_tree(out, &store.taxa()?, &store.taxonomy()?)?;
+            return Ok(());
         }
-        Action::Tree => write_tree(out, &store.taxa()?)?,
+        Action::History { format } => return write_history(out, &store.taxon_changes()?, format),
         Action::Rename { from, to, reason } => {
-            store.rename_taxon(&from, &to, &reason)?;
-            store.checkpoint()?;
-            note(&format!(
-                "renamed taxon '{from}' to '{to}'; its counts follow"
-            ));
+            let c = store.rename_taxon(&from, &to, &reason)?;
+            let msg = format!("renamed taxon '{from}' to '{}'; its counts follow", c.to);
+            (c, msg)
         }
         Action::Merge { from, into, reason } => {
-            let target = store.merge_taxon(&from, &into, &reason)?;
+            let c = store.merge_taxon(&from, &into, &reason)?;
+            let msg = format!(
+                "'{from}' is now counted as '{}' in every matrix; no count was rewritten",
+                c.to
+            );
+            (c, msg)
+        }
+        Action::Move {
+            taxon,
+            parent,
+            no_parent: _,
+            reason,
+        } => {
+            let c = store.move_taxon(&taxon, parent.as_deref(), &reason)?;
+            let msg = match parent {
+                Some(_) => format!("'{taxon}' now sits under '{}'", c.to),
+                None => format!("'{taxon}' now has no parent"),
+            };
+            (c, msg)
+        }
+        Action::Undo { change, reason } => {
+            let c = store.undo_taxon_change(change, &reason)?;
             store.checkpoint()?;
+            let undone = store
+                .taxon_changes()?
+                .into_iter()
+                .find(|u| u.id == change)
+                .map(|u| u.describe())
+                .unwrap_or_default();
             note(&format!(
-                "'{from}' is now counted as '{target}' in every matrix; no count was rewritten"
+                "change {change} ({undone}) is undone; the undo is recorded as change {}",
+                c.id
             ));
+            return Ok(());
         }
-        Action::History { format } => {
-            let changes = store.taxon_changes()?;
-            match format {
-                FormatArg::Json => write_json(out, &json!(changes))?,
-                FormatArg::Csv => {
-                    let mut w = csv::Writer::from_writer(out);
-                    w.write_record(["kind", "from", "to", "changed_at", "reason"])?;
-                    for c in &changes {
-                        w.write_record([&c.kind, &c.from, &c.to, &c.changed_at, &c.reason])?;
-                    }
-                    w.flush()?;
-                }
-                FormatArg::Table => {
-                    let mut tab = new_table(&["change", "from", "to", "when", "reason"]);
-                    for c in &changes {
-                        tab.add_row(vec![
-                            c.kind.clone(),
-                            c.from.clone(),
-                            c.to.clone(),
-                            c.changed_at.clone(),
-                            c.reason.clone(),
-                        ]);
-                    }
-                    write_table(out, &tab)?;
-                }
-            }
-        }
-    }
+    };
+    store.checkpoint()?;
+    let (c, msg) = done;
+    note(&format!(
+        "{msg}; recorded as change {id} (`tally taxa undo {id} --reason …` reverses it)",
+        id = c.id
+    ));
     Ok(())
 }

@@ -23,7 +23,7 @@ pub enum MatrixError {
         available: Vec<String>,
     },
     /// The synonym or parent chain of a taxon loops.
-    #[error("the {chain} chain of taxon '{name}' loops")]
+    #[error("the {chain} chain of taxon '{name}' loops (`tally check` names the loop)")]
     TaxonCycle {
         /// Taxon name.
         name: String,

@@ -1,4 +1,6 @@
-//! Keeping a store sound: the integrity check and the online backup.
+//! Keeping a store sound: the integrity check (SQLite's structure, CHECK
+//! constraints and foreign keys, and the rules of the taxonomy) and the online
+//! backup.
 
 use std::path::Path;
 
@@ -13,17 +15,26 @@ pub struct CheckReport {
     pub integrity: Vec<String>,
     /// Rows violating a foreign key, as "table rowid N → parent".
     pub foreign_keys: Vec<String>,
+    /// Problems of the taxonomy (loops, synonyms of synonyms, ranks out of
+    /// order), one line each naming the chain (`store::taxa::integrity`).
+    pub taxonomy: Vec<String>,
 }
 
 impl CheckReport {
     /// True when nothing was found.
     pub fn is_ok(&self) -> bool {
-        self.integrity.is_empty() && self.foreign_keys.is_empty()
+        self.integrity.is_empty() && self.foreign_keys.is_empty() && self.taxonomy.is_empty()
+    }
+
+    /// How many problems were found.
+    pub fn problems(&self) -> usize {
+        self.integrity.len() + self.foreign_keys.len() + self.taxonomy.len()
     }
 }
 
 impl Store {
-    /// Run `PRAGMA integrity_check` and `PRAGMA foreign_key_check`.
+    /// Run `PRAGMA integrity_check` and `PRAGMA foreign_key_check`, then the
+    /// taxonomy rules (when the structure is sound enough to read).
     ///
     /// # Errors
     /// SQLite errors.
@@ -46,6 +57,14 @@ impl Store {
             report
                 .foreign_keys
                 .push(format!("{table} {at} → missing {parent}"));
+        }
+        if report.integrity.is_empty() {
+            report.taxonomy = self
+                .taxonomy()?
+                .problems()
+                .iter()
+                .map(ToString::to_string)
+                .collect();
         }
         Ok(report)
     }

@@ -14,6 +14,8 @@ use super::{
 };
 use crate::store::Result;
 use crate::store::sheet::{Issues, Sheet};
+use crate::store::taxa::integrity::{Node, ProblemKind, Taxonomy};
+use crate::store::taxa::load_taxonomy;
 
 /// One parsed row of a sites file.
 #[derive(Debug, Clone, PartialEq)]
@@ -496,6 +498,11 @@ pub(crate) fn import_taxa(
             cur = parent_of(&p);
         }
     }
+    // The rules `tally check` applies (loops through synonyms, rank order),
+    // tried on the stored taxonomy with this file's rows added.
+    if issues.is_empty() {
+        taxonomy_issues(tx, &fresh, &created_names, issues)?;
+    }
     if !issues.is_empty() {
         return Ok(None);
     }
@@ -527,4 +534,57 @@ pub(crate) fn import_taxa(
     report.written = fresh.len() + created_names.len();
     report.unchanged = unchanged;
     Ok(Some(report))
+}
+
+/// The problems the new rows would add to the stored taxonomy, each reported at
+/// the first new row of its chain.
+fn taxonomy_issues(
+    tx: &Transaction<'_>,
+    fresh: &[TaxonRow],
+    created: &[String],
+    issues: &mut Issues,
+) -> Result<()> {
+    let before = load_taxonomy(tx)?;
+    let mut ids: HashMap<&str, i64> = before.nodes().map(|n| (n.name.as_str(), n.id)).collect();
+    let mut lines: HashMap<i64, u64> = HashMap::new();
+    // New taxa get ids below every stored one, for the copy only.
+    let mut next = before.nodes().map(|n| n.id).min().unwrap_or(0).min(0) - 1;
+    for name in created {
+        ids.insert(name, next);
+        next -= 1;
+    }
+    for row in fresh {
+        ids.insert(&row.name, next);
+        lines.insert(next, row.line);
+        next -= 1;
+    }
+    let mut nodes: Vec<Node> = before.nodes().cloned().collect();
+    nodes.extend(created.iter().map(|name| Node {
+        id: ids[name.as_str()],
+        name: name.clone(),
+        rank: String::new(),
+        parent: None,
+        accepted: None,
+    }));
+    nodes.extend(fresh.iter().map(|row| Node {
+        id: ids[row.name.as_str()],
+        name: row.name.clone(),
+        rank: row.rank.clone(),
+        parent: row.parent.as_deref().and_then(|p| ids.get(p).copied()),
+        accepted: row.accepted.as_deref().and_then(|a| ids.get(a).copied()),
+    }));
+    for p in before.new_problems(&Taxonomy::new(nodes)) {
+        let line = p
+            .taxa()
+            .iter()
+            .find_map(|id| lines.get(id))
+            .copied()
+            .unwrap_or(0);
+        let column = match p.kind {
+            ProblemKind::SynonymLoop | ProblemKind::SynonymOfSynonym => "accepted",
+            ProblemKind::ParentLoop | ProblemKind::RankOrder => "parent",
+        };
+        issues.push(line, column, p.to_string());
+    }
+    Ok(())
 }

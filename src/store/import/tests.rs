@@ -185,6 +185,40 @@ fn replace_overwrites_and_undo_puts_the_old_value_back() {
 }
 
 #[test]
+fn taxa_reject_loops_through_synonyms_and_ranks_out_of_order() {
+    let mut s = Store::open_in_memory().unwrap();
+    let o = ImportOptions::default();
+    // Each link alone is allowed; together, roll-up from A never ends.
+    let looped = "name,rank,parent,accepted\nA,genus,B,\nB,species,,A\nC,family,,\nD,genus,C,\n\
+                  E,family,D,\n";
+    let (issues, total) = invalid(import_bytes(
+        &mut s,
+        ImportKind::Taxa,
+        "t.csv",
+        looped.as_bytes(),
+        &o,
+    ));
+    assert_eq!(total, 2, "{issues:?}");
+    assert_eq!(
+        issues[0],
+        (
+            2,
+            "parent".to_string(),
+            "parent loop: A → parent B → accepted A".to_string()
+        )
+    );
+    assert_eq!(
+        issues[1],
+        (
+            6,
+            "parent".to_string(),
+            "ranks out of order: E (family) → parent D (genus)".to_string()
+        )
+    );
+    assert!(s.taxonomy().unwrap().nodes().next().is_none());
+}
+
+#[test]
 fn taxa_reject_parent_loops_and_synonym_chains() {
     let mut s = Store::open_in_memory().unwrap();
     let o = ImportOptions::default();
