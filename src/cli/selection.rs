@@ -53,11 +53,11 @@ pub struct SelectionArgs {
     #[arg(long, value_name = "DATE")]
     pub to: Option<String>,
     /// Season years A..B, inclusive (a single year A also works).
-    #[arg(long, value_name = "A..B", value_parser = parse_year_range)]
+    #[arg(long, value_name = "A..B", value_parser = crate::workflow::design::parse_years)]
     pub years: Option<(i32, i32)>,
     /// Season window: months A..B, inclusive; 11..2 wraps the year end and a
     /// January sample belongs to the season that began in November.
-    #[arg(long, value_name = "A..B", value_parser = parse_month_range)]
+    #[arg(long, value_name = "A..B", value_parser = crate::workflow::design::parse_months)]
     pub months: Option<(u32, u32)>,
     /// Only events of this protocol.
     #[arg(long, value_name = "CODE")]
@@ -87,37 +87,6 @@ fn parse_key_value(s: &str) -> Result<(String, String), String> {
         Some((k, v)) if !k.trim().is_empty() => Ok((k.trim().to_string(), v.trim().to_string())),
         _ => Err(format!("expected KEY=VALUE, got '{s}'")),
     }
-}
-
-fn parse_range<T: std::str::FromStr + Copy>(s: &str) -> Result<(T, T), String> {
-    let num = |t: &str| {
-        t.trim()
-            .parse::<T>()
-            .map_err(|_| format!("expected A..B with whole numbers, got '{s}'"))
-    };
-    match s.split_once("..") {
-        Some((a, b)) => Ok((num(a)?, num(b)?)),
-        None => {
-            let a = num(s)?;
-            Ok((a, a))
-        }
-    }
-}
-
-fn parse_year_range(s: &str) -> Result<(i32, i32), String> {
-    let (a, b) = parse_range::<i32>(s)?;
-    if a > b {
-        return Err(format!("the first year is after the last in '{s}'"));
-    }
-    Ok((a, b))
-}
-
-fn parse_month_range(s: &str) -> Result<(u32, u32), String> {
-    let (a, b) = parse_range::<u32>(s)?;
-    if !(1..=12).contains(&a) || !(1..=12).contains(&b) {
-        return Err(format!("months are 1 to 12, got '{s}'"));
-    }
-    Ok((a, b))
 }
 
 impl SelectionArgs {

@@ -186,22 +186,46 @@ impl From<ShapeDistance> for Distance {
     }
 }
 
+/// Parse `A..B` (or a single `A`, meaning `A..A`) of whole numbers: the one
+/// range syntax of years, months and periods.
+///
+/// # Errors
+/// Text that is not whole numbers.
+pub fn parse_span<T: std::str::FromStr + Copy>(s: &str) -> std::result::Result<(T, T), String> {
+    let num = |t: &str| {
+        t.trim()
+            .parse::<T>()
+            .map_err(|_| format!("expected A..B with whole numbers, got '{s}'"))
+    };
+    match s.split_once("..") {
+        Some((a, b)) => Ok((num(a)?, num(b)?)),
+        None => {
+            let a = num(s)?;
+            Ok((a, a))
+        }
+    }
+}
+
 /// Parse a year range `A..B` (or a single year `A`), inclusive.
 ///
 /// # Errors
 /// Text that is not whole years; a first year after the last.
 pub fn parse_years(s: &str) -> std::result::Result<(i32, i32), String> {
-    let num = |t: &str| {
-        t.trim()
-            .parse::<i32>()
-            .map_err(|_| format!("expected years A..B, got '{s}'"))
-    };
-    let (a, b) = match s.split_once("..") {
-        Some((a, b)) => (num(a)?, num(b)?),
-        None => (num(s)?, num(s)?),
-    };
+    let (a, b) = parse_span::<i32>(s)?;
     if a > b {
         return Err(format!("the first year is after the last in '{s}'"));
+    }
+    Ok((a, b))
+}
+
+/// Parse a season window of months `A..B` (1 to 12; `A > B` wraps the year end).
+///
+/// # Errors
+/// Text that is not whole numbers; a month outside 1 to 12.
+pub fn parse_months(s: &str) -> std::result::Result<(u32, u32), String> {
+    let (a, b) = parse_span::<u32>(s)?;
+    if !(1..=12).contains(&a) || !(1..=12).contains(&b) {
+        return Err(format!("months are 1 to 12, got '{s}'"));
     }
     Ok((a, b))
 }
