@@ -13,3 +13,4 @@ mod store_cli;
 mod taxa;
 mod trend_cli;
 mod util;
+mod verify;
