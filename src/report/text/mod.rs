@@ -6,6 +6,7 @@ use std::io::{self, Write};
 
 pub mod dispersion;
 pub mod permanova;
+pub mod runs;
 pub mod verify;
 
 /// An outcome that can be printed as a table for people and as CSV for scripts.
