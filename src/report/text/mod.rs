@@ -5,6 +5,8 @@
 use std::io::{self, Write};
 
 pub mod dispersion;
+pub mod distances;
+pub mod matrix;
 pub mod permanova;
 pub mod runs;
 pub mod verify;
