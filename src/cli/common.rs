@@ -153,14 +153,6 @@ pub fn store_run_dated(
     if run.no_store {
         return Ok(None);
     }
-    let mut parameters = parameters;
-    // The command line, so `runs verify` can replay runs of any kind — only when
-    // this very command made the run (not the demo or the report on its behalf).
-    let argv: Vec<String> = std::env::args().skip(1).collect();
-    if parameters.is_object() && parameters.get("argv").is_none() && argv.iter().any(|a| a == kind)
-    {
-        parameters["argv"] = serde_json::json!(argv);
-    }
     let id = store
         .save_run(&NewRun {
             kind: kind.to_string(),

@@ -1,17 +1,16 @@
 //! `tally matrix [SELECTION]`: print the assembled count matrix as a table,
 //! CSV (first column `sample`, then with `--meta` the metadata columns, then
 //! one column per taxon) or JSON (`samples`, `taxa`, `values`, `fingerprint`,
-//! `notes`). Formats are described in `docs/matrices.md`.
+//! `notes`), written by [`crate::report::text::matrix`]. Formats are
+//! described in `docs/matrices.md`.
 
-use std::collections::BTreeSet;
 use std::io::Write;
 
-use serde_json::{Value, json};
-
 use super::FormatArg;
-use super::selection::{SelectionArgs, load_matrix};
-use crate::matrix::{CountMatrix, SampleMeta};
-use crate::report::format::{new_table, num, write_json, write_table};
+use super::selection::{SelectionArgs, prepare};
+use crate::report::format::write_json;
+use crate::report::text::Render;
+use crate::report::text::matrix::Counts;
 use crate::store::Store;
 
 /// Arguments of `tally matrix`.
@@ -33,135 +32,15 @@ pub struct Args {
 /// # Errors
 /// Selection and assembly errors; I/O errors.
 pub fn run(args: Args, store: &Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    let sel = args.selection.resolve(store)?;
-    let m = load_matrix(store, &sel)?;
+    let prepared = prepare(store, &args.selection)?;
+    let counts = Counts {
+        prepared: &prepared,
+        meta: args.meta,
+    };
     match args.format {
-        FormatArg::Json => {
-            let v = json!({
-                "unit": sel.unit().as_str(),
-                "selection": sel,
-                "samples": m.samples.iter().map(sample_json).collect::<Vec<_>>(),
-                "taxa": m.taxa.iter().map(|t| t.name.clone()).collect::<Vec<_>>(),
-                "ranks": m.taxa.iter().map(|t| t.rank.clone()).collect::<Vec<_>>(),
-                "values": (0..m.values.nrows())
-                    .map(|i| (0..m.values.ncols()).map(|j| num(m.values[(i, j)])).collect::<Vec<_>>())
-                    .collect::<Vec<_>>(),
-                "fingerprint": m.fingerprint(),
-                "notes": m.notes,
-            });
-            write_json(out, &v)?;
-        }
-        FormatArg::Csv => {
-            let mut w = csv::Writer::from_writer(out);
-            for row in text_rows(&m, args.meta, fmt_num) {
-                w.write_record(&row)?;
-            }
-            w.flush()?;
-        }
-        FormatArg::Table => {
-            let rows = text_rows(&m, args.meta, fmt_short);
-            let header: Vec<&str> = rows[0].iter().map(String::as_str).collect();
-            let mut t = new_table(&header);
-            for r in &rows[1..] {
-                t.add_row(r.clone());
-            }
-            write_table(out, &t)?;
-        }
+        FormatArg::Json => write_json(out, &counts.json())?,
+        FormatArg::Csv => counts.csv(out)?,
+        FormatArg::Table => counts.table(out)?,
     }
     Ok(())
-}
-
-/// One sample's metadata as a JSON object.
-fn sample_json(s: &SampleMeta) -> Value {
-    json!({
-        "label": s.label,
-        "site": s.site,
-        "year": s.year,
-        "last_year": s.last_year,
-        "season": s.season,
-        "first_date": s.first_date,
-        "last_date": s.last_date,
-        "events_pooled": s.events_pooled,
-        "effort": num(s.effort),
-        "effort_unit": s.effort_unit,
-        "protocol": s.protocol,
-        "attributes": s.attributes,
-    })
-}
-
-/// A number as text: shortest round-trip decimal (`3`, `0.25`), empty for NaN.
-fn fmt_num(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v}")
-    } else {
-        String::new()
-    }
-}
-
-/// A number for people: whole numbers as they are, others to 4 decimals.
-fn fmt_short(v: f64) -> String {
-    if !v.is_finite() {
-        String::new()
-    } else if v.fract() == 0.0 {
-        format!("{v}")
-    } else {
-        let s = format!("{v:.4}");
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
-    }
-}
-
-/// Header and rows as text, for CSV (`fmt_num`) and the table (`fmt_short`).
-fn text_rows(m: &CountMatrix, meta: bool, fmt: fn(f64) -> String) -> Vec<Vec<String>> {
-    let attr_keys: Vec<String> = m
-        .samples
-        .iter()
-        .flat_map(|s| s.attributes.keys().cloned())
-        .collect::<BTreeSet<_>>()
-        .into_iter()
-        .collect();
-    let mut header = vec!["sample".to_string()];
-    if meta {
-        for h in [
-            "site",
-            "year",
-            "last_year",
-            "season",
-            "first_date",
-            "last_date",
-            "events_pooled",
-            "effort",
-            "effort_unit",
-            "protocol",
-        ] {
-            header.push(h.to_string());
-        }
-        header.extend(attr_keys.iter().cloned());
-    }
-    header.extend(m.taxa.iter().map(|t| t.name.clone()));
-    let mut rows = vec![header];
-    for (i, s) in m.samples.iter().enumerate() {
-        let mut r = vec![s.label.clone()];
-        if meta {
-            r.extend([
-                s.site.clone(),
-                s.year.to_string(),
-                s.last_year.to_string(),
-                s.season.clone().unwrap_or_default(),
-                s.first_date.clone(),
-                s.last_date.clone(),
-                s.events_pooled.to_string(),
-                fmt(s.effort),
-                s.effort_unit.clone(),
-                s.protocol.clone(),
-            ]);
-            r.extend(
-                attr_keys
-                    .iter()
-                    .map(|k| s.attributes.get(k).cloned().unwrap_or_default()),
-            );
-        }
-        r.extend((0..m.values.ncols()).map(|j| fmt(m.values[(i, j)])));
-        rows.push(r);
-    }
-    rows
 }

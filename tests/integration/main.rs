@@ -14,3 +14,4 @@ mod store_cli;
 mod taxa;
 mod trend_cli;
 mod util;
+mod verify;

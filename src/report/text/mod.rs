@@ -6,10 +6,14 @@ use std::io::{self, Write};
 
 pub mod compare;
 pub mod dispersion;
+pub mod distances;
+pub mod matrix;
 pub mod ordinate;
 pub mod partition;
 pub mod permanova;
+pub mod runs;
 pub mod trend;
+pub mod verify;
 
 /// An outcome that can be printed as a table for people and as CSV for scripts.
 pub trait Render {

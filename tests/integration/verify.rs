@@ -1,0 +1,131 @@
+//! End-to-end tests of `tally runs verify`: every typed run is replayed
+//! in-process from its stored spec; runs stored without one are refused by name.
+
+use serde_json::Value;
+
+use crate::util::TestEnv;
+
+fn json_of(s: &str) -> Value {
+    serde_json::from_str(s).expect("JSON output")
+}
+
+const KICK: [&str; 6] = [
+    "--protocol",
+    "kick",
+    "--per-effort",
+    "--unit",
+    "site-year",
+    "--seed",
+];
+
+#[test]
+fn permanova_and_dispersion_runs_are_replayed_in_process() {
+    let env = TestEnv::with_demo_data();
+    for (kind, extra) in [
+        ("permanova", &["--pairwise", "--strata", "year"][..]),
+        ("dispersion", &[][..]),
+    ] {
+        let mut args = vec![kind, "--by", "reach", "--permutations", "99"];
+        args.extend(KICK);
+        args.push("5");
+        args.extend(extra);
+        env.stdout(&args);
+    }
+    for id in ["1", "2"] {
+        let rep = json_of(&env.stdout(["runs", "verify", id, "--format", "json"]));
+        assert_eq!(rep["identical"], true, "run {id}: {rep}");
+        assert_eq!(rep["fingerprint_matches"], true);
+        assert_eq!(rep["numbers_differing"], 0);
+        assert!(rep["compared"].as_u64().unwrap() > 10, "{rep}");
+    }
+    assert_eq!(rep_kind(&env, "1"), "permanova");
+    assert_eq!(rep_kind(&env, "2"), "dispersion");
+    let table = env.stdout(["runs", "verify", "1"]);
+    assert!(table.starts_with("run 1 (permanova)\n"), "{table}");
+    assert!(table.contains("every stored number was reproduced with the stored seed"));
+    assert!(table.ends_with("\nidentical\n"), "{table}");
+    assert_eq!(
+        env.stdout(["runs", "verify", "2", "--format", "csv"]),
+        "path,stored,recomputed\n"
+    );
+
+    // One more animal in a lower-reach sample: the data changed under both runs.
+    let m = json_of(&env.stdout([
+        "matrix",
+        "--protocol",
+        "kick",
+        "--site-where",
+        "reach=lower",
+        "--format",
+        "json",
+    ]));
+    let event = m["samples"][0]["label"].as_str().unwrap();
+    let taxon = m["taxa"][0].as_str().unwrap();
+    let old = m["values"][0][0].as_f64().unwrap();
+    let file = env.write(
+        "fix.csv",
+        &format!("event,taxon,count\n{event},{taxon},{}\n", old + 5.0),
+    );
+    env.stdout(["import", "counts", file.to_str().unwrap(), "--replace"]);
+    let (code, out, err) = env.run(["runs", "verify", "1"]);
+    assert_eq!(code, 1, "{out}{err}");
+    assert!(out.contains("data: CHANGED"), "{out}");
+    assert!(out.ends_with("\nnot identical\n"), "{out}");
+    assert!(
+        err.contains("run 1 is not reproduced: the data fingerprint changed"),
+        "{err}"
+    );
+    let (code, out, _) = env.run(["runs", "verify", "2", "--format", "csv"]);
+    assert_eq!(code, 1);
+    assert!(
+        out.starts_with("path,stored,recomputed\nfingerprint,"),
+        "{out}"
+    );
+}
+
+fn rep_kind(env: &TestEnv, id: &str) -> String {
+    let rep = json_of(&env.stdout(["runs", "verify", id, "--format", "json"]));
+    rep["kind"].as_str().unwrap().to_string()
+}
+
+#[test]
+fn runs_stored_without_a_typed_spec_are_not_replayable() {
+    // Earlier versions stored the command line under `argv` instead of a spec;
+    // such a run is named and refused, never rerun as a subprocess.
+    use tally::matrix::Unit;
+    use tally::store::Store;
+    use tally::store::query::Selection;
+    use tally::store::runs::NewRun;
+    let env = TestEnv::with_demo_data();
+    let sel = Selection {
+        protocol: Some("kick".into()),
+        unit: Some(Unit::SiteYear),
+        ..Selection::default()
+    };
+    let mut store = Store::open(&env.db).unwrap();
+    let id = store
+        .save_run(&NewRun {
+            kind: "permanova".into(),
+            selection: serde_json::to_value(&sel).unwrap(),
+            parameters: serde_json::json!({
+                "argv": ["permanova", "--by", "reach", "--protocol", "kick", "--seed", "3"]
+            }),
+            seed: Some(3),
+            fingerprint: String::new(),
+            period_start: None,
+            period_end: None,
+            result: serde_json::json!({}),
+            values: vec![],
+        })
+        .unwrap();
+    drop(store);
+    let (code, out, err) = env.run(["runs", "verify", &id.to_string()]);
+    assert_eq!(code, 1, "{out}");
+    assert!(out.is_empty(), "{out}");
+    assert!(
+        err.contains(&format!("run {id} cannot be replayed"))
+            && err.contains("not a permanova specification")
+            && err.contains("earlier version"),
+        "{err}"
+    );
+}
