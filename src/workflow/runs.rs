@@ -14,6 +14,8 @@ use serde_json::{Value, json};
 use crate::store::Store;
 use crate::store::query::Selection;
 use crate::store::runs::NewRun;
+/// The stored runs as the store reads them, for listings and series.
+pub use crate::store::runs::{RunRecord, SeriesPoint};
 
 use super::{Analysis, AnalysisSpec, Outcome, Prepared, Result, Silent, WorkflowError, prepare};
 

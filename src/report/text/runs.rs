@@ -7,7 +7,7 @@ use serde_json::{Value, json};
 
 use super::Render;
 use crate::report::format::{new_table, opt_num, write_table};
-use crate::store::runs::{RunRecord, SeriesPoint};
+use crate::workflow::runs::{RunRecord, SeriesPoint};
 
 /// A stored number for people: six decimals, `n/a` when it was not computed.
 fn fmt_opt(v: Option<f64>) -> String {
