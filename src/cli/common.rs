@@ -9,11 +9,8 @@ use clap::builder::TypedValueParser;
 
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::transform::Transform;
-use crate::matrix::CountMatrix;
 use crate::report::text::Render;
 use crate::store::Store;
-use crate::store::query::Selection;
-use crate::store::runs::NewRun;
 use crate::workflow::design::{DistanceSpec, ShapeDistance};
 use crate::workflow::{Analysis, Prepared, runs};
 
@@ -94,80 +91,6 @@ impl DistanceArgs {
             transform: self.transform,
         }
     }
-}
-
-/// Store a run unless `--no-store`; prints the run id on stderr and returns it.
-///
-/// # Errors
-/// SQLite errors.
-#[allow(clippy::too_many_arguments)]
-pub fn store_run(
-    store: &mut Store,
-    run: &RunArgs,
-    kind: &str,
-    selection: &Selection,
-    matrix: &CountMatrix,
-    parameters: serde_json::Value,
-    seed: Option<u64>,
-    result: &serde_json::Value,
-    values: Vec<(String, Option<f64>)>,
-) -> anyhow::Result<Option<i64>> {
-    let period_start = matrix.samples.iter().map(|s| s.first_date.clone()).min();
-    let period_end = matrix.samples.iter().map(|s| s.last_date.clone()).max();
-    let id = store_run_dated(
-        store,
-        run,
-        kind,
-        selection,
-        matrix,
-        parameters,
-        seed,
-        result,
-        values,
-        (period_start, period_end),
-    )?;
-    if let Some(id) = id {
-        super::note(&format!("stored as run {id}"));
-    }
-    Ok(id)
-}
-
-/// As [`store_run`], with the period the run covers given explicitly (e.g. one
-/// year of a trend) and without the note on stderr (the caller announces).
-///
-/// # Errors
-/// SQLite errors.
-#[allow(clippy::too_many_arguments)]
-pub fn store_run_dated(
-    store: &mut Store,
-    run: &RunArgs,
-    kind: &str,
-    selection: &Selection,
-    matrix: &CountMatrix,
-    parameters: serde_json::Value,
-    seed: Option<u64>,
-    result: &serde_json::Value,
-    values: Vec<(String, Option<f64>)>,
-    (period_start, period_end): (Option<String>, Option<String>),
-) -> anyhow::Result<Option<i64>> {
-    if run.no_store {
-        return Ok(None);
-    }
-    let id = store
-        .save_run(&NewRun {
-            kind: kind.to_string(),
-            selection: serde_json::to_value(selection)?,
-            parameters,
-            seed,
-            fingerprint: matrix.fingerprint(),
-            period_start,
-            period_end,
-            result: result.clone(),
-            values,
-        })
-        .context("storing the run")?;
-    store.checkpoint()?;
-    Ok(Some(id))
 }
 
 /// A progress reporter for long permutation runs: a bar on stderr when stderr
@@ -261,62 +184,5 @@ where
     Ok(())
 }
 
-/// Arguments of a command built from a command line, as the user would type it
-/// after the command name (the demo and the report run commands this way, so
-/// what they do is exactly what the printed command lines do).
-///
-/// # Errors
-/// The words do not parse as arguments of `A`.
-pub fn args_from<A: clap::Args + clap::FromArgMatches>(words: &[&str]) -> anyhow::Result<A> {
-    let cmd = A::augment_args(clap::Command::new("tally"));
-    let m = cmd.try_get_matches_from(std::iter::once("tally").chain(words.iter().copied()))?;
-    Ok(A::from_arg_matches(&m)?)
-}
-
 pub use crate::workflow::design::{Periods, parse_periods};
 
-/// The end of an analysis command: store the run (unless `--no-store`), put its
-/// id in the result, and print the result in the requested format. `csv` and
-/// `text` write the command's own CSV and table layouts.
-///
-/// # Errors
-/// Storage and I/O errors, and those of the writers.
-#[allow(clippy::too_many_arguments)]
-pub fn store_and_print(
-    store: &mut Store,
-    run: &RunArgs,
-    kind: &str,
-    selection: &Selection,
-    matrix: &CountMatrix,
-    parameters: serde_json::Value,
-    seed: u64,
-    mut result: serde_json::Value,
-    values: Vec<(String, Option<f64>)>,
-    out: &mut dyn std::io::Write,
-    csv: impl FnOnce(&mut dyn std::io::Write) -> anyhow::Result<()>,
-    text: impl FnOnce(&mut dyn std::io::Write) -> anyhow::Result<()>,
-) -> anyhow::Result<()> {
-    let run_id = store_run(
-        store,
-        run,
-        kind,
-        selection,
-        matrix,
-        parameters,
-        Some(seed),
-        &result,
-        values,
-    )?;
-    result["run_id"] = serde_json::json!(run_id);
-    match run.format {
-        FormatArg::Json => crate::report::format::write_json(out, &result)?,
-        FormatArg::Csv => csv(out)?,
-        FormatArg::Table => {
-            text(out)?;
-            if let Some(id) = run_id {
-                writeln!(out, "run id: {id}")?;
-            }
-        }
-    }
-    Ok(())
-}

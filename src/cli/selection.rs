@@ -5,8 +5,7 @@
 use anyhow::Context;
 use clap::ValueEnum;
 
-use crate::matrix::assemble::assemble;
-use crate::matrix::{CountMatrix, Unit};
+use crate::matrix::Unit;
 use crate::store::{Selection, Store};
 use crate::workflow::{self, Prepared};
 
@@ -136,19 +135,6 @@ pub fn prepare(store: &Store, args: &SelectionArgs) -> anyhow::Result<Prepared> 
         super::note(n);
     }
     Ok(prepared)
-}
-
-/// Assemble the count matrix of a resolved selection, printing its notes on stderr.
-///
-/// # Errors
-/// An empty selection (naming the filter), unknown codes, assembly errors.
-pub fn load_matrix(store: &Store, selection: &Selection) -> anyhow::Result<CountMatrix> {
-    let records = store.select_records(selection)?;
-    let matrix = assemble(&records, &selection.assembly_options())?;
-    for n in &matrix.notes {
-        super::note(n);
-    }
-    Ok(matrix)
 }
 
 /// A selection written back as command-line flags (for listings): [`Selection::to_flags`].
