@@ -185,4 +185,3 @@ where
 }
 
 pub use crate::workflow::design::{Periods, parse_periods};
-
