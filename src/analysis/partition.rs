@@ -107,10 +107,11 @@ pub struct Partition {
     pub exhaustive: bool,
 }
 
-/// Ezekiel's adjusted R² for `m` predictor degrees of freedom and `n` samples.
+/// Ezekiel's adjusted R² for `m` predictor degrees of freedom and `n` samples
+/// ([`super::linear_model::adjusted_r2`]), `None` when no residual degree of
+/// freedom is left.
 pub fn adjusted_r2(r2: f64, n: usize, m: usize) -> Option<f64> {
-    let resid = n as f64 - m as f64 - 1.0;
-    (resid > 0.0).then(|| 1.0 - (1.0 - r2) * (n as f64 - 1.0) / resid)
+    (n > m + 1).then(|| super::linear_model::adjusted_r2(r2, n, m))
 }
 
 /// The shape design: row profiles (all p columns; the rank-revealing basis
