@@ -17,7 +17,12 @@ use crate::workflow::runs;
 
 /// Arguments of `tally demo`.
 #[derive(Debug, clap::Args)]
-pub struct Args {}
+pub struct Args {
+    /// Replace the store at --db even when it holds more than the demo's own
+    /// data (another program's data, taxonomy changes, saved selections).
+    #[arg(long)]
+    pub force: bool,
+}
 
 /// Where the demo store goes: `--db` when given on the command line (never
 /// `$TALLY_DB`, so a real store named there cannot be replaced by accident),
@@ -27,17 +32,83 @@ pub fn demo_path(flag: Option<&Path>) -> PathBuf {
         .unwrap_or_else(|| PathBuf::from("tally-demo.db"))
 }
 
-/// Create a fresh store at `path`, replacing an existing file only when it is a tally store.
+/// What an existing tally store at the demo path holds beyond an untouched demo
+/// store, in words (`None` when it holds nothing else: no import batch other
+/// than the demo's own files, byte for byte, no taxonomy change, no saved
+/// selection). Stored runs are not counted: the demo makes them again.
+fn beyond_the_demo(store: &Store) -> anyhow::Result<Option<String>> {
+    use sha2::{Digest, Sha256};
+    let demo: Vec<(String, String)> = DemoFiles::embedded()
+        .files()
+        .into_iter()
+        .map(|(name, text)| {
+            let hash: String = Sha256::digest(text.as_bytes())
+                .iter()
+                .map(|b| format!("{b:02x}"))
+                .collect();
+            (name.to_string(), hash)
+        })
+        .collect();
+    let batches = store.batches()?;
+    let mut what = Vec::new();
+    let foreign: Vec<String> = batches
+        .iter()
+        .filter(|b| {
+            !demo
+                .iter()
+                .any(|(n, h)| *n == b.file && *h == b.content_sha256)
+        })
+        .map(|b| format!("batch {} ({})", b.id, b.file))
+        .collect();
+    if !foreign.is_empty() {
+        what.push(format!(
+            "import batches that are not the demo's: {}",
+            foreign.join(", ")
+        ));
+    }
+    let changes = store.taxon_changes()?.len();
+    if changes > 0 {
+        what.push(format!("{changes} taxonomy change(s)"));
+    }
+    let selections = store.list_selections()?.len();
+    if selections > 0 {
+        what.push(format!("{selections} saved selection(s)"));
+    }
+    Ok((!what.is_empty()).then(|| what.join("; ")))
+}
+
+/// Create a fresh store at `path`. An existing file is replaced only when it is
+/// a tally store holding nothing but the demo's own data (or `force`); the
+/// stored runs it loses are reported on stderr.
 ///
 /// # Errors
-/// The path holds something that is not a tally store; SQLite errors.
-pub fn fresh_store(path: &Path) -> anyhow::Result<Store> {
+/// The path holds something that is not a tally store, or a store with more
+/// than the demo's data without `force`; SQLite errors.
+pub fn fresh_store(path: &Path, force: bool) -> anyhow::Result<Store> {
     if path.exists() {
-        if let Err(e) = Store::open(path) {
-            bail!(
+        let old = match Store::open(path) {
+            Ok(s) => s,
+            Err(e) => bail!(
                 "{} exists and is not a tally store; not replacing it ({e})",
                 path.display()
-            );
+            ),
+        };
+        if let Some(what) = beyond_the_demo(&old)? {
+            if !force {
+                bail!(
+                    "{} holds a store with more than the demo's data ({what}); not replacing it. \
+                     Give the demo another --db path, or --force to replace this store",
+                    path.display()
+                );
+            }
+        }
+        let runs = old.runs(None)?.len();
+        drop(old);
+        if runs > 0 {
+            super::note(&format!(
+                "replacing the demo store {}: its {runs} stored run(s) are removed and made again",
+                path.display()
+            ));
         }
         for suffix in ["", "-wal", "-shm"] {
             let mut p = path.as_os_str().to_owned();
@@ -89,9 +160,9 @@ pub fn report_path(store: &Path) -> PathBuf {
 ///
 /// # Errors
 /// As [`fresh_store`], [`load_demo`] and [`scenario::run`]; SQLite and I/O errors.
-pub fn run(_args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::Result<()> {
+pub fn run(args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::Result<()> {
     let path = demo_path(db_flag);
-    let mut store = fresh_store(&path)?;
+    let mut store = fresh_store(&path, args.force)?;
     load_demo(&mut store)?;
     store.checkpoint()?;
     writeln!(
