@@ -4,14 +4,18 @@
 //! Six kinds of file are read ([`ImportKind`]); their columns are listed in
 //! `docs/data-model.md`. Each import runs in three steps:
 //!
-//! 1. **parse** (pure, no store): the text is read through `Sheet` (`store::sheet`) and each
-//!    field is checked for its own form (dates, numbers, ranges), every problem
-//!    becoming a [`RowIssue`](super::RowIssue) with line, column and what was
-//!    expected;
+//! 1. **parse** (pure, no store): every kind reads its file through one
+//!    prologue, `parse_rows` (the text through `Sheet` (`store::sheet`), the
+//!    header mapped to the kind's columns), and each field is checked for its
+//!    own form (dates, numbers, ranges), every problem becoming a
+//!    [`RowIssue`](super::RowIssue) with line, column and what was expected;
+//!    keys listed twice are found with `Unique`;
 //! 2. **resolve** (reads the store inside the write transaction): names are
 //!    looked up, duplicates found, missing sites and taxa created on request;
 //! 3. **write**, only when no problem was found: an `import_batch` row, then
-//!    every row, with prepared statements reused per row.
+//!    every row, with prepared statements reused per row. The two kinds holding
+//!    counts (counts, records) share their checks and writes of counts
+//!    (`sampling::finish_counts`).
 //!
 //! Any problem rolls the transaction back, so a failed import writes nothing.
 //! This module owns the rules; the SQL for each kind is in its submodule.
@@ -293,11 +297,19 @@ pub(crate) struct Columns {
     pub extra: Vec<(usize, String)>,
 }
 
+/// A known column of a kind: its name (as problems name it) and its position
+/// in the header (`None` for an optional column the file lacks).
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Col {
+    name: &'static str,
+    idx: Option<usize>,
+}
+
 impl Columns {
     /// Map the header of `sheet` for `kind`; missing required columns (and, unless
     /// `allow_extra`, unknown ones) become issues on line 1. `None` when a required
     /// column is missing.
-    pub fn map(
+    fn map(
         sheet: &Sheet<'_>,
         kind: ImportKind,
         allow_extra: bool,
@@ -352,19 +364,136 @@ impl Columns {
         complete.then_some(Columns { index, extra })
     }
 
-    /// The position of column `name`, if the header has it.
-    pub fn idx(&self, name: &str) -> Option<usize> {
-        self.index.iter().find(|(n, _)| *n == name).map(|(_, i)| *i)
+    /// The column `name` of the file's kind (a name the format lists).
+    pub fn col(&self, name: &'static str) -> Col {
+        Col {
+            name,
+            idx: self.index.iter().find(|(n, _)| *n == name).map(|(_, i)| *i),
+        }
+    }
+}
+
+/// One data row being read: its line and fields, and the file's problems, so
+/// that a problem of a field is recorded with its line and column in one call.
+pub(crate) struct Row<'r> {
+    /// The line of the row in the file.
+    pub line: u64,
+    rec: &'r csv::StringRecord,
+    issues: &'r mut Issues,
+}
+
+impl<'r> Row<'r> {
+    /// The field of column `c`, spaces trimmed ("" when the file lacks the column).
+    pub fn get(&self, c: Col) -> &'r str {
+        self.at(c.idx)
     }
 
-    /// The field at `idx` in `rec`, spaces trimmed ("" when absent).
-    pub fn at(rec: &csv::StringRecord, idx: Option<usize>) -> &str {
-        idx.and_then(|i| rec.get(i)).map_or("", str::trim)
+    /// The field at header position `idx`, spaces trimmed ("" when absent).
+    pub fn at(&self, idx: Option<usize>) -> &'r str {
+        idx.and_then(|i| self.rec.get(i)).map_or("", str::trim)
     }
 
-    /// The field of column `name` in `rec`, spaces trimmed ("" when the column is absent).
-    pub fn get<'r>(&self, rec: &'r csv::StringRecord, name: &str) -> &'r str {
-        Columns::at(rec, self.idx(name))
+    /// Record a problem of this row in `column`.
+    pub fn issue(&mut self, column: &str, message: impl Into<String>) {
+        self.issues.push(self.line, column, message);
+    }
+
+    /// The field of `c` read by `parse`; `None` when it fails, its message
+    /// recorded as a problem of `c`.
+    pub fn parse<T>(
+        &mut self,
+        c: Col,
+        parse: impl FnOnce(&str) -> std::result::Result<T, String>,
+    ) -> Option<T> {
+        match parse(self.get(c)) {
+            Ok(v) => Some(v),
+            Err(m) => {
+                self.issue(c.name, m);
+                None
+            }
+        }
+    }
+
+    /// The field of `c`; `None` when it is empty, with the problem `message`.
+    pub fn required(&mut self, c: Col, message: &'static str) -> Option<&'r str> {
+        let v = self.get(c);
+        if v.is_empty() {
+            self.issue(c.name, message);
+            None
+        } else {
+            Some(v)
+        }
+    }
+}
+
+/// The prologue every kind shares: open `bytes` as a file of `kind`, map its
+/// header (sites keep unknown columns as attributes; other kinds refuse them),
+/// let `columns` pick the columns it reads, and feed every readable data row to
+/// `row` with them. Problems of the text, the header and the rows go to
+/// `issues` with their line and column. Returns the number of data rows seen
+/// (0 when the header cannot be used).
+pub(crate) fn parse_rows<C>(
+    bytes: &[u8],
+    delimiter: Option<u8>,
+    kind: ImportKind,
+    issues: &mut Issues,
+    columns: impl FnOnce(&Columns) -> C,
+    mut row: impl FnMut(&C, &mut Row<'_>),
+) -> usize {
+    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+        return 0;
+    };
+    let Some(cols) = Columns::map(&sheet, kind, kind == ImportKind::Sites, issues) else {
+        return 0;
+    };
+    let cols = columns(&cols);
+    sheet.rows(issues, |line, rec, issues| {
+        row(&cols, &mut Row { line, rec, issues });
+    })
+}
+
+/// Keys named in one file with the first line naming each, to refuse a key
+/// listed twice.
+#[derive(Debug)]
+pub(crate) struct Unique<K>(HashMap<K, u64>);
+
+impl<K> Default for Unique<K> {
+    fn default() -> Self {
+        Unique(HashMap::new())
+    }
+}
+
+impl<K: std::hash::Hash + Eq> Unique<K> {
+    /// `None` the first time `key` is named (on `line`, which is kept); the
+    /// first line naming it after that.
+    pub fn first(&mut self, key: K, line: u64) -> Option<u64> {
+        match self.0.entry(key) {
+            std::collections::hash_map::Entry::Occupied(e) => Some(*e.get()),
+            std::collections::hash_map::Entry::Vacant(e) => {
+                e.insert(line);
+                None
+            }
+        }
+    }
+}
+
+impl Unique<String> {
+    /// True the first time `key` is named; after that false, with the problem
+    /// "WHAT 'KEY' is listed twice (first on line N)" in `column`.
+    pub fn once(&mut self, row: &mut Row<'_>, column: &str, what: &str, key: &str) -> bool {
+        match self.0.get(key) {
+            Some(first) => {
+                row.issue(
+                    column,
+                    format!("{what} '{key}' is listed twice (first on line {first})"),
+                );
+                false
+            }
+            None => {
+                self.0.insert(key.to_string(), row.line);
+                true
+            }
+        }
     }
 }
 

@@ -11,24 +11,14 @@ use std::collections::{HashMap, HashSet};
 use rusqlite::{OptionalExtension, Transaction, params};
 
 use super::sampling::{
-    NewCount, check_counts, resolve_protocols, resolve_sites, resolve_taxa, write_counts,
-    write_created,
+    CountRow, Counted, finish_counts, resolve_protocols, resolve_sites, resolve_taxa,
 };
 use super::{
-    BatchMeta, Columns, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Table,
-    parse_count, parse_date, parse_effort, parse_replicate, parse_time,
+    BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Table, Unique,
+    parse_count, parse_date, parse_effort, parse_replicate, parse_rows, parse_time,
 };
 use crate::store::Result;
-use crate::store::sheet::{Issues, Sheet};
-
-/// One parsed row of a records file.
-#[derive(Debug, Clone, Copy)]
-struct RecordRow {
-    line: u64,
-    event: u32,
-    taxon: Option<u32>,
-    value: f64,
-}
+use crate::store::sheet::Issues;
 
 /// An event formed from records rows.
 #[derive(Debug, Clone)]
@@ -53,7 +43,8 @@ struct Records {
     protocols: Interner,
     taxa: Interner,
     events: Vec<RecordEvent>,
-    rows: Vec<RecordRow>,
+    /// The counts, by interned event and taxon.
+    rows: Vec<CountRow>,
     /// Data rows in the file.
     seen: usize,
 }
@@ -61,124 +52,148 @@ struct Records {
 /// Parse a records file (pure): fields checked, rows grouped into events.
 fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Records {
     let mut r = Records::default();
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
-        return r;
-    };
-    let Some(cols) = Columns::map(&sheet, ImportKind::Records, false, issues) else {
-        return r;
-    };
     let mut keys: HashMap<(u32, IsoDate, u32, i64), u32> = HashMap::new();
     let mut last_key: Option<((u32, IsoDate, u32, i64), u32)> = None;
-    let [
-        c_site,
-        c_date,
-        c_protocol,
-        c_effort,
-        c_taxon,
-        c_count,
-        c_replicate,
-        c_time,
-    ] = [
-        "site",
-        "date",
-        "protocol",
-        "effort",
-        "taxon",
-        "count",
-        "replicate",
-        "time",
-    ]
-    .map(|c| cols.idx(c));
-    r.seen = sheet.rows(issues, |line, rec, issues| {
-        let field = |i| Columns::at(rec, i);
-        let site = field(c_site);
-        let protocol = field(c_protocol);
-        let taxon = field(c_taxon);
-        let count = field(c_count);
-        let mut ok = true;
-        if site.is_empty() {
-            issues.push(line, "site", "empty; expected a site code");
-            ok = false;
-        }
-        if protocol.is_empty() {
-            issues.push(line, "protocol", "empty; expected a protocol code");
-            ok = false;
-        }
-        let date = parse_date(field(c_date)).map_err(|m| issues.push(line, "date", m));
-        let effort = parse_effort(field(c_effort)).map_err(|m| issues.push(line, "effort", m));
-        let replicate = parse_replicate(field(c_replicate)).map_err(|m| issues.push(line, "replicate", m));
-        let time = parse_time(field(c_time)).map_err(|m| issues.push(line, "time", m));
-        let value = match (taxon.is_empty(), count.is_empty()) {
-            (true, true) => Ok(None),
-            (true, false) => {
-                issues.push(line, "taxon", "empty but a count is given; name the taxon, or leave both empty when nothing was found");
-                Err(())
-            }
-            (false, true) => {
-                issues.push(line, "count", format!("empty; expected a count ≥ 0 for taxon '{taxon}' (write 0 if none)"));
-                Err(())
-            }
-            (false, false) => parse_count(count).map(Some).map_err(|m| issues.push(line, "count", m)),
-        };
-        let (Ok(date), Ok(effort), Ok(replicate), Ok(time), Ok(value), true) =
-            (date, effort, replicate, time, value, ok)
-        else {
-            return;
-        };
-        let s = r.sites.intern(site, line);
-        let p = r.protocols.intern(protocol, line);
-        let next = r.events.len() as u32;
-        let key = (s, date, p, replicate);
-        let e = match last_key {
-            Some((k, e)) if k == key => e,
-            _ => *keys.entry(key).or_insert(next),
-        };
-        last_key = Some((key, e));
-        if e == next {
-            r.events.push(RecordEvent {
-                site: s,
-                date,
-                protocol: p,
-                replicate,
-                effort,
-                time: time.clone(),
-                first_line: line,
-                empty_line: None,
-                taxon_line: None,
-            });
-        }
-        let ev = &mut r.events[e as usize];
-        if ev.effort != effort {
-            issues.push(
-                line,
+    r.seen = parse_rows(
+        bytes,
+        delimiter,
+        ImportKind::Records,
+        issues,
+        |c| {
+            [
+                "site",
+                "date",
+                "protocol",
                 "effort",
-                format!(
-                    "{effort} differs from {} on line {} for the same event (site, date, protocol, replicate); \
-                     one event has one effort",
-                    ev.effort, ev.first_line
-                ),
-            );
-            return;
-        }
-        match (&ev.time, &time) {
-            (Some(a), Some(b)) if a != b => {
-                issues.push(line, "time", format!("'{b}' differs from '{a}' on line {} for the same event", ev.first_line));
+                "taxon",
+                "count",
+                "replicate",
+                "time",
+            ]
+            .map(|n| c.col(n))
+        },
+        |&[
+            c_site,
+            c_date,
+            c_protocol,
+            c_effort,
+            c_taxon,
+            c_count,
+            c_replicate,
+            c_time,
+        ],
+         row| {
+            let line = row.line;
+            let site = row.required(c_site, "empty; expected a site code");
+            let protocol = row.required(c_protocol, "empty; expected a protocol code");
+            let date = row.parse(c_date, parse_date);
+            let effort = row.parse(c_effort, parse_effort);
+            let replicate = row.parse(c_replicate, parse_replicate);
+            let time = row.parse(c_time, parse_time);
+            let (taxon, count) = (row.get(c_taxon), row.get(c_count));
+            let value = match (taxon.is_empty(), count.is_empty()) {
+                (true, true) => Some(None),
+                (true, false) => {
+                    row.issue(
+                        "taxon",
+                        "empty but a count is given; name the taxon, or leave both empty when nothing was found",
+                    );
+                    None
+                }
+                (false, true) => {
+                    row.issue(
+                        "count",
+                        format!(
+                            "empty; expected a count ≥ 0 for taxon '{taxon}' (write 0 if none)"
+                        ),
+                    );
+                    None
+                }
+                (false, false) => match parse_count(count) {
+                    Ok(v) => Some(Some(v)),
+                    Err(m) => {
+                        row.issue("count", m);
+                        None
+                    }
+                },
+            };
+            let (
+                Some(site),
+                Some(protocol),
+                Some(date),
+                Some(effort),
+                Some(replicate),
+                Some(time),
+                Some(value),
+            ) = (site, protocol, date, effort, replicate, time, value)
+            else {
+                return;
+            };
+            let s = r.sites.intern(site, line);
+            let p = r.protocols.intern(protocol, line);
+            let next = r.events.len() as u32;
+            let key = (s, date, p, replicate);
+            let e = match last_key {
+                Some((k, e)) if k == key => e,
+                _ => *keys.entry(key).or_insert(next),
+            };
+            last_key = Some((key, e));
+            if e == next {
+                r.events.push(RecordEvent {
+                    site: s,
+                    date,
+                    protocol: p,
+                    replicate,
+                    effort,
+                    time: time.clone(),
+                    first_line: line,
+                    empty_line: None,
+                    taxon_line: None,
+                });
+            }
+            let ev = &mut r.events[e as usize];
+            if ev.effort != effort {
+                row.issue(
+                    "effort",
+                    format!(
+                        "{effort} differs from {} on line {} for the same event (site, date, protocol, replicate); \
+                         one event has one effort",
+                        ev.effort, ev.first_line
+                    ),
+                );
                 return;
             }
-            (None, Some(_)) => ev.time = time,
-            _ => {}
-        }
-        match value {
-            None => {
-                ev.empty_line.get_or_insert(line);
+            match (&ev.time, &time) {
+                (Some(a), Some(b)) if a != b => {
+                    row.issue(
+                        "time",
+                        format!(
+                            "'{b}' differs from '{a}' on line {} for the same event",
+                            ev.first_line
+                        ),
+                    );
+                    return;
+                }
+                (None, Some(_)) => ev.time = time,
+                _ => {}
             }
-            Some(v) => {
-                ev.taxon_line.get_or_insert(line);
-                let t = r.taxa.intern(taxon, line);
-                r.rows.push(RecordRow { line, event: e, taxon: Some(t), value: v });
+            match value {
+                None => {
+                    ev.empty_line.get_or_insert(line);
+                }
+                Some(value) => {
+                    ev.taxon_line.get_or_insert(line);
+                    let taxon = r.taxa.intern(taxon, line);
+                    r.rows.push(CountRow {
+                        line,
+                        event: e,
+                        taxon,
+                        value,
+                    });
+                }
             }
-        }
-    });
+        },
+    );
     for ev in &r.events {
         if let (Some(empty), Some(listed)) = (ev.empty_line, ev.taxon_line) {
             issues.push(
@@ -230,7 +245,7 @@ pub(crate) fn import_records(
              WHERE site_id = ?1 AND date = ?2 AND protocol_id = ?3 AND replicate = ?4",
         )?;
         let mut by_code = tx.prepare("SELECT 1 FROM event WHERE code = ?1")?;
-        let mut codes: HashMap<String, u64> = HashMap::new();
+        let mut codes = Unique::default();
         for (k, ev) in rec.events.iter().enumerate() {
             let (Some(site), Some(protocol)) =
                 (site_of[ev.site as usize], protocol_of[ev.protocol as usize])
@@ -271,7 +286,7 @@ pub(crate) fn import_records(
                 ev.replicate,
             );
             let taken = by_code.query_row([&code], |_| Ok(())).optional()?.is_some();
-            if taken || codes.contains_key(&code) {
+            if taken || codes.first(code.clone(), ev.first_line).is_some() {
                 issues.push(
                     ev.first_line,
                     "site",
@@ -280,43 +295,23 @@ pub(crate) fn import_records(
                 event_of.push(None);
                 continue;
             }
-            codes.insert(code.clone(), ev.first_line);
             new_events.push((next_event, code, k));
             event_of.push(Some(next_event));
             next_event += 1;
         }
     }
-    let mut counts: Vec<NewCount> = rec
-        .rows
-        .iter()
-        .filter_map(|r| {
-            Some(NewCount {
-                event: event_of[r.event as usize]?,
-                taxon: taxon_of[r.taxon? as usize]?,
-                value: r.value,
-                line: r.line,
-            })
-        })
-        .collect();
-    let names: HashMap<i64, &str> = taxon_of
-        .iter()
-        .zip(&rec.taxa.names)
-        .filter_map(|(id, n)| Some(((*id)?, n.as_str())))
-        .collect();
-    let name = |id: i64| {
-        names
-            .get(&id)
-            .map_or_else(|| id.to_string(), |n| n.to_string())
+    let counted = Counted {
+        total,
+        rows: &rec.rows,
+        event_of: &event_of,
+        taxon_of: &taxon_of,
+        taxa: &rec.taxa,
+        stored_events: &stored_events,
+        created,
+        sites: &sites,
+        taxon_ids: &taxa,
     };
-    let replaced = check_counts(tx, &mut counts, &stored_events, &name, opts, issues)?;
-    if !issues.is_empty() {
-        return Ok(None);
-    }
-
-    let mut report = meta.insert(tx, total, created, replaced)?;
-    let batch = report.batch_id;
-    write_created(tx, &sites, &taxa, batch)?;
-    {
+    finish_counts(tx, meta, opts, issues, counted, |batch| {
         let mut ins = tx.prepare(
             "INSERT INTO event(id, code, site_id, date, time, protocol_id, effort, replicate, import_batch_id) \
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
@@ -339,9 +334,6 @@ pub(crate) fn import_records(
                 batch
             ])?;
         }
-    }
-    write_counts(tx, &counts, batch, opts.replace)?;
-    report.written = new_events.len();
-    report.counts = counts.len();
-    Ok(Some(report))
+        Ok(new_events.len())
+    })
 }

@@ -10,10 +10,11 @@ use std::collections::{HashMap, HashSet};
 use rusqlite::{Transaction, params};
 
 use super::{
-    BatchMeta, Columns, Ids, ImportKind, ImportOptions, ImportReport, Table, parse_coordinate,
+    BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Table, Unique, parse_coordinate,
+    parse_rows,
 };
 use crate::store::Result;
-use crate::store::sheet::{Issues, Sheet};
+use crate::store::sheet::Issues;
 use crate::store::taxa::integrity::{Node, ProblemKind, Taxonomy};
 use crate::store::taxa::load_taxonomy;
 
@@ -36,55 +37,50 @@ pub(crate) fn parse_sites(
     issues: &mut Issues,
 ) -> Vec<SiteRow> {
     let mut out = Vec::new();
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
-        return out;
-    };
-    let Some(cols) = Columns::map(&sheet, ImportKind::Sites, true, issues) else {
-        return out;
-    };
-    let mut seen: HashMap<String, u64> = HashMap::new();
-    sheet.rows(issues, |line, rec, issues| {
-        let code = cols.get(rec, "code");
-        let mut ok = true;
-        if code.is_empty() {
-            issues.push(line, "code", "empty; every site needs a code");
-            ok = false;
-        } else if let Some(first) = seen.get(code) {
-            issues.push(
-                line,
-                "code",
-                format!("site '{code}' is listed twice (first on line {first})"),
-            );
-            ok = false;
-        } else {
-            seen.insert(code.to_string(), line);
-        }
-        let latitude = parse_coordinate(cols.get(rec, "latitude"), "latitude", 90.0)
-            .map_err(|m| issues.push(line, "latitude", m));
-        let longitude = parse_coordinate(cols.get(rec, "longitude"), "longitude", 180.0)
-            .map_err(|m| issues.push(line, "longitude", m));
-        let (Ok(latitude), Ok(longitude), true) = (latitude, longitude, ok) else {
-            return;
-        };
-        let mut attributes: Vec<(String, String)> = cols
-            .extra
-            .iter()
-            .filter_map(|(i, key)| {
-                Some(Columns::at(rec, Some(*i)))
-                    .filter(|v| !v.is_empty())
-                    .map(|v| (key.clone(), v.to_string()))
-            })
-            .collect();
-        attributes.sort();
-        out.push(SiteRow {
-            line,
-            code: code.to_string(),
-            name: cols.get(rec, "name").to_string(),
-            latitude,
-            longitude,
-            attributes,
-        });
-    });
+    let mut seen = Unique::default();
+    parse_rows(
+        bytes,
+        delimiter,
+        ImportKind::Sites,
+        issues,
+        |c| {
+            let [code, name, latitude, longitude] =
+                ["code", "name", "latitude", "longitude"].map(|n| c.col(n));
+            (code, name, latitude, longitude, c.extra.clone())
+        },
+        |(c_code, c_name, c_lat, c_lon, extra), row| {
+            let code = row.get(*c_code);
+            let mut ok = true;
+            if code.is_empty() {
+                row.issue("code", "empty; every site needs a code");
+                ok = false;
+            } else if !seen.once(row, "code", "site", code) {
+                ok = false;
+            }
+            let latitude = row.parse(*c_lat, |s| parse_coordinate(s, "latitude", 90.0));
+            let longitude = row.parse(*c_lon, |s| parse_coordinate(s, "longitude", 180.0));
+            let (Some(latitude), Some(longitude), true) = (latitude, longitude, ok) else {
+                return;
+            };
+            let mut attributes: Vec<(String, String)> = extra
+                .iter()
+                .filter_map(|(i, key)| {
+                    Some(row.at(Some(*i)))
+                        .filter(|v| !v.is_empty())
+                        .map(|v| (key.clone(), v.to_string()))
+                })
+                .collect();
+            attributes.sort();
+            out.push(SiteRow {
+                line: row.line,
+                code: code.to_string(),
+                name: row.get(*c_name).to_string(),
+                latitude,
+                longitude,
+                attributes,
+            });
+        },
+    );
     out
 }
 
@@ -198,47 +194,36 @@ pub(crate) fn parse_protocols(
     issues: &mut Issues,
 ) -> Vec<ProtocolRow> {
     let mut out = Vec::new();
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
-        return out;
-    };
-    let Some(cols) = Columns::map(&sheet, ImportKind::Protocols, false, issues) else {
-        return out;
-    };
-    let mut seen: HashMap<String, u64> = HashMap::new();
-    sheet.rows(issues, |line, rec, issues| {
-        let code = cols.get(rec, "code");
-        let unit = cols.get(rec, "effort_unit");
-        let mut ok = true;
-        if code.is_empty() {
-            issues.push(line, "code", "empty; every protocol needs a code");
-            ok = false;
-        } else if let Some(first) = seen.get(code) {
-            issues.push(
-                line,
-                "code",
-                format!("protocol '{code}' is listed twice (first on line {first})"),
-            );
-            ok = false;
-        } else {
-            seen.insert(code.to_string(), line);
-        }
-        if unit.is_empty() {
-            issues.push(
-                line,
-                "effort_unit",
+    let mut seen = Unique::default();
+    parse_rows(
+        bytes,
+        delimiter,
+        ImportKind::Protocols,
+        issues,
+        |c| ["code", "description", "effort_unit"].map(|n| c.col(n)),
+        |&[c_code, c_description, c_unit], row| {
+            let code = row.get(c_code);
+            let mut ok = true;
+            if code.is_empty() {
+                row.issue("code", "empty; every protocol needs a code");
+                ok = false;
+            } else if !seen.once(row, "code", "protocol", code) {
+                ok = false;
+            }
+            let unit = row.required(
+                c_unit,
                 "empty; every protocol needs an effort unit (minutes, m2, traps...)",
             );
-            ok = false;
-        }
-        if ok {
-            out.push(ProtocolRow {
-                line,
-                code: code.to_string(),
-                description: cols.get(rec, "description").to_string(),
-                effort_unit: unit.to_string(),
-            });
-        }
-    });
+            if let (Some(unit), true) = (unit, ok) {
+                out.push(ProtocolRow {
+                    line: row.line,
+                    code: code.to_string(),
+                    description: row.get(c_description).to_string(),
+                    effort_unit: unit.to_string(),
+                });
+            }
+        },
+    );
     out
 }
 
@@ -323,50 +308,42 @@ pub(crate) fn parse_taxa(
     issues: &mut Issues,
 ) -> Vec<TaxonRow> {
     let mut out = Vec::new();
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
-        return out;
-    };
-    let Some(cols) = Columns::map(&sheet, ImportKind::Taxa, false, issues) else {
-        return out;
-    };
-    let mut seen: HashMap<String, u64> = HashMap::new();
-    sheet.rows(issues, |line, rec, issues| {
-        let name = cols.get(rec, "name");
-        if name.is_empty() {
-            issues.push(line, "name", "empty; every taxon needs a name");
-            return;
-        }
-        if let Some(first) = seen.get(name) {
-            issues.push(
-                line,
-                "name",
-                format!("taxon '{name}' is listed twice (first on line {first})"),
-            );
-            return;
-        }
-        seen.insert(name.to_string(), line);
-        let opt = |c: &str| Some(cols.get(rec, c).to_string()).filter(|s| !s.is_empty());
-        let (parent, accepted) = (opt("parent"), opt("accepted"));
-        if parent.as_deref() == Some(name) {
-            issues.push(line, "parent", format!("'{name}' cannot be its own parent"));
-            return;
-        }
-        if accepted.as_deref() == Some(name) {
-            issues.push(
-                line,
-                "accepted",
-                format!("'{name}' cannot be its own accepted name; leave it empty"),
-            );
-            return;
-        }
-        out.push(TaxonRow {
-            line,
-            name: name.to_string(),
-            rank: cols.get(rec, "rank").to_string(),
-            parent,
-            accepted,
-        });
-    });
+    let mut seen = Unique::default();
+    parse_rows(
+        bytes,
+        delimiter,
+        ImportKind::Taxa,
+        issues,
+        |c| ["name", "rank", "parent", "accepted"].map(|n| c.col(n)),
+        |&[c_name, c_rank, c_parent, c_accepted], row| {
+            let Some(name) = row.required(c_name, "empty; every taxon needs a name") else {
+                return;
+            };
+            if !seen.once(row, "name", "taxon", name) {
+                return;
+            }
+            let opt = |c| Some(row.get(c).to_string()).filter(|s| !s.is_empty());
+            let (parent, accepted) = (opt(c_parent), opt(c_accepted));
+            if parent.as_deref() == Some(name) {
+                row.issue("parent", format!("'{name}' cannot be its own parent"));
+                return;
+            }
+            if accepted.as_deref() == Some(name) {
+                row.issue(
+                    "accepted",
+                    format!("'{name}' cannot be its own accepted name; leave it empty"),
+                );
+                return;
+            }
+            out.push(TaxonRow {
+                line: row.line,
+                name: name.to_string(),
+                rank: row.get(c_rank).to_string(),
+                parent,
+                accepted,
+            });
+        },
+    );
     out
 }
 

@@ -1,5 +1,6 @@
-//! Importing sampling data: events and counts files, and the helpers the
-//! records format shares with them (name resolution, count checks and writes).
+//! Importing sampling data: events and counts files, and what the records
+//! format shares with them: name resolution and the tail of every file holding
+//! counts ([`finish_counts`]: count checks, then the writes).
 //!
 //! Counts are written sorted by (event, taxon), the order of the count table's
 //! primary key, several hundred rows per prepared INSERT.
@@ -9,11 +10,11 @@ use std::collections::{HashMap, HashSet};
 use rusqlite::{OptionalExtension, Transaction, params};
 
 use super::{
-    BatchMeta, Columns, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Replaced,
-    Table, parse_count, parse_date, parse_effort, parse_replicate, parse_time,
+    BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Replaced, Table,
+    Unique, parse_count, parse_date, parse_effort, parse_replicate, parse_rows, parse_time,
 };
 use crate::store::Result;
-use crate::store::sheet::{Issues, Sheet};
+use crate::store::sheet::Issues;
 
 /// The message for a protocol the store does not know.
 fn unknown_protocol(code: &str, more: &str) -> String {
@@ -113,12 +114,7 @@ pub(super) fn resolve_protocols(
 }
 
 /// Write the sites and taxa created on the way.
-pub(super) fn write_created(
-    tx: &Transaction<'_>,
-    sites: &Ids,
-    taxa: &Ids,
-    batch: i64,
-) -> Result<()> {
+fn write_created(tx: &Transaction<'_>, sites: &Ids, taxa: &Ids, batch: i64) -> Result<()> {
     let mut site = tx.prepare("INSERT INTO site(id, code, import_batch_id) VALUES (?1, ?2, ?3)")?;
     for (id, code) in &sites.new {
         site.execute(params![id, code, batch])?;
@@ -133,17 +129,17 @@ pub(super) fn write_created(
 
 /// A count ready to check and write.
 #[derive(Debug, Clone, Copy)]
-pub(super) struct NewCount {
-    pub(super) event: i64,
-    pub(super) taxon: i64,
-    pub(super) value: f64,
-    pub(super) line: u64,
+struct NewCount {
+    event: i64,
+    taxon: i64,
+    value: f64,
+    line: u64,
 }
 
 /// Sort `counts` by (event, taxon), report pairs listed twice in the file, and
 /// compare with counts already stored for `stored_events`: a conflict is an
 /// issue unless `replace`, in which case the old value is returned for the batch notes.
-pub(super) fn check_counts(
+fn check_counts(
     tx: &Transaction<'_>,
     counts: &mut [NewCount],
     stored_events: &HashSet<i64>,
@@ -205,7 +201,7 @@ pub(super) const COUNT_CHUNK: usize = 512;
 
 /// Write counts (sorted by (event, taxon)) with a prepared multi-row INSERT
 /// reused for every full chunk of [`COUNT_CHUNK`] rows, and one for the rest.
-pub(super) fn write_counts(
+fn write_counts(
     tx: &Transaction<'_>,
     counts: &[NewCount],
     batch: i64,
@@ -269,61 +265,83 @@ pub(crate) fn parse_events(
     issues: &mut Issues,
 ) -> Vec<EventRow> {
     let mut out = Vec::new();
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
-        return out;
-    };
-    let Some(cols) = Columns::map(&sheet, ImportKind::Events, false, issues) else {
-        return out;
-    };
-    let mut codes: HashMap<String, u64> = HashMap::new();
-    let mut keys: HashMap<(String, IsoDate, String, i64), u64> = HashMap::new();
-    sheet.rows(issues, |line, rec, issues| {
-        let mut ok = true;
-        let mut need = |col: &str, what: &str, issues: &mut Issues| {
-            let v = cols.get(rec, col);
-            if v.is_empty() {
-                issues.push(line, col, format!("empty; every event needs {what}"));
-                ok = false;
-            }
-            v
-        };
-        let code = need("code", "a code", issues);
-        let site = need("site", "a site code", issues);
-        let protocol = need("protocol", "a protocol code", issues);
-        let date = parse_date(cols.get(rec, "date")).map_err(|m| issues.push(line, "date", m));
-        let effort = parse_effort(cols.get(rec, "effort")).map_err(|m| issues.push(line, "effort", m));
-        let time = parse_time(cols.get(rec, "time")).map_err(|m| issues.push(line, "time", m));
-        let replicate = parse_replicate(cols.get(rec, "replicate")).map_err(|m| issues.push(line, "replicate", m));
-        let (Ok(date), Ok(effort), Ok(time), Ok(replicate), true) = (date, effort, time, replicate, ok) else {
-            return;
-        };
-        if let Some(first) = codes.get(code) {
-            issues.push(line, "code", format!("event '{code}' is listed twice (first on line {first})"));
-            return;
-        }
-        codes.insert(code.to_string(), line);
-        let key = (site.to_string(), date, protocol.to_string(), replicate);
-        if let Some(first) = keys.get(&key) {
-            issues.push(
-                line,
+    let mut codes = Unique::default();
+    let mut keys: Unique<(String, IsoDate, String, i64)> = Unique::default();
+    parse_rows(
+        bytes,
+        delimiter,
+        ImportKind::Events,
+        issues,
+        |c| {
+            [
+                "code",
+                "site",
+                "protocol",
+                "date",
+                "effort",
+                "time",
                 "replicate",
-                format!("line {first} has the same site, date, protocol and replicate; give a different replicate"),
-            );
-            return;
-        }
-        keys.insert(key, line);
-        out.push(EventRow {
-            line,
-            code: code.to_string(),
-            site: site.to_string(),
-            date,
-            protocol: protocol.to_string(),
-            effort,
-            time,
-            replicate,
-            notes: cols.get(rec, "notes").to_string(),
-        });
-    });
+                "notes",
+            ]
+            .map(|n| c.col(n))
+        },
+        |&[
+            c_code,
+            c_site,
+            c_protocol,
+            c_date,
+            c_effort,
+            c_time,
+            c_replicate,
+            c_notes,
+        ],
+         row| {
+            let code = row.required(c_code, "empty; every event needs a code");
+            let site = row.required(c_site, "empty; every event needs a site code");
+            let protocol = row.required(c_protocol, "empty; every event needs a protocol code");
+            let date = row.parse(c_date, parse_date);
+            let effort = row.parse(c_effort, parse_effort);
+            let time = row.parse(c_time, parse_time);
+            let replicate = row.parse(c_replicate, parse_replicate);
+            let (
+                Some(code),
+                Some(site),
+                Some(protocol),
+                Some(date),
+                Some(effort),
+                Some(time),
+                Some(replicate),
+            ) = (code, site, protocol, date, effort, time, replicate)
+            else {
+                return;
+            };
+            if !codes.once(row, "code", "event", code) {
+                return;
+            }
+            let key = (site.to_string(), date, protocol.to_string(), replicate);
+            if let Some(first) = keys.first(key, row.line) {
+                row.issue(
+                    "replicate",
+                    format!(
+                        "line {first} has the same site, date, protocol and replicate; \
+                         give a different replicate"
+                    ),
+                );
+                return;
+            }
+            out.push(EventRow {
+                line: row.line,
+                code: code.to_string(),
+                site: site.to_string(),
+                date,
+                protocol: protocol.to_string(),
+                effort,
+                time,
+                replicate,
+                notes: row.get(c_notes).to_string(),
+            });
+        },
+    );
     out
 }
 
@@ -460,13 +478,84 @@ pub(crate) fn import_events(
     Ok(Some(report))
 }
 
-/// One parsed row of a counts file.
+/// One count of a counts or records file, its event and taxon as interned names.
 #[derive(Debug, Clone, Copy)]
-struct CountRow {
-    line: u64,
-    event: u32,
-    taxon: u32,
-    value: f64,
+pub(super) struct CountRow {
+    pub(super) line: u64,
+    pub(super) event: u32,
+    pub(super) taxon: u32,
+    pub(super) value: f64,
+}
+
+/// What the files holding counts (counts, records) have resolved when they
+/// reach [`finish_counts`].
+pub(super) struct Counted<'a> {
+    /// Data rows in the file.
+    pub(super) total: usize,
+    /// The counts read.
+    pub(super) rows: &'a [CountRow],
+    /// Stored or new event id of each interned event (`None`: refused).
+    pub(super) event_of: &'a [Option<i64>],
+    /// Taxon id of each interned taxon name (`None`: refused).
+    pub(super) taxon_of: &'a [Option<i64>],
+    /// The taxon names read.
+    pub(super) taxa: &'a Interner,
+    /// Events already stored, whose counts may clash with stored ones.
+    pub(super) stored_events: &'a HashSet<i64>,
+    /// Sites and taxa created on the way (`ImportReport::created`).
+    pub(super) created: Vec<String>,
+    /// Site and taxon ids, with the ones to create.
+    pub(super) sites: &'a Ids,
+    /// See `sites`.
+    pub(super) taxon_ids: &'a Ids,
+}
+
+/// The tail every file holding counts shares: check the counts (pairs listed
+/// twice, clashes with stored counts), and when no problem was found, write the
+/// batch, the sites and taxa created, the new events (`write_events`, given the
+/// batch id, returns how many it wrote) and the counts. `None` when problems
+/// were found.
+pub(super) fn finish_counts(
+    tx: &Transaction<'_>,
+    meta: &BatchMeta,
+    opts: &ImportOptions,
+    issues: &mut Issues,
+    c: Counted<'_>,
+    write_events: impl FnOnce(i64) -> Result<usize>,
+) -> Result<Option<ImportReport>> {
+    let mut counts: Vec<NewCount> = c
+        .rows
+        .iter()
+        .filter_map(|r| {
+            Some(NewCount {
+                event: c.event_of[r.event as usize]?,
+                taxon: c.taxon_of[r.taxon as usize]?,
+                value: r.value,
+                line: r.line,
+            })
+        })
+        .collect();
+    let names: HashMap<i64, &str> = c
+        .taxon_of
+        .iter()
+        .zip(&c.taxa.names)
+        .filter_map(|(id, n)| Some(((*id)?, n.as_str())))
+        .collect();
+    let name = |id: i64| {
+        names
+            .get(&id)
+            .map_or_else(|| id.to_string(), |n| n.to_string())
+    };
+    let replaced = check_counts(tx, &mut counts, c.stored_events, &name, opts, issues)?;
+    if !issues.is_empty() {
+        return Ok(None);
+    }
+    let mut report = meta.insert(tx, c.total, c.created, replaced)?;
+    write_created(tx, c.sites, c.taxon_ids, report.batch_id)?;
+    report.written = write_events(report.batch_id)?;
+    write_counts(tx, &counts, report.batch_id, opts.replace)?;
+    report.counts = counts.len();
+    Ok(Some(report))
 }
 
 /// Import a counts file; `None` when problems were found.
@@ -480,21 +569,18 @@ pub(crate) fn import_counts(
     let mut events = Interner::default();
     let mut taxa = Interner::default();
     let mut rows = Vec::new();
-    if let Some(sheet) = Sheet::open(bytes, opts.delimiter, issues)
-        && let Some(cols) = Columns::map(&sheet, ImportKind::Counts, false, issues)
-    {
-        sheet.rows(issues, |line, rec, issues| {
-            let event = cols.get(rec, "event");
-            let taxon = cols.get(rec, "taxon");
-            if event.is_empty() {
-                issues.push(line, "event", "empty; expected an event code");
-            }
-            if taxon.is_empty() {
-                issues.push(line, "taxon", "empty; expected a taxon name");
-            }
-            let value =
-                parse_count(cols.get(rec, "count")).map_err(|m| issues.push(line, "count", m));
-            if let (Ok(value), false, false) = (value, event.is_empty(), taxon.is_empty()) {
+    parse_rows(
+        bytes,
+        opts.delimiter,
+        ImportKind::Counts,
+        issues,
+        |c| ["event", "taxon", "count"].map(|n| c.col(n)),
+        |&[c_event, c_taxon, c_count], row| {
+            let event = row.required(c_event, "empty; expected an event code");
+            let taxon = row.required(c_taxon, "empty; expected a taxon name");
+            let value = row.parse(c_count, parse_count);
+            if let (Some(value), Some(event), Some(taxon)) = (value, event, taxon) {
+                let line = row.line;
                 rows.push(CountRow {
                     line,
                     event: events.intern(event, line),
@@ -502,9 +588,8 @@ pub(crate) fn import_counts(
                     value,
                 });
             }
-        });
-    }
-    let total = rows.len();
+        },
+    );
     let mut created = Vec::new();
     let mut taxon_ids = Ids::load(tx, Table::Taxon)?;
     let taxon_of = resolve_taxa(&taxa, &mut taxon_ids, opts, issues, &mut created);
@@ -526,35 +611,17 @@ pub(crate) fn import_counts(
             event_of.push(id);
         }
     }
-    let mut counts: Vec<NewCount> = rows
-        .iter()
-        .filter_map(|r| {
-            Some(NewCount {
-                event: event_of[r.event as usize]?,
-                taxon: taxon_of[r.taxon as usize]?,
-                value: r.value,
-                line: r.line,
-            })
-        })
-        .collect();
     let stored_events: HashSet<i64> = event_of.iter().flatten().copied().collect();
-    let names: HashMap<i64, &str> = taxon_of
-        .iter()
-        .zip(&taxa.names)
-        .filter_map(|(id, n)| Some(((*id)?, n.as_str())))
-        .collect();
-    let name = |id: i64| {
-        names
-            .get(&id)
-            .map_or_else(|| id.to_string(), |n| n.to_string())
+    let counted = Counted {
+        total: rows.len(),
+        rows: &rows,
+        event_of: &event_of,
+        taxon_of: &taxon_of,
+        taxa: &taxa,
+        stored_events: &stored_events,
+        created,
+        sites: &Ids::empty(),
+        taxon_ids: &taxon_ids,
     };
-    let replaced = check_counts(tx, &mut counts, &stored_events, &name, opts, issues)?;
-    if !issues.is_empty() {
-        return Ok(None);
-    }
-    let mut report = meta.insert(tx, total, created, replaced)?;
-    write_created(tx, &Ids::empty(), &taxon_ids, report.batch_id)?;
-    write_counts(tx, &counts, report.batch_id, opts.replace)?;
-    report.counts = counts.len();
-    Ok(Some(report))
+    finish_counts(tx, meta, opts, issues, counted, |_| Ok(0))
 }
