@@ -21,10 +21,10 @@ use super::{Result, WorkflowError};
 pub fn grouping(m: &CountMatrix, field: &str, option: &'static str) -> Result<Grouping> {
     let labels = m
         .field_values(field)
-        .map_err(|source| WorkflowError::Field {
+        .map_err(|cause| WorkflowError::Field {
             option,
             field: field.to_string(),
-            source,
+            cause,
         })?;
     Ok(Grouping::from_labels(&labels))
 }
@@ -35,10 +35,10 @@ pub fn grouping(m: &CountMatrix, field: &str, option: &'static str) -> Result<Gr
 /// An unknown field, or a value that is not a number.
 pub fn numeric(m: &CountMatrix, field: &str, option: &'static str) -> Result<Vec<f64>> {
     m.field_numeric(field)
-        .map_err(|source| WorkflowError::Field {
+        .map_err(|cause| WorkflowError::Field {
             option,
             field: field.to_string(),
-            source,
+            cause,
         })
 }
 

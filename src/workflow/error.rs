@@ -20,15 +20,15 @@ pub enum WorkflowError {
     #[error(transparent)]
     Matrix(#[from] MatrixError),
     /// A field named by an option is unknown or not defined for every row.
-    #[error("{option} {field}: {source}")]
+    #[error("{option} {field}: {cause}")]
     Field {
         /// The option that named the field (`--by`, `--strata`…).
         option: &'static str,
         /// The field as given.
         field: String,
-        /// Why it cannot be used.
-        #[source]
-        source: MatrixError,
+        /// Why it cannot be used (in the message, not chained as a source, so
+        /// that the reason is printed once).
+        cause: MatrixError,
     },
     /// The strata are the factor under test: no sample could change group.
     #[error("--strata {field}: the strata cannot be the --by field (no sample could change group)")]
@@ -68,13 +68,12 @@ pub enum WorkflowError {
         labels: Vec<String>,
     },
     /// A kernel refused.
-    #[error("{what}: {source}")]
+    #[error("{what}: {cause}")]
     Kernel {
         /// The computation that refused (`PERMANOVA`, `computing bray-curtis dissimilarities`…).
         what: String,
-        /// The kernel's error.
-        #[source]
-        source: AnalysisError,
+        /// The kernel's error (in the message, not chained as a source).
+        cause: AnalysisError,
     },
     /// One group of a split analysis failed.
     #[error("trend of group {value} ({field}): {source}")]
@@ -117,7 +116,10 @@ impl WorkflowError {
                     .collect();
                 WorkflowError::EmptySamples { what, labels }
             }
-            _ => WorkflowError::Kernel { what, source },
+            _ => WorkflowError::Kernel {
+                what,
+                cause: source,
+            },
         }
     }
 }

@@ -359,12 +359,11 @@ fn sorted_levels(values: &[String]) -> Vec<String> {
 
 /// Per-row text of `field`; `option` names the flag in errors.
 fn field_text(m: &CountMatrix, field: &str, option: &'static str) -> Result<Vec<String>> {
-    m.field_values(field)
-        .map_err(|source| WorkflowError::Field {
-            option,
-            field: field.to_string(),
-            source,
-        })
+    m.field_values(field).map_err(|cause| WorkflowError::Field {
+        option,
+        field: field.to_string(),
+        cause,
+    })
 }
 
 /// The CCA environmental matrix: numeric fields as covariates, other fields

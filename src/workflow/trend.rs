@@ -463,10 +463,10 @@ impl Analysis for Spec {
             Every::Season => {
                 Some(
                     m.field_values("season")
-                        .map_err(|source| WorkflowError::Field {
+                        .map_err(|cause| WorkflowError::Field {
                             option: "--every",
                             field: "season".into(),
-                            source,
+                            cause,
                         })?,
                 )
             }
@@ -741,10 +741,10 @@ pub fn split(store: &Store, base: &Selection, field: &str) -> Result<Vec<(String
     let mut values = whole
         .matrix
         .field_values(field)
-        .map_err(|source| WorkflowError::Field {
+        .map_err(|cause| WorkflowError::Field {
             option: "--split-by",
             field: field.to_string(),
-            source,
+            cause,
         })?;
     values.sort();
     values.dedup();
