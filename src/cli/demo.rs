@@ -93,14 +93,14 @@ pub fn fresh_store(path: &Path, force: bool) -> anyhow::Result<Store> {
                 path.display()
             ),
         };
-        if let Some(what) = beyond_the_demo(&old)? {
-            if !force {
-                bail!(
-                    "{} holds a store with more than the demo's data ({what}); not replacing it. \
-                     Give the demo another --db path, or --force to replace this store",
-                    path.display()
-                );
-            }
+        if let Some(what) = beyond_the_demo(&old)?
+            && !force
+        {
+            bail!(
+                "{} holds a store with more than the demo's data ({what}); not replacing it. \
+                 Give the demo another --db path, or --force to replace this store",
+                path.display()
+            );
         }
         let runs = old.runs(None)?.len();
         drop(old);
