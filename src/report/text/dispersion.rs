@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use super::{Render, groups_line};
+use super::{Render, groups_line, permutations_line};
 use crate::analysis::dispersion::Permute;
 use crate::report::format::{csv_num, fmt_num, fmt_p, new_table, write_table};
 use crate::workflow::dispersion::Outcome;
@@ -39,15 +39,8 @@ impl Render for Outcome {
         )?;
         writeln!(
             out,
-            "permutations: {} ({}), scheme: {}, seed: {}; {} permuted",
-            self.permutations,
-            if self.exact {
-                "exact enumeration"
-            } else {
-                "random"
-            },
-            self.scheme,
-            self.seed,
+            "{}; {} permuted",
+            permutations_line(self.permutations, self.exact, &self.scheme, self.seed),
             match self.permute {
                 Permute::Residuals => "residuals from group means",
                 Permute::Values => "distances",

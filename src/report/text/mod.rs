@@ -38,3 +38,12 @@ pub fn groups_line<'a>(groups: impl IntoIterator<Item = (&'a str, usize)>) -> St
         .collect::<Vec<_>>()
         .join(", ")
 }
+
+/// The `permutations: N (exact enumeration|random), scheme: S, seed: K` part of
+/// the line under every permutation test's table.
+pub fn permutations_line(permutations: usize, exact: bool, scheme: &str, seed: u64) -> String {
+    format!(
+        "permutations: {permutations} ({}), scheme: {scheme}, seed: {seed}",
+        if exact { "exact enumeration" } else { "random" }
+    )
+}

@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use super::{Render, groups_line};
+use super::{Render, groups_line, permutations_line};
 use crate::analysis::linear_model::SsType;
 use crate::analysis::permanova::PermutationMethod;
 use crate::report::format::{csv_num, fmt_num, fmt_p, new_table, write_table};
@@ -58,15 +58,8 @@ impl Render for Outcome {
         };
         writeln!(
             out,
-            "permutations: {} ({}), scheme: {}, seed: {}; {how}; {} sums of squares",
-            r.permutations,
-            if r.exact {
-                "exact enumeration"
-            } else {
-                "random"
-            },
-            r.scheme,
-            r.seed,
+            "{}; {how}; {} sums of squares",
+            permutations_line(r.permutations, r.exact, &r.scheme, r.seed),
             match r.ss_type {
                 SsType::Sequential => "sequential",
                 SsType::Marginal => "marginal",
