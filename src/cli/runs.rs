@@ -12,7 +12,7 @@ use crate::report::format::write_json;
 use crate::report::text::Render;
 use crate::report::text::runs::{RunList, Series};
 use crate::store::Store;
-use crate::workflow::trend;
+use crate::workflow::runs;
 
 /// Arguments of `tally runs`.
 #[derive(Debug, clap::Args)]
@@ -64,9 +64,36 @@ pub enum Action {
         /// Only runs made on this saved selection's definition.
         #[arg(long)]
         selection: Option<String>,
+        /// For runs holding several comparisons (compare with three or more
+        /// groups): follow the comparison of this group with the reference.
+        #[arg(long)]
+        group: Option<String>,
+        /// Only runs whose selection has this condition: a site condition
+        /// (`reach=lower`) or a selection field (`protocol=kick`,
+        /// `unit=site-year`); repeat for several (all must hold).
+        #[arg(long = "where", value_name = "KEY=VALUE", value_parser = super::selection::parse_key_value)]
+        conditions: Vec<(String, String)>,
         /// Output format.
         #[arg(long, value_enum, default_value_t = FormatArg::Table)]
         format: FormatArg,
+    },
+    /// Delete stored runs and their numbers (all the ids given, or none).
+    Delete {
+        /// Run ids.
+        #[arg(required = true)]
+        ids: Vec<i64>,
+    },
+    /// Delete the runs stored before a date, optionally only of one kind.
+    Prune {
+        /// Only runs of this kind.
+        #[arg(long)]
+        kind: Option<String>,
+        /// Runs stored before this date (YYYY-MM-DD) go.
+        #[arg(long, value_name = "DATE")]
+        before: String,
+        /// List the runs that would go, and delete nothing.
+        #[arg(long)]
+        dry_run: bool,
     },
 }
 
@@ -81,6 +108,31 @@ fn print(
         FormatArg::Json => write_json(out, &json()?)?,
         FormatArg::Csv => r.csv(out)?,
         FormatArg::Table => r.table(out)?,
+    }
+    Ok(())
+}
+
+/// Say which runs went (or would go, with `--dry-run`).
+fn print_removed(out: &mut dyn Write, r: &runs::Removed) -> anyhow::Result<()> {
+    let ids: Vec<String> = r.runs.iter().map(i64::to_string).collect();
+    let runs = if r.runs.len() == 1 { "run" } else { "runs" };
+    if r.runs.is_empty() {
+        writeln!(out, "no stored run matches; nothing deleted")?;
+    } else if r.dry_run {
+        writeln!(
+            out,
+            "would delete {} {runs}: {} (run again without --dry-run to delete them)",
+            r.runs.len(),
+            ids.join(", ")
+        )?;
+    } else {
+        writeln!(
+            out,
+            "deleted {} {runs} ({}) and {} stored numbers",
+            r.runs.len(),
+            ids.join(", "),
+            r.values
+        )?;
     }
     Ok(())
 }
@@ -104,24 +156,42 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             kind,
             value,
             selection,
+            group,
+            conditions,
             format,
         } => {
-            let sel = match selection {
-                Some(name) => Some(serde_json::to_value(store.selection(&name)?)?),
+            let selection = match selection {
+                Some(name) => Some(store.selection(&name)?),
                 None => None,
             };
-            let mut points = store.series(&kind, &value, sel.as_ref())?;
-            if points.is_empty() && kind == trend::KIND {
-                // Per-period values of trend runs (`period.2016.size_part`), one
-                // point per run and period, dated by the period.
-                points = trend::period_series(store, &value, sel.as_ref())?;
-            }
+            let points = runs::series(
+                store,
+                &runs::SeriesQuery {
+                    kind: kind.clone(),
+                    value: value.clone(),
+                    selection,
+                    group,
+                    conditions,
+                },
+            )?;
             let series = Series {
                 kind: &kind,
                 value: &value,
                 points: &points,
             };
             print(out, format, &series, || Ok(series.json()))
+        }
+        Action::Delete { ids } => {
+            let removed = runs::delete(store, &ids)?;
+            print_removed(out, &removed)
+        }
+        Action::Prune {
+            kind,
+            before,
+            dry_run,
+        } => {
+            let removed = runs::prune(store, kind.as_deref(), &before, dry_run)?;
+            print_removed(out, &removed)
         }
     }
 }

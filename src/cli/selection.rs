@@ -81,7 +81,7 @@ pub struct SelectionArgs {
     pub selection: Option<String>,
 }
 
-fn parse_key_value(s: &str) -> Result<(String, String), String> {
+pub(crate) fn parse_key_value(s: &str) -> Result<(String, String), String> {
     match s.split_once('=') {
         Some((k, v)) if !k.trim().is_empty() => Ok((k.trim().to_string(), v.trim().to_string())),
         _ => Err(format!("expected KEY=VALUE, got '{s}'")),

@@ -207,6 +207,62 @@ impl Selection {
         f.join(" ")
     }
 
+    /// The selection in plain words for listings (`reach=lower, kick, years
+    /// 2010–2020, per site and year, per effort`); `whole store` when nothing
+    /// was given.
+    pub fn in_words(&self) -> String {
+        let mut w: Vec<String> = Vec::new();
+        for (k, v) in &self.site_where {
+            w.push(format!("{k}={v}"));
+        }
+        if !self.sites.is_empty() {
+            w.push(format!("sites {}", self.sites.join(", ")));
+        }
+        if let Some(p) = &self.protocol {
+            w.push(p.clone());
+        }
+        if let Some((a, b)) = self.years {
+            w.push(format!("years {a}–{b}"));
+        }
+        match (&self.from, &self.to) {
+            (Some(a), Some(b)) => w.push(format!("{a} to {b}")),
+            (Some(a), None) => w.push(format!("from {a}")),
+            (None, Some(b)) => w.push(format!("to {b}")),
+            (None, None) => {}
+        }
+        if let Some((a, b)) = self.months {
+            w.push(format!("months {a}–{b}"));
+        }
+        if let Some(r) = &self.rank {
+            w.push(format!("at {r} rank"));
+        }
+        if let Some(n) = self.min_occurrences {
+            w.push(format!("taxa in at least {n} rows"));
+        }
+        if let Some(u) = self.unit {
+            w.push(
+                match u {
+                    Unit::Event => "per event",
+                    Unit::SiteYear => "per site and year",
+                    Unit::SiteSeason => "per site and season",
+                    Unit::Site => "per site",
+                }
+                .to_string(),
+            );
+        }
+        if self.per_effort {
+            w.push("per effort".into());
+        }
+        if self.keep_empty {
+            w.push("empty rows kept".into());
+        }
+        if w.is_empty() {
+            "whole store".into()
+        } else {
+            w.join(", ")
+        }
+    }
+
     /// The row filters in order, each with its SQL fragment over `event e`
     /// and its bound parameters.
     fn filters(&self) -> Vec<Filter> {

@@ -240,6 +240,70 @@ impl Store {
     }
 }
 
+impl Store {
+    /// Names of the headline numbers stored with runs of `kind`, sorted.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn run_value_names(&self, kind: &str) -> Result<Vec<String>> {
+        let mut stmt = self.conn().prepare(
+            "SELECT DISTINCT v.name FROM run_value v JOIN run r ON r.id = v.run_id \
+             WHERE r.kind = ?1 ORDER BY v.name",
+        )?;
+        let names = stmt
+            .query_map(params![kind], |r| r.get::<_, String>(0))?
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        Ok(names)
+    }
+
+    /// Ids of the runs stored before `before` (an ISO 8601 date or time,
+    /// compared with the stored time), optionally of one kind, oldest first.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn runs_stored_before(&self, kind: Option<&str>, before: &str) -> Result<Vec<i64>> {
+        let mut stmt = self.conn().prepare(
+            "SELECT id FROM run WHERE (?1 IS NULL OR kind = ?1) AND created_at < ?2 ORDER BY id",
+        )?;
+        let ids = stmt
+            .query_map(params![kind, before], |r| r.get::<_, i64>(0))?
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        Ok(ids)
+    }
+
+    /// Delete the runs `ids` and their stored numbers in one transaction: all
+    /// or none. Returns how many stored numbers went with them.
+    ///
+    /// # Errors
+    /// [`StoreError::NotFound`] naming the first id that is not a stored run
+    /// (nothing is deleted then); SQLite errors.
+    pub fn delete_runs(&mut self, ids: &[i64]) -> Result<usize> {
+        let tx = self
+            .conn_mut()
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let mut values = 0;
+        {
+            let mut exists = tx.prepare("SELECT 1 FROM run WHERE id = ?1")?;
+            for id in ids {
+                if !exists.exists(params![id])? {
+                    return Err(StoreError::NotFound {
+                        what: "run",
+                        name: id.to_string(),
+                    });
+                }
+            }
+            let mut del_values = tx.prepare("DELETE FROM run_value WHERE run_id = ?1")?;
+            let mut del_run = tx.prepare("DELETE FROM run WHERE id = ?1")?;
+            for id in ids {
+                values += del_values.execute(params![id])?;
+                del_run.execute(params![id])?;
+            }
+        }
+        tx.commit()?;
+        Ok(values)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -278,5 +342,44 @@ mod tests {
         assert_eq!(s.runs(Some("permanova")).unwrap().len(), 2);
         assert!(s.runs(Some("trend")).unwrap().is_empty());
         assert!(matches!(s.run(99), Err(StoreError::NotFound { .. })));
+        assert_eq!(
+            s.run_value_names("permanova").unwrap(),
+            vec!["p_value".to_string(), "undefined".to_string()]
+        );
+    }
+
+    #[test]
+    fn deleting_runs_is_all_or_nothing() {
+        let mut s = Store::open_in_memory().unwrap();
+        let a = s.save_run(&sample("permanova", "2014-12-31", 0.2)).unwrap();
+        let b = s.save_run(&sample("compare", "2012-12-31", 0.1)).unwrap();
+        // An unknown id among known ones: nothing goes.
+        assert!(matches!(
+            s.delete_runs(&[a, 99]),
+            Err(StoreError::NotFound { .. })
+        ));
+        assert_eq!(s.runs(None).unwrap().len(), 2);
+        assert_eq!(s.delete_runs(&[a]).unwrap(), 2);
+        assert_eq!(
+            s.runs(None)
+                .unwrap()
+                .iter()
+                .map(|r| r.id)
+                .collect::<Vec<_>>(),
+            vec![b]
+        );
+        assert!(s.run_value_names("permanova").unwrap().is_empty());
+        // Everything was stored just now: nothing is older than 2000, all of it
+        // is older than 9999.
+        assert!(s.runs_stored_before(None, "2000-01-01").unwrap().is_empty());
+        assert_eq!(
+            s.runs_stored_before(Some("compare"), "9999-01-01").unwrap(),
+            vec![b]
+        );
+        assert!(
+            s.runs_stored_before(Some("trend"), "9999-01-01")
+                .unwrap()
+                .is_empty()
+        );
     }
 }

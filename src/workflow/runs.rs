@@ -256,6 +256,249 @@ pub fn verify(store: &Store, id: i64) -> Result<VerifyReport> {
     })
 }
 
+/// What a stored run was, in words, for listings: the analysis and its main
+/// design choice, then the selection (`compare by period; reach=lower, kick,
+/// per site and year, per effort`).
+pub fn describe(r: &RunRecord) -> String {
+    let p = &r.parameters;
+    let text = |k: &str| p.get(k).and_then(Value::as_str);
+    let mut what = r.kind.clone();
+    if let Some(m) = text("method") {
+        what = format!("{what} {m}");
+    }
+    if let Some(by) = text("by") {
+        what = format!("{what} by {by}");
+    } else if let Some(every) = text("every") {
+        what = format!("{what} every {every}");
+    }
+    if let Some(periods) = p.get("periods").and_then(Value::as_array)
+        && !periods.is_empty()
+    {
+        let spans: Vec<String> = periods
+            .iter()
+            .filter_map(|s| {
+                let a = s.get(0)?.as_i64()?;
+                let b = s.get(1)?.as_i64()?;
+                Some(format!("{a}–{b}"))
+            })
+            .collect();
+        what = format!("{what}, periods {}", spans.join(" and "));
+    }
+    let selection = serde_json::from_value::<Selection>(r.selection.clone())
+        .map(|s| s.in_words())
+        .unwrap_or_else(|_| "selection not readable".into());
+    format!("{what}; {selection}")
+}
+
+/// Which stored number to follow across runs (`runs series`).
+#[derive(Debug, Clone, Default)]
+pub struct SeriesQuery {
+    /// Kind of run.
+    pub kind: String,
+    /// Name of the stored number, as `runs show` lists it (for runs holding
+    /// several comparisons, without the `GROUP vs REFERENCE.` prefix, given
+    /// with `group` instead).
+    pub value: String,
+    /// Only runs made on exactly this selection (a saved selection's definition).
+    pub selection: Option<Selection>,
+    /// For runs holding several comparisons: the group compared with the reference.
+    pub group: Option<String>,
+    /// Only runs whose selection has each condition: a site condition
+    /// (`reach=lower`) or a selection field (`protocol=kick`, `unit=site-year`).
+    pub conditions: Vec<(String, String)>,
+}
+
+/// Whether the stored selection JSON `sel` has the condition `key=value`.
+fn selection_has(sel: &Value, key: &str, value: &str) -> bool {
+    let site_condition = sel
+        .get("site_where")
+        .and_then(Value::as_array)
+        .is_some_and(|w| {
+            w.iter().any(|pair| {
+                pair.get(0).and_then(Value::as_str) == Some(key)
+                    && pair.get(1).and_then(Value::as_str) == Some(value)
+            })
+        });
+    let field = match sel.get(key) {
+        Some(Value::String(s)) => s == value,
+        Some(Value::Number(n)) => n.to_string() == value,
+        Some(Value::Bool(b)) => b.to_string() == value,
+        _ => false,
+    };
+    site_condition || field
+}
+
+/// A stored number across runs, ordered by the period each run's data covers.
+/// Trend runs also give their per-period numbers (`size_part`: one point per
+/// run and period, dated by the period).
+///
+/// # Errors
+/// [`WorkflowError::Refused`] when no run of the kind is stored, when the
+/// value name is not one that such runs store (the message lists those that
+/// are), or when `group` names no comparison; store errors.
+pub fn series(store: &Store, q: &SeriesQuery) -> Result<Vec<SeriesPoint>> {
+    let names = store.run_value_names(&q.kind)?;
+    if names.is_empty() {
+        return Err(WorkflowError::Refused(format!(
+            "no runs of kind '{}' are stored (`tally runs list` shows what is)",
+            q.kind
+        )));
+    }
+    // The full names to follow: the value itself, or GROUP vs REFERENCE.VALUE.
+    let full: Vec<&String> = match &q.group {
+        None => names.iter().filter(|n| **n == q.value).collect(),
+        Some(g) => {
+            let head = format!("{g} vs ");
+            let tail = format!(".{}", q.value);
+            names
+                .iter()
+                .filter(|n| n.starts_with(&head) && n.ends_with(&tail))
+                .collect()
+        }
+    };
+    // The per-period numbers of trend runs (`period.LABEL.NAME`).
+    let per_period = q.kind == super::trend::KIND
+        && q.group.is_none()
+        && names.iter().any(|n| {
+            n.strip_prefix("period.")
+                .and_then(|n| n.rsplit_once('.'))
+                .is_some_and(|(_, what)| what == q.value)
+        });
+    if full.is_empty() && !per_period {
+        let mut known: Vec<String> = names
+            .iter()
+            .map(|n| {
+                if let Some((_, what)) = n.strip_prefix("period.").and_then(|n| n.rsplit_once('.'))
+                {
+                    what.to_string()
+                } else if let Some((_, rest)) = n.split_once(" vs ")
+                    && let Some((_, what)) = rest.split_once('.')
+                {
+                    what.to_string()
+                } else {
+                    n.clone()
+                }
+            })
+            .collect();
+        known.sort();
+        known.dedup();
+        let groups: Vec<&str> = {
+            let mut g: Vec<&str> = names
+                .iter()
+                .filter_map(|n| n.split_once(" vs ").map(|(g, _)| g))
+                .collect();
+            g.sort_unstable();
+            g.dedup();
+            g
+        };
+        let mut msg = match &q.group {
+            Some(g) => format!(
+                "runs of kind '{}' store no number '{}' for group '{g}'",
+                q.kind, q.value
+            ),
+            None => format!("runs of kind '{}' store no number '{}'", q.kind, q.value),
+        };
+        msg.push_str(&format!("; they store: {}", known.join(", ")));
+        if !groups.is_empty() {
+            msg.push_str(&format!(
+                "; comparisons with the reference (give the group with --group): {}",
+                groups.join(", ")
+            ));
+        }
+        return Err(WorkflowError::Refused(msg));
+    }
+    let selection = q.selection.as_ref().map(serde_json::to_value).transpose()?;
+    let mut points = Vec::new();
+    for name in full {
+        points.extend(store.series(&q.kind, name, selection.as_ref())?);
+    }
+    if per_period {
+        points.extend(super::trend::period_series(
+            store,
+            &q.value,
+            selection.as_ref(),
+        )?);
+    }
+    if !q.conditions.is_empty() {
+        let keep: std::collections::HashSet<i64> = store
+            .runs(Some(&q.kind))?
+            .into_iter()
+            .filter(|r| {
+                q.conditions
+                    .iter()
+                    .all(|(k, v)| selection_has(&r.selection, k, v))
+            })
+            .map(|r| r.id)
+            .collect();
+        points.retain(|p| keep.contains(&p.run_id));
+    }
+    points.sort_by(|a, b| {
+        (&a.period_end, &a.period_start, a.run_id).cmp(&(&b.period_end, &b.period_start, b.run_id))
+    });
+    Ok(points)
+}
+
+/// Runs removed by [`delete`] or [`prune`].
+#[derive(Debug, Clone, Serialize)]
+pub struct Removed {
+    /// Their ids, ascending.
+    pub runs: Vec<i64>,
+    /// Stored numbers removed with them.
+    pub values: usize,
+    /// True when nothing was removed because only a listing was asked for.
+    pub dry_run: bool,
+}
+
+/// Delete the stored runs `ids` (all or none).
+///
+/// # Errors
+/// An id that is not a stored run (nothing is deleted); store errors.
+pub fn delete(store: &mut Store, ids: &[i64]) -> Result<Removed> {
+    let mut runs = ids.to_vec();
+    runs.sort_unstable();
+    runs.dedup();
+    let values = store.delete_runs(&runs)?;
+    Ok(Removed {
+        runs,
+        values,
+        dry_run: false,
+    })
+}
+
+/// Delete the runs stored before `before` (an ISO 8601 date), optionally only
+/// of one kind; with `dry_run`, only say which they are.
+///
+/// # Errors
+/// [`WorkflowError::Invalid`] for a date that is not a real ISO 8601 date;
+/// store errors.
+pub fn prune(
+    store: &mut Store,
+    kind: Option<&str>,
+    before: &str,
+    dry_run: bool,
+) -> Result<Removed> {
+    if chrono::NaiveDate::parse_from_str(before, "%Y-%m-%d").is_err() {
+        return Err(WorkflowError::Invalid {
+            option: "--before",
+            reason: format!("'{before}' is not a date of the calendar in the form YYYY-MM-DD"),
+        });
+    }
+    let runs = store.runs_stored_before(kind, before)?;
+    if dry_run || runs.is_empty() {
+        return Ok(Removed {
+            runs,
+            values: 0,
+            dry_run,
+        });
+    }
+    let values = store.delete_runs(&runs)?;
+    Ok(Removed {
+        runs,
+        values,
+        dry_run: false,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

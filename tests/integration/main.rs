@@ -10,6 +10,7 @@ mod matrix_cli;
 mod reference_distances;
 mod reference_models;
 mod report;
+mod runs_cli;
 mod store_cli;
 mod taxa;
 mod trend_cli;

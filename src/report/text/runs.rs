@@ -7,7 +7,7 @@ use serde_json::{Value, json};
 
 use super::Render;
 use crate::report::format::{new_table, opt_num, write_table};
-use crate::workflow::runs::{RunRecord, SeriesPoint};
+use crate::workflow::runs::{RunRecord, SeriesPoint, describe};
 
 /// A stored number for people: six decimals, `n/a` when it was not computed.
 fn fmt_opt(v: Option<f64>) -> String {
@@ -25,7 +25,7 @@ impl RunList<'_> {
             .0
             .iter()
             .map(|r| {
-                json!({"id": r.id, "kind": r.kind, "created_at": r.created_at,
+                json!({"id": r.id, "kind": r.kind, "what": describe(r), "created_at": r.created_at,
                     "seed": r.seed, "fingerprint": r.fingerprint,
                     "period_start": r.period_start, "period_end": r.period_end,
                     "tool_version": r.tool_version})
@@ -37,11 +37,11 @@ impl RunList<'_> {
 
 impl Render for RunList<'_> {
     fn table(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut t = new_table(&["run", "kind", "stored", "data from", "data to", "seed"]);
+        let mut t = new_table(&["run", "what", "stored", "data from", "data to", "seed"]);
         for r in self.0 {
             t.add_row(vec![
                 r.id.to_string(),
-                r.kind.clone(),
+                describe(r),
                 r.created_at.clone(),
                 r.period_start.clone().unwrap_or_default(),
                 r.period_end.clone().unwrap_or_default(),
@@ -56,6 +56,7 @@ impl Render for RunList<'_> {
         w.write_record([
             "id",
             "kind",
+            "what",
             "created_at",
             "period_start",
             "period_end",
@@ -66,6 +67,7 @@ impl Render for RunList<'_> {
             w.write_record([
                 r.id.to_string(),
                 r.kind.clone(),
+                describe(r),
                 r.created_at.clone(),
                 r.period_start.clone().unwrap_or_default(),
                 r.period_end.clone().unwrap_or_default(),
