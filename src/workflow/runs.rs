@@ -359,17 +359,14 @@ pub fn series(store: &Store, q: &SeriesQuery) -> Result<Vec<SeriesPoint>> {
     // The per-period numbers of trend runs (`period.LABEL.NAME`).
     let per_period = q.kind == super::trend::KIND
         && q.group.is_none()
-        && names.iter().any(|n| {
-            n.strip_prefix("period.")
-                .and_then(|n| n.rsplit_once('.'))
-                .is_some_and(|(_, what)| what == q.value)
-        });
+        && names
+            .iter()
+            .any(|n| super::trend::period_value(n).is_some_and(|(_, what)| what == q.value));
     if full.is_empty() && !per_period {
         let mut known: Vec<String> = names
             .iter()
             .map(|n| {
-                if let Some((_, what)) = n.strip_prefix("period.").and_then(|n| n.rsplit_once('.'))
-                {
+                if let Some((_, what)) = super::trend::period_value(n) {
                     what.to_string()
                 } else if let Some((_, rest)) = n.split_once(" vs ")
                     && let Some((_, what)) = rest.split_once('.')
@@ -432,10 +429,16 @@ pub fn series(store: &Store, q: &SeriesQuery) -> Result<Vec<SeriesPoint>> {
             .collect();
         points.retain(|p| keep.contains(&p.run_id));
     }
+    sort_by_period(&mut points);
+    Ok(points)
+}
+
+/// Order series points by the period their data cover, then by run id (the
+/// order of [`Store::series`]).
+pub fn sort_by_period(points: &mut [SeriesPoint]) {
     points.sort_by(|a, b| {
         (&a.period_end, &a.period_start, a.run_id).cmp(&(&b.period_end, &b.period_start, b.run_id))
     });
-    Ok(points)
 }
 
 /// Runs removed by [`delete`] or [`prune`].
@@ -469,7 +472,8 @@ pub fn delete(store: &mut Store, ids: &[i64]) -> Result<Removed> {
 /// of one kind; with `dry_run`, only say which they are.
 ///
 /// # Errors
-/// [`WorkflowError::Invalid`] for a date that is not a real ISO 8601 date;
+/// [`WorkflowError::Invalid`] for a date that is not a real ISO 8601 date
+/// (the importer's rule, `store::import::parse_date`);
 /// store errors.
 pub fn prune(
     store: &mut Store,
@@ -477,13 +481,13 @@ pub fn prune(
     before: &str,
     dry_run: bool,
 ) -> Result<Removed> {
-    if chrono::NaiveDate::parse_from_str(before, "%Y-%m-%d").is_err() {
-        return Err(WorkflowError::Invalid {
+    let before = crate::store::import::parse_date(before)
+        .map_err(|reason| WorkflowError::Invalid {
             option: "--before",
-            reason: format!("'{before}' is not a date of the calendar in the form YYYY-MM-DD"),
-        });
-    }
-    let runs = store.runs_stored_before(kind, before)?;
+            reason,
+        })?
+        .text();
+    let runs = store.runs_stored_before(kind, &before)?;
     if dry_run || runs.is_empty() {
         return Ok(Removed {
             runs,

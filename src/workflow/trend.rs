@@ -798,10 +798,7 @@ pub fn period_series(
                 })
                 .unwrap_or_default();
         for (name, v) in &r.values {
-            let Some((label, what)) = name
-                .strip_prefix("period.")
-                .and_then(|n| n.rsplit_once('.'))
-            else {
+            let Some((label, what)) = period_value(name) else {
                 continue;
             };
             if what != value {
@@ -817,10 +814,15 @@ pub fn period_series(
             });
         }
     }
-    out.sort_by(|a, b| {
-        (&a.period_end, &a.period_start, a.run_id).cmp(&(&b.period_end, &b.period_start, b.run_id))
-    });
+    super::runs::sort_by_period(&mut out);
     Ok(out)
+}
+
+/// A stored per-period value name split into its period label and value
+/// (`period.2016.size_part` → `("2016", "size_part")`); `None` for other names.
+pub fn period_value(name: &str) -> Option<(&str, &str)> {
+    name.strip_prefix("period.")
+        .and_then(|n| n.rsplit_once('.'))
 }
 
 #[cfg(test)]

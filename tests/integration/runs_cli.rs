@@ -35,27 +35,24 @@ fn runs_list_says_what_each_run_was() {
     assert!(table.contains("what"), "{table}");
 }
 
+/// The points of `runs series --kind compare --value VALUE EXTRA… --format json`.
+fn compare_points(env: &TestEnv, value: &str, extra: &[&str]) -> usize {
+    let mut args = vec!["runs", "series", "--kind", "compare", "--value", value];
+    args.extend(extra);
+    args.extend(["--format", "json"]);
+    let v = json_of(&env.stdout(&args));
+    v["points"].as_array().map_or(0, Vec::len)
+}
+
 #[test]
 fn runs_series_filters_by_condition_and_group_and_names_what_exists() {
     let env = TestEnv::with_demo();
-    let all = json_of(&env.stdout([
-        "runs", "series", "--kind", "compare", "--value", "p.size", "--format", "json",
-    ]));
-    let lower = json_of(&env.stdout([
-        "runs",
-        "series",
-        "--kind",
-        "compare",
-        "--value",
-        "p.size",
-        "--where",
-        "reach=lower",
-        "--format",
-        "json",
-    ]));
-    let n = |v: &Value| v["points"].as_array().map_or(0, Vec::len);
-    assert_eq!(n(&all), 3, "{all}");
-    assert_eq!(n(&lower), 1, "{lower}");
+    // The demo stores one compare run per reach.
+    assert_eq!(compare_points(&env, "p.size", &[]), 3);
+    assert_eq!(
+        compare_points(&env, "p.size", &["--where", "reach=lower"]),
+        1
+    );
     // An unknown number is refused, naming those that exist.
     let (code, _, err) = env.run(["runs", "series", "--kind", "compare", "--value", "p_size"]);
     assert_eq!(code, 1);
@@ -76,19 +73,10 @@ fn runs_series_filters_by_condition_and_group_and_names_what_exists() {
         "--permutations",
         "19",
     ]);
-    let middle = json_of(&env.stdout([
-        "runs",
-        "series",
-        "--kind",
-        "compare",
-        "--value",
-        "size.ratio",
-        "--group",
-        "middle",
-        "--format",
-        "json",
-    ]));
-    assert_eq!(n(&middle), 1, "{middle}");
+    assert_eq!(
+        compare_points(&env, "size.ratio", &["--group", "middle"]),
+        1
+    );
     let (code, _, err) = env.run([
         "runs",
         "series",
