@@ -1,12 +1,14 @@
 //! Pure numerical kernels: transforms, dissimilarities, Gower centring and
 //! PCoA, distance-based linear models, permutation tests, PERMANOVA,
-//! dispersion, the size test, the size/shape partition, ordination, trends.
+//! dispersion, the size test, the size/shape partition, ordination, trends,
+//! the log-linear count model.
 //!
 //! Contract: no I/O, no SQLite, no clap, no printing. Kernels take matrices
 //! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
 pub mod cca_test;
+pub mod count_model;
 pub mod dispersion;
 pub mod dissimilarity;
 pub mod ellipse;
