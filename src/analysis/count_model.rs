@@ -290,7 +290,7 @@ impl ScoreTest {
         let total = se.norm_squared();
         let projected = (self.q.transpose() * &se).norm_squared();
         let v = total - projected;
-        if !(v > 1e-12 * total) {
+        if v.is_nan() || v <= 1e-12 * total {
             return f64::NAN;
         }
         u * u / v
