@@ -153,7 +153,7 @@ fn check_inputs(y: &[f64], x: &DMatrix<f64>, offset: &[f64]) -> Result<usize, An
 }
 
 /// Fit the Poisson log-linear model `log mu = X beta + offset` by IRLS
-/// (McCullagh & Nelder 1989, §6.2; start `mu = y + 0.5`; stop when
+/// (McCullagh & Nelder 1989, section 6.2; start `mu = y + 0.5`; stop when
 /// `|dev_old - dev| / (|dev| + 0.1) < 1e-10`, at most 100 iterations).
 ///
 /// `x` is the n × p design (intercept included by the caller), `offset` the

@@ -126,6 +126,7 @@ pub struct DispersionResult {
     /// Exactly enumerated.
     pub exact: bool,
     /// Smallest attainable p-value.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
     /// Generator seed.
     pub seed: u64,
@@ -167,13 +168,25 @@ pub(crate) fn permuted_oneway(
         }
     };
     let permuter = Permuter::new(n, scheme, Some(codes))?;
+    // Label sources (whole sites of unequal size) relabel the fixed values; bijections
+    // move the values past fixed labels (the same thing for a bijection: F does not
+    // change when values and labels are reordered together).
+    let relabel = permuter.relabels();
     let stat = |perms: &[usize], out: &mut [f64]| {
         let mut buf = vec![0.0; n];
+        let mut lab = vec![0usize; n];
         for (p, o) in perms.chunks(n).zip(out.iter_mut()) {
-            for (b, &src) in buf.iter_mut().zip(p) {
-                *b = pool[src];
+            if relabel {
+                for (l, &src) in lab.iter_mut().zip(p) {
+                    *l = codes[src];
+                }
+                *o = oneway_f(&pool, &lab, a);
+            } else {
+                for (b, &src) in buf.iter_mut().zip(p) {
+                    *b = pool[src];
+                }
+                *o = oneway_f(&buf, codes, a);
             }
-            *o = oneway_f(&buf, codes, a);
         }
     };
     permutation::permutation_test(&permuter, observed, opts, &stat, progress)

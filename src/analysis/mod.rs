@@ -7,6 +7,7 @@
 //! (`nalgebra::DMatrix<f64>`, samples in rows) and return typed results.
 //! Everything random takes a seed. Formulas and sources: `docs/methods.md`.
 
+pub mod baci;
 pub mod cca_test;
 pub mod count_model;
 pub mod dispersion;

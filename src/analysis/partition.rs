@@ -381,6 +381,7 @@ pub fn partition(
         ));
     }
     let permuter = Permuter::new(n, &opts.scheme, None)?;
+    permuter.require_row_moves("the test of a partition fraction")?;
     let popts = PermutationOptions {
         permutations: opts.permutations,
         seed: opts.seed,

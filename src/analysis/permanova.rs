@@ -62,8 +62,12 @@ pub struct TermTest {
     pub permutations: usize,
     /// True when enumerated exactly.
     pub exact: bool,
-    /// Smallest attainable p-value.
+    /// Smallest attainable p-value: 1/arrangements when exact, 1/(permutations + 1)
+    /// otherwise.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
+    /// The exchangeability scheme this term was tested under, described.
+    pub scheme: String,
 }
 
 /// A PERMANOVA table with permutation p-values.
@@ -126,8 +130,6 @@ struct OneWay {
     a: usize,
     d2: Vec<f64>,
     codes: Vec<usize>,
-    offsets: Vec<usize>,
-    inv_size: Vec<f64>,
     ss_total: f64,
 }
 
@@ -144,18 +146,11 @@ impl OneWay {
                 ss += v;
             }
         }
-        let sizes = g.sizes();
-        let mut offsets = vec![0; sizes.len() + 1];
-        for (j, s) in sizes.iter().enumerate() {
-            offsets[j + 1] = offsets[j] + s;
-        }
         OneWay {
             n,
-            a: sizes.len(),
+            a: g.n_groups(),
             d2,
             codes: g.codes().to_vec(),
-            offsets,
-            inv_size: sizes.iter().map(|&s| 1.0 / s as f64).collect(),
             ss_total: ss / n as f64,
         }
     }
@@ -181,12 +176,24 @@ impl OneWay {
         let idx = I::from_usize;
         // members[p*n ..]: the positions of each group in ascending order, group by group;
         // slot[i*k + p]: where position i sits in that list; group[i*k + p]: its group.
+        // Group sizes are those of the data, except under whole-site label sources
+        // (sites of unequal size), where they follow the permuted labels: offs[p*(a+1)..].
+        let mut offs = vec![0usize; k * (a + 1)];
+        for p in 0..k {
+            let o = &mut offs[p * (a + 1)..(p + 1) * (a + 1)];
+            for &src in &perms[p * n..(p + 1) * n] {
+                o[self.codes[src] + 1] += 1;
+            }
+            for g in 0..a {
+                o[g + 1] += o[g];
+            }
+        }
         let mut members = vec![I::default(); k * n];
         let mut slot = vec![0u32; k * n];
         let mut group = vec![0u32; k * n];
         let mut next = vec![0usize; a];
         for p in 0..k {
-            next.copy_from_slice(&self.offsets[..a]);
+            next.copy_from_slice(&offs[p * (a + 1)..p * (a + 1) + a]);
             let perm = &perms[p * n..(p + 1) * n];
             for (i, &src) in perm.iter().enumerate() {
                 let g = self.codes[src];
@@ -202,7 +209,7 @@ impl OneWay {
             for p in 0..k {
                 let g = group[i * k + p] as usize;
                 let start = slot[i * k + p] as usize + 1;
-                let end = self.offsets[g + 1];
+                let end = offs[p * (a + 1) + g + 1];
                 let list = &members[p * n + start..p * n + end];
                 let mut s = [0.0f64; 4];
                 let mut chunks = list.chunks_exact(4);
@@ -219,7 +226,10 @@ impl OneWay {
             }
         }
         for p in 0..k {
-            out[p] = (0..a).map(|g| acc[p * a + g] * self.inv_size[g]).sum();
+            let o = &offs[p * (a + 1)..(p + 1) * (a + 1)];
+            out[p] = (0..a)
+                .map(|g| acc[p * a + g] * (1.0 / (o[g + 1] - o[g]) as f64))
+                .sum();
         }
     }
 
@@ -312,6 +322,7 @@ pub fn permanova_oneway(
         permutations: res.permutations,
         exact: res.exact,
         min_p: res.min_p,
+        scheme: permuter.scheme().describe(),
     };
     Ok(PermanovaResult {
         terms: vec![term],
@@ -417,11 +428,37 @@ pub fn permanova(
     opts: &PermanovaOptions,
     progress: Option<Progress<'_>>,
 ) -> Result<PermanovaResult, AnalysisError> {
+    let schemes = vec![opts.scheme.clone(); design.names().len()];
+    permanova_by_term(d, design, opts, &schemes, progress)
+}
+
+/// [`permanova`] with each term tested under its own scheme (`schemes[t]` for term t;
+/// `opts.scheme` is ignored): a term constant within sites is tested by moving whole
+/// sites, a term that varies within sites by permutations within sites (split-plot
+/// logic; docs/methods.md, "Permutation designs for revisited sites").
+///
+/// # Errors
+/// As [`permanova`]; [`AnalysisError::DimensionMismatch`] when `schemes` does not have
+/// one scheme per term; [`AnalysisError::InvalidArgument`] for a whole-site scheme over
+/// sites of unequal size (residuals are rows and cannot be relabelled).
+pub fn permanova_by_term(
+    d: &DistanceMatrix,
+    design: &Design,
+    opts: &PermanovaOptions,
+    schemes: &[Scheme],
+    progress: Option<Progress<'_>>,
+) -> Result<PermanovaResult, AnalysisError> {
     let n = d.n();
     if design.n() != n {
         return Err(AnalysisError::DimensionMismatch {
             expected: n,
             found: design.n(),
+        });
+    }
+    if schemes.len() != design.names().len() {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: design.names().len(),
+            found: schemes.len(),
         });
     }
     let g = gower_centre(d);
@@ -434,7 +471,14 @@ pub fn permanova(
     } else {
         None
     };
-    let permuter = Permuter::new(n, &opts.scheme, labels)?;
+    let permuters = schemes
+        .iter()
+        .map(|s| {
+            let p = Permuter::new(n, s, labels)?;
+            p.require_row_moves("the test of a term beside others (Freedman–Lane residuals)")?;
+            Ok(p)
+        })
+        .collect::<Result<Vec<Permuter>, AnalysisError>>()?;
     let popts = PermutationOptions {
         permutations: opts.permutations,
         seed: opts.seed,
@@ -444,7 +488,7 @@ pub fn permanova(
     // Sequential bases are built by extension, so each term's full basis is a prefix of
     // the last one, which spans the whole model; marginal full bases span it already.
     let last = bases.last().map(|b| b.1.clone());
-    for (row, (red, full)) in table.terms.iter().zip(&bases) {
+    for ((row, (red, full)), permuter) in table.terms.iter().zip(&bases).zip(&permuters) {
         let model = match (opts.ss_type, &last) {
             (SsType::Sequential, Some(l)) => l,
             _ => full,
@@ -464,7 +508,7 @@ pub fn permanova(
             "invariant: the identity permutation reproduces the table F"
         );
         let stat = |perms: &[usize], out: &mut [f64]| pt.f_batch(perms, out);
-        let res = permutation::permutation_test(&permuter, obs[0], &popts, &stat, progress)?;
+        let res = permutation::permutation_test(permuter, obs[0], &popts, &stat, progress)?;
         terms.push(TermTest {
             name: row.name.clone(),
             df: row.df,
@@ -475,6 +519,7 @@ pub fn permanova(
             permutations: res.permutations,
             exact: res.exact,
             min_p: res.min_p,
+            scheme: permuter.scheme().describe(),
         });
         results.push(res);
     }
@@ -487,7 +532,11 @@ pub fn permanova(
         permutations: results.iter().map(|r| r.permutations).max().unwrap_or(0),
         exact: results.iter().all(|r| r.exact),
         seed: opts.seed,
-        scheme: permuter.scheme().describe(),
+        scheme: {
+            let mut d: Vec<String> = permuters.iter().map(|p| p.scheme().describe()).collect();
+            d.dedup();
+            d.join("; ")
+        },
     })
 }
 
@@ -515,6 +564,7 @@ pub struct PairTest {
     /// Exactly enumerated.
     pub exact: bool,
     /// Smallest attainable p-value for this pair.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
 }
 
@@ -989,6 +1039,133 @@ pub(crate) mod tests {
         assert_eq!(
             permanova_oneway(&d, &one, &opts(9, Scheme::Free), None).err(),
             Some(AnalysisError::TooFewGroups { found: 1, min: 2 })
+        );
+    }
+
+    fn euclidean(rows: &[Vec<f64>]) -> DistanceMatrix {
+        DistanceMatrix::from_fn(rows.len(), |i, k| {
+            rows[i]
+                .iter()
+                .zip(&rows[k])
+                .map(|(a, b)| (a - b).powi(2))
+                .sum::<f64>()
+                .sqrt()
+        })
+        .unwrap()
+    }
+
+    #[test]
+    fn whole_sites_enumerate_site_relabellings_as_numpy_does() {
+        // tests/reference/designs.json, "whole_sites": 3 + 3 sites visited 2–5 times,
+        // the pseudo-F of all C(6,3) = 20 relabellings of the sites written out in
+        // NumPy (itertools.combinations), exact p = #{F* >= F} / 20.
+        let fx: serde_json::Value =
+            serde_json::from_str(include_str!("../../tests/reference/designs.json")).unwrap();
+        let w = &fx["whole_sites"];
+        let sites: Vec<usize> = w["sites"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_u64().unwrap() as usize)
+            .collect();
+        let roles: Vec<String> = w["roles"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_str().unwrap().to_string())
+            .collect();
+        let x: Vec<Vec<f64>> = w["x"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| {
+                r.as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_f64().unwrap())
+                    .collect()
+            })
+            .collect();
+        let labels: Vec<&str> = sites.iter().map(|&s| roles[s].as_str()).collect();
+        let g = Grouping::from_labels(&labels);
+        let d = euclidean(&x);
+        let r =
+            permanova_oneway(&d, &g, &opts(999, Scheme::WholeSites(sites.clone())), None).unwrap();
+        let t = &r.terms[0];
+        assert!(t.exact);
+        assert_eq!(t.permutations, 20);
+        let f_obs = w["observed_f"].as_f64().unwrap();
+        assert!((t.pseudo_f - f_obs).abs() <= 1e-9 * f_obs);
+        assert!((t.p_value - w["p_value"].as_f64().unwrap()).abs() < 1e-12);
+        assert!((t.min_p - 1.0 / 20.0).abs() < 1e-15);
+        // Every permuted F, not only the count: the enumeration is the NumPy set.
+        let permuter = Permuter::new(d.n(), &Scheme::WholeSites(sites), Some(g.codes())).unwrap();
+        let all = permuter.enumerate();
+        let k = OneWay::new(&d, &g);
+        let mut fs = vec![0.0; all.len()];
+        k.f_batch(&all.concat(), &mut fs);
+        fs.sort_by(f64::total_cmp);
+        let expect: Vec<f64> = w["permuted_f_sorted"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
+        assert_eq!(fs.len(), expect.len());
+        for (a, b) in fs.iter().zip(&expect) {
+            assert!((a - b).abs() <= 1e-9 * b.abs().max(1.0), "{a} vs {b}");
+        }
+    }
+
+    #[test]
+    fn site_level_factor_without_effect_rejects_at_alpha_only_under_whole_sites() {
+        // 100 simulated programs: 10 sites (5 + 5 under a site-level factor with no
+        // effect), 6 visits each, strong site-to-site differences. Whole-site
+        // permutation rejects at p <= 0.05 in at most 13 of 100 (0.999 quantile of
+        // Binomial(100, 0.05): scipy.stats.binom.ppf, tests/reference/designs.json);
+        // free permutation of the 60 rows treats visits as replicates and rejects far
+        // more often (the reason `--permute auto` moves whole sites).
+        let fx: serde_json::Value =
+            serde_json::from_str(include_str!("../../tests/reference/designs.json")).unwrap();
+        let upper = fx["binomial"]["upper_0999"].as_f64().unwrap() as usize;
+        let (n_sites, visits) = (10, 6);
+        let sites: Vec<usize> = (0..n_sites * visits).map(|i| i / visits).collect();
+        let labels: Vec<&str> = sites
+            .iter()
+            .map(|&s| if s < n_sites / 2 { "fenced" } else { "open" })
+            .collect();
+        let g = Grouping::from_labels(&labels);
+        let (mut whole, mut free) = (0, 0);
+        for sim in 0..100u64 {
+            let mut rng = crate::analysis::permutation::block_rng(900 + sim, 0);
+            let mut normal = || {
+                // Box–Muller from two uniform draws.
+                let u1 = (rand::Rng::next_u64(&mut rng) as f64 + 1.0) / (u64::MAX as f64 + 2.0);
+                let u2 = (rand::Rng::next_u64(&mut rng) as f64) / (u64::MAX as f64);
+                (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+            };
+            let site_mean: Vec<[f64; 2]> = (0..n_sites)
+                .map(|_| [2.0 * normal(), 2.0 * normal()])
+                .collect();
+            let x: Vec<Vec<f64>> = sites
+                .iter()
+                .map(|&s| vec![site_mean[s][0] + normal(), site_mean[s][1] + normal()])
+                .collect();
+            let d = euclidean(&x);
+            let mut o = opts(99, Scheme::WholeSites(sites.clone()));
+            o.seed = sim;
+            if permanova_oneway(&d, &g, &o, None).unwrap().terms[0].p_value <= 0.05 {
+                whole += 1;
+            }
+            o.scheme = Scheme::Free;
+            if permanova_oneway(&d, &g, &o, None).unwrap().terms[0].p_value <= 0.05 {
+                free += 1;
+            }
+        }
+        assert!(whole <= upper, "whole sites rejected {whole} of 100");
+        assert!(
+            free > 3 * upper,
+            "free permutation rejected only {free} of 100"
         );
     }
 }

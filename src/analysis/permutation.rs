@@ -35,6 +35,13 @@ pub enum Scheme {
     /// Equal-size blocks (one block code per sample) move as wholes, keeping the order
     /// of their samples; nothing moves within a block.
     WholeBlocks(Vec<usize>),
+    /// Sites (one site code per sample) exchange their site-level labels: a permutation
+    /// of the sites gives every sample of site s the labels of site π(s), so sites with
+    /// unequal numbers of samples are fine (whole-plot permutation, Anderson & ter Braak
+    /// 2003, J. Stat. Comput. Simul. 73:85–113). When every site has the same number of
+    /// samples the samples move as whole blocks; otherwise a permutation is a *label
+    /// source* (see [`Permuter`]) and only statistics that permute labels can use it.
+    WholeSites(Vec<usize>),
 }
 
 impl Scheme {
@@ -50,6 +57,7 @@ impl Scheme {
             Scheme::Free => "free".to_string(),
             Scheme::WithinStrata(s) => format!("within {} strata", count(s)),
             Scheme::WholeBlocks(b) => format!("whole blocks ({} blocks)", count(b)),
+            Scheme::WholeSites(b) => format!("whole sites ({} sites)", count(b)),
         }
     }
 
@@ -59,6 +67,7 @@ impl Scheme {
             Scheme::Free => Scheme::Free,
             Scheme::WithinStrata(s) => Scheme::WithinStrata(idx.iter().map(|&i| s[i]).collect()),
             Scheme::WholeBlocks(b) => Scheme::WholeBlocks(idx.iter().map(|&i| b[i]).collect()),
+            Scheme::WholeSites(b) => Scheme::WholeSites(idx.iter().map(|&i| b[i]).collect()),
         }
     }
 }
@@ -108,12 +117,17 @@ struct Unit {
 /// Draws and enumerates permutations of `n` samples under a [`Scheme`].
 ///
 /// A permutation is a vector `perm` of length n: the permuted data put original sample
-/// `perm[i]` at position i.
+/// `perm[i]` at position i. Under [`Scheme::WholeSites`] with sites of unequal size,
+/// `perm` is not a bijection but a *label source*: position i takes the (site-level)
+/// labels of sample `perm[i]`, the first sample of the site it was given
+/// ([`Permuter::relabels`]); statistics that move data rows must refuse such a permuter
+/// ([`Permuter::require_row_moves`]).
 #[derive(Debug, Clone)]
 pub struct Permuter {
     n: usize,
     units: Vec<Unit>,
     scheme: Scheme,
+    relabel: bool,
 }
 
 impl Permuter {
@@ -135,6 +149,7 @@ impl Permuter {
             });
         }
         let key_of = |i: usize| labels.map_or(i, |l| l[i]);
+        let mut relabel = false;
         let groups_of = |codes: &[usize]| -> Result<Vec<Vec<usize>>, AnalysisError> {
             if codes.len() != n {
                 return Err(AnalysisError::DimensionMismatch {
@@ -191,12 +206,62 @@ impl Permuter {
                     keys,
                 }]
             }
+            Scheme::WholeSites(b) => {
+                let sites = groups_of(b)?;
+                if let Some(l) = labels
+                    && let Some(site) = sites.iter().find(|s| s.iter().any(|&i| l[i] != l[s[0]]))
+                {
+                    return Err(AnalysisError::InvalidArgument {
+                        name: "labels",
+                        reason: format!(
+                            "the labels vary within the site of sample {}: whole-site \
+                             permutation moves site-level labels only",
+                            site[0]
+                        ),
+                    });
+                }
+                relabel = sites.windows(2).any(|w| w[0].len() != w[1].len());
+                vec![Unit {
+                    keys: sites
+                        .iter()
+                        .enumerate()
+                        .map(|(j, s)| labels.map_or(j, |l| l[s[0]]))
+                        .collect(),
+                    slots: sites,
+                }]
+            }
         };
         Ok(Permuter {
             n,
             units,
             scheme: scheme.clone(),
+            relabel,
         })
+    }
+
+    /// True when permutations are label sources rather than bijections (whole sites of
+    /// unequal size): position i takes the labels of sample `perm[i]`.
+    pub fn relabels(&self) -> bool {
+        self.relabel
+    }
+
+    /// Refuse a label-source permuter for a statistic that moves data rows
+    /// (`what` names the statistic).
+    ///
+    /// # Errors
+    /// [`AnalysisError::InvalidArgument`] when [`Permuter::relabels`].
+    pub fn require_row_moves(&self, what: &str) -> Result<(), AnalysisError> {
+        if self.relabel {
+            return Err(AnalysisError::InvalidArgument {
+                name: "scheme",
+                reason: format!(
+                    "{what} permutes rows of data, which whole-site permutation can do only \
+                     when every site gives the same number of rows; select a balanced set of \
+                     sites and years, or test a single factor"
+                ),
+            });
+        }
+        Ok(())
     }
 
     /// Number of samples.
@@ -237,7 +302,7 @@ impl Permuter {
             order.clear();
             order.extend(0..u.slots.len());
             shuffle(rng, &mut order);
-            place(u, &order, out);
+            place(u, &order, out, self.relabel);
         }
     }
 
@@ -251,7 +316,7 @@ impl Permuter {
         let mut perm = vec![0usize; self.n];
         loop {
             for (u, (unit, arr)) in self.units.iter().zip(&per_unit).enumerate() {
-                place(unit, &arr[idx[u]], &mut perm);
+                place(unit, &arr[idx[u]], &mut perm, self.relabel);
             }
             out.push(perm.clone());
             // odometer
@@ -272,11 +337,19 @@ impl Permuter {
 }
 
 /// Write the arrangement `order` of unit `u` into `perm`: slot j receives the samples of
-/// slot `order[j]`, in order.
-fn place(u: &Unit, order: &[usize], perm: &mut [usize]) {
+/// slot `order[j]`, in order; with `relabel`, every sample of slot j takes the first
+/// sample of slot `order[j]` as its label source.
+fn place(u: &Unit, order: &[usize], perm: &mut [usize], relabel: bool) {
     for (j, &src) in order.iter().enumerate() {
-        for (dst, s) in u.slots[j].iter().zip(&u.slots[src]) {
-            perm[*dst] = *s;
+        if relabel {
+            let first = u.slots[src][0];
+            for dst in &u.slots[j] {
+                perm[*dst] = first;
+            }
+        } else {
+            for (dst, s) in u.slots[j].iter().zip(&u.slots[src]) {
+                perm[*dst] = *s;
+            }
         }
     }
 }
@@ -359,6 +432,7 @@ pub struct PermutationResult {
     /// Exchangeability scheme, described.
     pub scheme: String,
     /// Smallest p-value attainable with this design and number of permutations.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
 }
 
@@ -551,6 +625,17 @@ mod tests {
         uniq.sort();
         uniq.dedup();
         assert_eq!(uniq.len(), 36);
+        // 3 + 3 sites with 1–3 rows each: C(6,3) = 20 site relabellings.
+        let sites = vec![0, 0, 1, 2, 2, 2, 3, 4, 4, 5];
+        let lab: Vec<usize> = sites.iter().map(|&s| usize::from(s >= 3)).collect();
+        let p = Permuter::new(10, &Scheme::WholeSites(sites.clone()), Some(&lab)).unwrap();
+        assert!(p.relabels());
+        assert_eq!(p.distinct(), Some(20));
+        assert_eq!(p.enumerate().len(), 20);
+        assert!(p.require_row_moves("a test").is_err());
+        // Labels that vary within a site cannot be moved with whole sites.
+        let mixed: Vec<usize> = (0..10).map(|i| i % 2).collect();
+        assert!(Permuter::new(10, &Scheme::WholeSites(sites), Some(&mixed)).is_err());
         // 4 blocks of 2, no labels: 4! = 24.
         let blocks: Vec<usize> = (0..8).map(|i| i / 2).collect();
         let p = Permuter::new(8, &Scheme::WholeBlocks(blocks), None).unwrap();
@@ -639,6 +724,35 @@ mod tests {
                 let src_block = blocks[src[0]];
                 let expect: Vec<usize> = (0..n).filter(|&i| blocks[i] == src_block).collect();
                 prop_assert_eq!(src, expect);
+            }
+        }
+
+        #[test]
+        fn whole_sites_keep_one_label_per_site(seed in 0u64..1000, sizes in proptest::collection::vec(1usize..5, 2..7)) {
+            // Sites of unequal size: every permutation gives all rows of a site the
+            // labels of one source site, and the multiset of site labels is kept.
+            let sites: Vec<usize> = sizes.iter().enumerate().flat_map(|(s, &k)| vec![s; k]).collect();
+            let n = sites.len();
+            let labels: Vec<usize> = sites.iter().map(|&s| s % 2).collect();
+            let p = Permuter::new(n, &Scheme::WholeSites(sites.clone()), Some(&labels)).unwrap();
+            let mut perm = vec![0; n];
+            p.random(&mut block_rng(seed, 0), &mut perm);
+            let mut src_sites: Vec<usize> = Vec::new();
+            for s in 0..sizes.len() {
+                let rows: Vec<usize> = (0..n).filter(|&i| sites[i] == s).collect();
+                let src: Vec<usize> = rows.iter().map(|&i| sites[perm[i]]).collect();
+                prop_assert!(src.iter().all(|&x| x == src[0]));
+                let lab: Vec<usize> = rows.iter().map(|&i| labels[perm[i]]).collect();
+                prop_assert!(lab.iter().all(|&x| x == lab[0]));
+                src_sites.push(src[0]);
+            }
+            src_sites.sort_unstable();
+            prop_assert_eq!(src_sites, (0..sizes.len()).collect::<Vec<_>>());
+            // Within sites: no row leaves its site.
+            let w = Permuter::new(n, &Scheme::WithinStrata(sites.clone()), None).unwrap();
+            w.random(&mut block_rng(seed, 1), &mut perm);
+            for i in 0..n {
+                prop_assert_eq!(sites[perm[i]], sites[i]);
             }
         }
     }

@@ -6,14 +6,20 @@
 //! size is the ratio of each group's geometric mean total to the reference group's,
 //! with a seeded percentile-bootstrap interval that resamples samples within groups.
 //!
-//! Owns: [`size_test`], [`SizeTestOptions`], [`SizeTestResult`].
+//! [`rate_test`] is the default of `compare`: pooled rates Σ count ÷ Σ effort of a
+//! log-linear count model, which keeps samples that caught nothing.
+//!
+//! Owns: [`size_test`], [`rate_test`], [`SizeModel`], [`SizeTestOptions`],
+//! [`SizeTestResult`].
 
 use serde::Serialize;
 
 use super::AnalysisError;
 use super::dispersion::{Permute, permuted_oneway};
 use super::linear_model::Grouping;
-use super::permutation::{PermutationOptions, Progress, Scheme, block_rng, bounded};
+use super::permutation::{
+    self, PermutationOptions, PermutationResult, Permuter, Progress, Scheme, block_rng, bounded,
+};
 
 /// Generator stream used by the bootstrap (permutation blocks use streams 0, 1, …).
 pub const BOOTSTRAP_STREAM: u64 = u64::MAX;
@@ -33,6 +39,34 @@ pub struct SizeTestOptions {
     pub reference: usize,
     /// Interval coverage, e.g. 0.95.
     pub confidence: f64,
+    /// The site of every sample, when sites repeat: the bootstrap then resamples whole
+    /// sites (within each group when every site belongs to one group) instead of
+    /// samples within groups.
+    pub clusters: Option<Vec<usize>>,
+}
+
+/// How the size of a group is summarised and tested.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum SizeModel {
+    /// Pooled rate Σ count ÷ Σ effort of each group (the fitted rate of a log-linear
+    /// Poisson model with log-effort offset), tested by a quasi-Poisson deviance F;
+    /// samples that caught nothing count.
+    #[default]
+    Rate,
+    /// Geometric mean of the totals, tested by the one-way F on log totals; only for
+    /// strictly positive totals.
+    Geometric,
+}
+
+impl SizeModel {
+    /// The name used on the command line and in JSON.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            SizeModel::Rate => "rate",
+            SizeModel::Geometric => "geometric",
+        }
+    }
 }
 
 /// Size summary of one group.
@@ -42,9 +76,10 @@ pub struct SizeGroup {
     pub name: String,
     /// Samples.
     pub n: usize,
-    /// Geometric mean total, `exp(mean ln t)`.
-    pub geometric_mean: f64,
-    /// Geometric mean relative to the reference group.
+    /// Geometric mean total `exp(mean ln t)` ([`SizeModel::Geometric`]) or pooled rate
+    /// `Σ y / Σ e` ([`SizeModel::Rate`]).
+    pub level: f64,
+    /// `level` relative to the reference group's.
     pub ratio: f64,
     /// Lower percentile-bootstrap bound of the ratio (NaN when no bootstrap).
     pub ratio_low: f64,
@@ -55,11 +90,14 @@ pub struct SizeGroup {
 /// Result of the size test.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SizeTestResult {
+    /// How size was summarised and tested.
+    pub model: SizeModel,
     /// Per group.
     pub groups: Vec<SizeGroup>,
     /// Name of the reference group.
     pub reference: String,
-    /// One-way F on ln(total).
+    /// One-way F on ln(total) ([`SizeModel::Geometric`]) or the quasi-Poisson deviance
+    /// F `(ΔD / (a − 1)) / (X² / (n − a))` ([`SizeModel::Rate`]).
     pub f: f64,
     /// Degrees of freedom (a - 1, n - a).
     pub df: (usize, usize),
@@ -70,6 +108,7 @@ pub struct SizeTestResult {
     /// Exactly enumerated.
     pub exact: bool,
     /// Smallest attainable p-value.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
     /// Seed.
     pub seed: u64,
@@ -120,6 +159,157 @@ pub fn size_test(
     if !empty.is_empty() {
         return Err(AnalysisError::EmptySamples { rows: empty });
     }
+    check_design(groups, n, opts)?;
+    let logs: Vec<f64> = totals.iter().map(|t| t.ln()).collect();
+    let popts = PermutationOptions {
+        permutations: opts.permutations,
+        seed: opts.seed,
+    };
+    let res = permuted_oneway(
+        &logs,
+        groups,
+        Permute::Values,
+        &opts.scheme,
+        &popts,
+        progress,
+    )?;
+
+    let mean_log = |idx: &[usize]| idx.iter().map(|&i| logs[i]).sum::<f64>() / idx.len() as f64;
+    summarise(
+        SizeModel::Geometric,
+        groups,
+        opts,
+        &res,
+        |rows: &[usize]| mean_log(rows),
+    )
+}
+
+/// Compare pooled rates between groups, keeping samples that caught nothing: `counts`
+/// are sample totals, `effort` their effort (all 1 for raw totals). The fitted rate
+/// of group g in the log-linear Poisson model with log-effort offset is the pooled
+/// rate `R_g = Σ_g y / Σ_g e` (McCullagh & Nelder 1989, Generalized Linear Models,
+/// ch. 6), so the ratio of two groups is the ratio of their pooled rates. The
+/// permutation statistic is the deviance of the group term over the Pearson
+/// dispersion of the group model, `F = (ΔD/(a − 1)) / (X²/(n − a))` with
+/// `ΔD = 2 Σ_g Y_g ln(R_g / R)`, so overdispersion is left to the permutation test
+/// (docs/methods.md, "Counts with effort").
+///
+/// # Errors
+/// As [`size_test`], except that zero totals are accepted;
+/// [`AnalysisError::InvalidArgument`] for effort that is not positive, or when the
+/// reference group (or the whole selection) caught nothing.
+pub fn rate_test(
+    counts: &[f64],
+    effort: &[f64],
+    groups: &Grouping,
+    opts: &SizeTestOptions,
+    progress: Option<Progress<'_>>,
+) -> Result<SizeTestResult, AnalysisError> {
+    let n = counts.len();
+    if groups.n() != n || effort.len() != n {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: if effort.len() != n {
+                effort.len()
+            } else {
+                groups.n()
+            },
+        });
+    }
+    if let Some(row) = counts.iter().position(|t| !t.is_finite()) {
+        return Err(AnalysisError::NonFinite { row, col: 0 });
+    }
+    if let Some(row) = counts.iter().position(|&t| t < 0.0) {
+        return Err(AnalysisError::Negative { row, col: 0 });
+    }
+    if let Some(row) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
+        return Err(AnalysisError::InvalidArgument {
+            name: "effort",
+            reason: format!(
+                "sample {row} has effort {}; effort must be positive",
+                effort[row]
+            ),
+        });
+    }
+    check_design(groups, n, opts)?;
+    let a = groups.n_groups();
+    let codes = groups.codes();
+    let reference_total: f64 = (0..n)
+        .filter(|&i| codes[i] == opts.reference)
+        .map(|i| counts[i])
+        .sum();
+    if reference_total == 0.0 {
+        return Err(AnalysisError::InvalidArgument {
+            name: "reference",
+            reason: format!(
+                "the reference group {} caught nothing, so no ratio to it exists; choose \
+                 another reference",
+                groups.levels()[opts.reference]
+            ),
+        });
+    }
+    let observed = rate_f(counts, effort, codes, a);
+    let permuter = Permuter::new(n, &opts.scheme, Some(codes))?;
+    let relabel = permuter.relabels();
+    let stat = |perms: &[usize], out: &mut [f64]| {
+        let (mut y, mut e, mut c) = (vec![0.0; n], vec![0.0; n], vec![0usize; n]);
+        for (p, o) in perms.chunks(n).zip(out.iter_mut()) {
+            if relabel {
+                for (ci, &src) in c.iter_mut().zip(p) {
+                    *ci = codes[src];
+                }
+                *o = rate_f(counts, effort, &c, a);
+            } else {
+                for (i, &src) in p.iter().enumerate() {
+                    y[i] = counts[src];
+                    e[i] = effort[src];
+                }
+                *o = rate_f(&y, &e, codes, a);
+            }
+        }
+    };
+    let popts = PermutationOptions {
+        permutations: opts.permutations,
+        seed: opts.seed,
+    };
+    let res = permutation::permutation_test(&permuter, observed, &popts, &stat, progress)?;
+    summarise(SizeModel::Rate, groups, opts, &res, |rows: &[usize]| {
+        (rows.iter().map(|&i| counts[i]).sum::<f64>()
+            / rows.iter().map(|&i| effort[i]).sum::<f64>())
+        .ln()
+    })
+}
+
+/// The quasi-Poisson deviance F of a one-factor rate model (see [`rate_test`]).
+fn rate_f(y: &[f64], e: &[f64], codes: &[usize], a: usize) -> f64 {
+    let n = y.len();
+    let (mut sy, mut se) = (vec![0.0; a], vec![0.0; a]);
+    for i in 0..n {
+        sy[codes[i]] += y[i];
+        se[codes[i]] += e[i];
+    }
+    let r_all = sy.iter().sum::<f64>() / se.iter().sum::<f64>();
+    let dev: f64 = 2.0
+        * (0..a)
+            .filter(|&g| sy[g] > 0.0)
+            .map(|g| sy[g] * ((sy[g] / se[g]) / r_all).ln())
+            .sum::<f64>();
+    let chi2: f64 = (0..n)
+        .map(|i| {
+            let mu = e[i] * sy[codes[i]] / se[codes[i]];
+            if mu > 0.0 {
+                (y[i] - mu).powi(2) / mu
+            } else {
+                0.0
+            }
+        })
+        .sum();
+    (dev / (a - 1) as f64) / (chi2 / (n - a) as f64)
+}
+
+/// The checks every size model shares: at least two groups, residual df, a valid
+/// reference and coverage.
+fn check_design(groups: &Grouping, n: usize, opts: &SizeTestOptions) -> Result<(), AnalysisError> {
     let a = groups.n_groups();
     if a < 2 {
         return Err(AnalysisError::TooFewGroups { found: a, min: 2 });
@@ -139,62 +329,117 @@ pub fn size_test(
             reason: "must be in (0, 1)".into(),
         });
     }
-    let logs: Vec<f64> = totals.iter().map(|t| t.ln()).collect();
-    let popts = PermutationOptions {
-        permutations: opts.permutations,
-        seed: opts.seed,
-    };
-    let res = permuted_oneway(
-        &logs,
-        groups,
-        Permute::Values,
-        &opts.scheme,
-        &popts,
-        progress,
-    )?;
+    if let Some(c) = &opts.clusters
+        && c.len() != n
+    {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: c.len(),
+        });
+    }
+    Ok(())
+}
 
-    let members: Vec<Vec<usize>> = (0..a).map(|g| groups.members(g)).collect();
-    let mean_log = |idx: &[usize]| idx.iter().map(|&i| logs[i]).sum::<f64>() / idx.len() as f64;
-    let means: Vec<f64> = members.iter().map(|m| mean_log(m)).collect();
-    let r = opts.reference;
-    // Percentile bootstrap of exp(mean_g - mean_ref), resampling within each group.
-    let mut boots = vec![Vec::with_capacity(opts.bootstrap); a];
-    let mut rng = block_rng(opts.seed, BOOTSTRAP_STREAM);
-    for _ in 0..opts.bootstrap {
-        let bm: Vec<f64> = members
+/// The rows of each group in one bootstrap resample: samples within groups, or whole
+/// sites (`clusters`) — within each group when every site belongs to one group, over
+/// all sites otherwise (a group's rows are then those of the drawn sites in it).
+fn resample(
+    rng: &mut rand::rngs::ChaCha8Rng,
+    members: &[Vec<usize>],
+    clusters: Option<&(Vec<Vec<usize>>, bool)>,
+    codes: &[usize],
+) -> Vec<Vec<usize>> {
+    match clusters {
+        None => members
             .iter()
             .map(|m| {
                 (0..m.len())
-                    .map(|_| logs[m[bounded(&mut rng, m.len() as u64) as usize]])
-                    .sum::<f64>()
-                    / m.len() as f64
+                    .map(|_| m[bounded(rng, m.len() as u64) as usize])
+                    .collect()
             })
+            .collect(),
+        Some((sites, nested)) => {
+            let mut out = vec![Vec::new(); members.len()];
+            if *nested {
+                for (g, o) in out.iter_mut().enumerate() {
+                    let own: Vec<&Vec<usize>> = sites.iter().filter(|s| codes[s[0]] == g).collect();
+                    for _ in 0..own.len() {
+                        o.extend_from_slice(own[bounded(rng, own.len() as u64) as usize]);
+                    }
+                }
+            } else {
+                for _ in 0..sites.len() {
+                    for &i in &sites[bounded(rng, sites.len() as u64) as usize] {
+                        out[codes[i]].push(i);
+                    }
+                }
+            }
+            out
+        }
+    }
+}
+
+/// Group levels, ratios to the reference and their percentile-bootstrap intervals,
+/// from `log_level` (the log of the summary of a set of rows) and the permutation
+/// result `res`. Ratios are `exp` of differences of logs.
+fn summarise(
+    model: SizeModel,
+    groups: &Grouping,
+    opts: &SizeTestOptions,
+    res: &PermutationResult,
+    log_level: impl Fn(&[usize]) -> f64,
+) -> Result<SizeTestResult, AnalysisError> {
+    let (a, n) = (groups.n_groups(), groups.n());
+    let codes = groups.codes();
+    let members: Vec<Vec<usize>> = (0..a).map(|g| groups.members(g)).collect();
+    let levels: Vec<f64> = members.iter().map(|m| log_level(m)).collect();
+    let r = opts.reference;
+    let clusters = opts.clusters.as_ref().map(|c| {
+        let k = c.iter().max().map_or(0, |m| m + 1);
+        let mut sites = vec![Vec::new(); k];
+        for (i, &s) in c.iter().enumerate() {
+            sites[s].push(i);
+        }
+        sites.retain(|s| !s.is_empty());
+        let nested = sites
+            .iter()
+            .all(|s| s.iter().all(|&i| codes[i] == codes[s[0]]));
+        (sites, nested)
+    });
+    let mut boots = vec![Vec::with_capacity(opts.bootstrap); a];
+    let mut rng = block_rng(opts.seed, BOOTSTRAP_STREAM);
+    for _ in 0..opts.bootstrap {
+        let rows = resample(&mut rng, &members, clusters.as_ref(), codes);
+        let bl: Vec<f64> = rows
+            .iter()
+            .map(|m| if m.is_empty() { f64::NAN } else { log_level(m) })
             .collect();
         for g in 0..a {
-            boots[g].push((bm[g] - bm[r]).exp());
+            boots[g].push((bl[g] - bl[r]).exp());
         }
     }
     let alpha = 1.0 - opts.confidence;
     let groups_out = (0..a)
         .map(|g| {
-            let (lo, hi) = if opts.bootstrap == 0 {
+            let mut b: Vec<f64> = boots[g].iter().copied().filter(|x| x.is_finite()).collect();
+            let (lo, hi) = if b.is_empty() {
                 (f64::NAN, f64::NAN)
             } else {
-                let mut b = boots[g].clone();
                 b.sort_by(f64::total_cmp);
                 (quantile(&b, alpha / 2.0), quantile(&b, 1.0 - alpha / 2.0))
             };
             SizeGroup {
                 name: groups.levels()[g].clone(),
                 n: members[g].len(),
-                geometric_mean: means[g].exp(),
-                ratio: (means[g] - means[r]).exp(),
+                level: levels[g].exp(),
+                ratio: (levels[g] - levels[r]).exp(),
                 ratio_low: lo,
                 ratio_high: hi,
             }
         })
         .collect();
     Ok(SizeTestResult {
+        model,
         groups: groups_out,
         reference: groups.levels()[r].clone(),
         f: res.statistic,
@@ -204,7 +449,7 @@ pub fn size_test(
         exact: res.exact,
         min_p: res.min_p,
         seed: res.seed,
-        scheme: res.scheme,
+        scheme: res.scheme.clone(),
         bootstrap: opts.bootstrap,
         confidence: opts.confidence,
     })
@@ -250,6 +495,7 @@ pub(crate) mod tests {
             bootstrap: 0,
             reference: 0,
             confidence: 0.95,
+            clusters: None,
         }
     }
 
@@ -316,5 +562,70 @@ pub(crate) mod tests {
             size_test(&[1.0, 0.0, 2.0, 3.0], &g, &opts(1), None),
             Err(AnalysisError::EmptySamples { rows: vec![1] })
         );
+    }
+
+    #[test]
+    fn rate_ratio_keeps_zero_catches_and_equals_the_poisson_glm() {
+        // tests/reference/count_model.json, "one_factor": 30 samples (7 caught nothing)
+        // with unequal effort; statsmodels GLM Poisson with offset log(effort): the
+        // group coefficient is the log rate ratio, and its Pearson chi-square is the
+        // X² of the group model.
+        let fx: serde_json::Value =
+            serde_json::from_str(include_str!("../../tests/reference/count_model.json")).unwrap();
+        let c = &fx["cases"]["one_factor"];
+        let vec = |k: &str| -> Vec<f64> {
+            c[k].as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_f64().unwrap())
+                .collect()
+        };
+        let (y, e) = (vec("y"), vec("effort"));
+        assert!(y.contains(&0.0));
+        let labels: Vec<&str> = c["codes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| if v.as_u64().unwrap() == 0 { "a" } else { "b" })
+            .collect();
+        let g = Grouping::from_labels(&labels);
+        let o = SizeTestOptions {
+            bootstrap: 199,
+            ..opts(3)
+        };
+        let r = rate_test(&y, &e, &g, &o, None).unwrap();
+        assert_eq!(r.model, SizeModel::Rate);
+        let beta = c["params"][1].as_f64().unwrap();
+        assert!((r.groups[1].ratio - beta.exp()).abs() <= 1e-8 * beta.exp());
+        let rates = vec("pooled_rates");
+        assert!((r.groups[0].level - rates[0]).abs() <= 1e-12 * rates[0]);
+        assert!(
+            r.groups[1].ratio_low < r.groups[1].ratio && r.groups[1].ratio < r.groups[1].ratio_high
+        );
+        // X² of the group model: the denominator of the deviance F.
+        let codes = g.codes();
+        let chi2: f64 = (0..y.len())
+            .map(|i| {
+                let mu = e[i] * rates[codes[i]];
+                (y[i] - mu).powi(2) / mu
+            })
+            .sum();
+        let expect = c["pearson_chi2"].as_f64().unwrap();
+        assert!((chi2 - expect).abs() <= 1e-8 * expect);
+        // The geometric model refuses the same data: its logs are undefined at zero.
+        assert!(size_test(&y, &g, &opts(3), None).is_err());
+    }
+
+    #[test]
+    fn dropping_zero_catches_inflates_the_sparse_group() {
+        // A group that often catches nothing: group b's three empty samples count,
+        // so its pooled rate is 6/6 = 1, half of a's 10/5 = 2 (by hand); dropping
+        // them would make the two groups look equal.
+        let y = [2.0, 2.0, 2.0, 2.0, 2.0, 0.0, 0.0, 0.0, 2.0, 2.0, 2.0];
+        let e = [1.0; 11];
+        let labels = ["a", "a", "a", "a", "a", "b", "b", "b", "b", "b", "b"];
+        let g = Grouping::from_labels(&labels);
+        let r = rate_test(&y, &e, &g, &opts(4), None).unwrap();
+        assert!((r.groups[1].ratio - 0.5).abs() < 1e-12);
     }
 }

@@ -11,10 +11,28 @@ use crate::analysis::dissimilarity::Distance;
 use crate::analysis::transform::Transform;
 use crate::report::text::Render;
 use crate::store::Store;
-use crate::workflow::design::{DistanceSpec, ShapeDistance};
+use crate::workflow::design::{DistanceSpec, PermuteDesign, ShapeDistance};
 use crate::workflow::{Analysis, Prepared, runs};
 
 use super::FormatArg;
+
+/// How rows are exchanged in the permutation tests: `--permute` and `--strata`.
+#[derive(Debug, Clone, Args)]
+pub struct DesignArgs {
+    /// How rows are exchanged: auto (whole sites for a term constant within sites,
+    /// within sites for a term that varies within sites, free when every site gives one
+    /// row), free, within-sites or whole-sites.
+    #[arg(long, value_name = "DESIGN", default_value = "auto", value_parser = parse_permute)]
+    pub permute: PermuteDesign,
+    /// Permute only within the levels of this field instead (with --permute auto).
+    #[arg(long, value_name = "FIELD")]
+    pub strata: Option<String>,
+}
+
+/// clap's parser of `--permute`.
+fn parse_permute(s: &str) -> Result<PermuteDesign, String> {
+    s.parse()
+}
 
 /// Flags every analysis command takes besides the selection.
 #[derive(Debug, Clone, Args)]

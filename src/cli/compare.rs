@@ -6,10 +6,13 @@
 
 use std::io::Write;
 
+use super::common::{
+    DesignArgs, Progress, RunArgs, distance_parser, finish, shape_distance_parser,
+};
 use super::common::{Periods, parse_periods, transform_parser};
-use super::common::{Progress, RunArgs, distance_parser, finish, shape_distance_parser};
 use super::note;
 use super::selection::{SelectionArgs, prepare};
+use crate::analysis::size_test::SizeModel;
 use crate::analysis::{Distance, Transform};
 use crate::store::Store;
 use crate::workflow::Analysis;
@@ -22,9 +25,14 @@ pub struct Args {
     /// The field whose values are the groups (e.g. period, reach, habitat, site).
     #[arg(long, value_name = "FIELD")]
     pub by: String,
-    /// Permute only within the levels of this field (e.g. site).
-    #[arg(long, value_name = "FIELD")]
-    pub strata: Option<String>,
+    /// How rows are exchanged.
+    #[command(flatten)]
+    pub design: DesignArgs,
+    /// How size is summarised: rate (pooled rate Σ count ÷ Σ effort of a log-linear
+    /// count model; samples that caught nothing count) or geometric (geometric mean
+    /// of the totals; strictly positive totals only).
+    #[arg(long, value_name = "MODEL", default_value = "rate", value_parser = parse_size_model)]
+    pub size_model: SizeModel,
     /// The group the others are compared with [default: the first in sorted order].
     #[arg(long, value_name = "GROUP")]
     pub reference: Option<String>,
@@ -65,7 +73,9 @@ impl Args {
     pub fn spec(&self, seed: u64) -> Spec {
         Spec {
             by: self.by.clone(),
-            strata: self.strata.clone(),
+            strata: self.design.strata.clone(),
+            scheme: self.design.permute,
+            size_model: self.size_model,
             reference: self.reference.clone(),
             periods: self.periods.clone(),
             shape_distance: self.shape_distance,
@@ -82,6 +92,17 @@ impl Args {
             bootstrap: BOOTSTRAP,
             seed,
         }
+    }
+}
+
+/// clap's parser of `--size-model`.
+fn parse_size_model(s: &str) -> Result<SizeModel, String> {
+    match s {
+        "rate" => Ok(SizeModel::Rate),
+        "geometric" => Ok(SizeModel::Geometric),
+        other => Err(format!(
+            "unknown size model '{other}': use rate or geometric"
+        )),
     }
 }
 

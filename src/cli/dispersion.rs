@@ -6,7 +6,7 @@ use std::io::Write;
 
 use clap::ValueEnum;
 
-use super::common::{DistanceArgs, Progress, RunArgs, finish};
+use super::common::{DesignArgs, DistanceArgs, Progress, RunArgs, finish};
 use super::selection::{SelectionArgs, prepare};
 use crate::analysis::dispersion::Permute;
 use crate::store::Store;
@@ -38,15 +38,16 @@ pub struct Args {
     /// The factor whose groups are compared (a built-in field or a site attribute).
     #[arg(long, value_name = "FIELD")]
     pub by: String,
-    /// Permute only within the levels of this field.
-    #[arg(long, value_name = "FIELD")]
-    pub strata: Option<String>,
+    /// How rows are exchanged.
+    #[command(flatten)]
+    pub design: DesignArgs,
     /// Also compare every pair of groups (Holm and Benjamini–Hochberg adjusted).
     #[arg(long)]
     pub pairwise: bool,
-    /// What is permuted to build the null distribution of F.
+    /// What builds the null distribution of F: residuals (distance minus group mean)
+    /// or the distances themselves.
     #[arg(long, value_enum, default_value_t)]
-    pub permute: PermuteArg,
+    pub null: PermuteArg,
     /// Dissimilarity and transform.
     #[command(flatten)]
     pub distance: DistanceArgs,
@@ -64,9 +65,10 @@ impl Args {
     pub fn spec(&self, seed: u64) -> Spec {
         Spec {
             by: self.by.clone(),
-            strata: self.strata.clone(),
+            strata: self.design.strata.clone(),
+            scheme: self.design.permute,
             pairwise: self.pairwise,
-            permute: self.permute.into(),
+            permute: self.null.into(),
             distance: self.distance.spec(),
             permutations: self.run.permutations,
             seed,

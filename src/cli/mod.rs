@@ -19,6 +19,7 @@ pub mod compare;
 pub mod demo;
 pub mod dispersion;
 pub mod distances;
+pub mod impact;
 pub mod import;
 pub mod init;
 pub mod matrix;
@@ -95,6 +96,8 @@ pub enum Command {
     Partition(partition::Args),
     /// Size and shape of the difference between groups, with a plain-language verdict.
     Compare(compare::Args),
+    /// Before/after × control/impact (BACI): did the impact sites change differently?
+    Impact(impact::Args),
     /// Ordination (PCoA, CA, CCA) with group centroid ellipses and an SVG plot.
     Ordinate(ordinate::Args),
     /// Write one self-contained HTML report of a selection.
@@ -132,6 +135,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),
         Command::Partition(args) => partition::run(args, &mut open_store(&db)?, &mut out),
         Command::Compare(args) => compare::run(args, &mut open_store(&db)?, &mut out),
+        Command::Impact(args) => impact::run(args, &mut open_store(&db)?, &mut out),
         Command::Ordinate(args) => ordinate::run(args, &mut open_store(&db)?, &mut out),
         Command::Report(args) => report::run(args, &mut open_store(&db)?, &mut out),
         Command::Demo(args) => demo::run(args, cli.db.as_deref(), &mut out),

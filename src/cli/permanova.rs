@@ -6,7 +6,7 @@ use std::io::Write;
 
 use clap::ValueEnum;
 
-use super::common::{DistanceArgs, Progress, RunArgs, finish};
+use super::common::{DesignArgs, DistanceArgs, Progress, RunArgs, finish};
 use super::selection::{SelectionArgs, prepare};
 use crate::analysis::linear_model::SsType;
 use crate::store::Store;
@@ -41,9 +41,9 @@ pub struct Args {
     /// A numeric covariate added after the factor (repeatable).
     #[arg(long = "covariate", value_name = "FIELD")]
     pub covariates: Vec<String>,
-    /// Permute only within the levels of this field.
-    #[arg(long, value_name = "FIELD")]
-    pub strata: Option<String>,
+    /// How rows are exchanged.
+    #[command(flatten)]
+    pub design: DesignArgs,
     /// Also compare every pair of groups (Holm and Benjamini–Hochberg adjusted).
     #[arg(long)]
     pub pairwise: bool,
@@ -68,7 +68,8 @@ impl Args {
         Spec {
             by: self.by.clone(),
             covariates: self.covariates.clone(),
-            strata: self.strata.clone(),
+            strata: self.design.strata.clone(),
+            scheme: self.design.permute,
             pairwise: self.pairwise,
             ss: self.ss.into(),
             distance: self.distance.spec(),

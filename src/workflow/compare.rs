@@ -17,15 +17,17 @@ use crate::analysis::dissimilarity::{Distance, DistanceMatrix};
 use crate::analysis::linear_model::{Grouping, SsType};
 use crate::analysis::partition::{Fractions, PartitionOptions, ShapeAxes, SizeCoding, partition};
 use crate::analysis::permanova::{PermanovaOptions, PermanovaResult, permanova_oneway};
-use crate::analysis::permutation::{Scheme, holm};
+use crate::analysis::permutation::{Permuter, Scheme, holm};
 use crate::analysis::rarefy::{mean_rarefied_distance, min_total};
-use crate::analysis::size_test::{SizeTestOptions, SizeTestResult, size_test};
+use crate::analysis::size_test::{
+    SizeModel, SizeTestOptions, SizeTestResult, rate_test, size_test,
+};
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
 // The verdict is part of the stored result, worded with the one p-value formatter.
 use crate::report::format::fmt_p;
 
-use super::design::{self, DistanceSpec, Periods, ShapeDistance};
+use super::design::{self, DistanceSpec, Periods, PermuteDesign, ShapeDistance, TermScheme};
 use super::partition::{CAUTION, MIN_RESID_DF};
 use super::permanova::GroupSize;
 use super::{Analysis, Prepared, Progress, Result, WorkflowError};
@@ -103,6 +105,13 @@ pub struct Spec {
     pub by: String,
     /// Permute only within the levels of this field.
     pub strata: Option<String>,
+    /// How rows are exchanged (runs stored before this choice existed were free).
+    #[serde(default = "PermuteDesign::before_designs")]
+    pub scheme: PermuteDesign,
+    /// How size is summarised (runs stored before this choice existed used the
+    /// geometric mean).
+    #[serde(default = "geometric_before_rates")]
+    pub size_model: SizeModel,
     /// The group the others are compared with (`None`: the first in sorted order).
     pub reference: Option<String>,
     /// Year ranges defining the field `period`, applied to the prepared matrix first.
@@ -123,12 +132,19 @@ pub struct Spec {
     pub seed: u64,
 }
 
+/// The size model of runs stored before the rate model existed.
+fn geometric_before_rates() -> SizeModel {
+    SizeModel::Geometric
+}
+
 impl Spec {
     /// The comparison by `by` with every other choice at its default.
     pub fn new(by: impl Into<String>, permutations: usize, seed: u64) -> Spec {
         Spec {
             by: by.into(),
             strata: None,
+            scheme: PermuteDesign::Auto,
+            size_model: SizeModel::Rate,
             reference: None,
             periods: None,
             shape_distance: ShapeDistance::default(),
@@ -149,8 +165,12 @@ pub struct SizeGroup {
     pub name: String,
     /// Rows.
     pub n: usize,
-    /// Geometric mean total.
-    pub geometric_mean_total: f64,
+    /// Geometric mean total (geometric model).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub geometric_mean_total: Option<f64>,
+    /// Pooled rate Σ count ÷ Σ effort (rate model; Σ count ÷ rows without effort).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub pooled_rate: Option<f64>,
     /// Geometric mean relative to the reference group.
     pub ratio: f64,
     /// Lower bootstrap bound of the ratio.
@@ -170,7 +190,9 @@ pub struct Size {
     pub ci_high: Option<f64>,
     /// Permutation p-value of the one-way F.
     pub p_value: f64,
-    /// One-way F on log totals.
+    /// How size was summarised and tested.
+    pub model: SizeModel,
+    /// One-way F on log totals (geometric) or quasi-Poisson deviance F (rate).
     pub f: f64,
     /// Degrees of freedom.
     pub df: (usize, usize),
@@ -178,10 +200,15 @@ pub struct Size {
     pub confidence: f64,
     /// Bootstrap resamples.
     pub bootstrap: usize,
+    /// What the bootstrap resampled: whole sites within groups, whole sites, or
+    /// samples within groups.
+    pub resampled: &'static str,
     /// Permutations evaluated.
     pub permutations: usize,
     /// Exactly enumerated.
     pub exact: bool,
+    /// Smallest p-value this design can give.
+    pub smallest_possible_p: f64,
     /// Per group.
     pub groups: Vec<SizeGroup>,
 }
@@ -223,6 +250,8 @@ pub struct Shape {
     pub permutations: usize,
     /// PERMANOVA exactly enumerated.
     pub exact: bool,
+    /// Smallest p-value the PERMANOVA can give.
+    pub smallest_possible_p: f64,
     /// Dispersion F.
     pub dispersion_f: f64,
     /// Dispersion p-value.
@@ -435,6 +464,8 @@ pub struct Outcome {
     pub seed: u64,
     /// Exchangeability scheme, described.
     pub scheme: String,
+    /// The scheme the factor was tested under, and why.
+    pub design: Vec<TermScheme>,
     /// Random permutations per test.
     pub permutations: usize,
     /// Notes for the user: the assembly's, then the analysis's own.
@@ -487,6 +518,12 @@ struct Tests {
 struct Ctx<'a> {
     m: &'a CountMatrix,
     totals: Vec<f64>,
+    /// Sample totals as counts (per-effort totals times effort) and their effort (1
+    /// without `--per-effort`), for the rate model.
+    counts: Vec<f64>,
+    effort: Vec<f64>,
+    /// The site of every row when sites repeat (the bootstrap resamples sites).
+    clusters: Option<Vec<usize>>,
     labels: Vec<String>,
     shape: ShapeD,
     scheme: Scheme,
@@ -505,19 +542,28 @@ impl Ctx<'_> {
             .position(|l| l == reference)
             .expect("invariant: the reference is one of the groups compared");
         let t: Vec<f64> = rows.iter().map(|&i| self.totals[i]).collect();
-        let size = size_test(
-            &t,
-            &g,
-            &SizeTestOptions {
-                permutations: p.permutations,
-                seed: p.seed,
-                scheme: self.scheme.subset(rows),
-                bootstrap: p.bootstrap,
-                reference: reference_code,
-                confidence: CONFIDENCE,
-            },
-            None,
-        )
+        let sopts = SizeTestOptions {
+            permutations: p.permutations,
+            seed: p.seed,
+            scheme: self.scheme.subset(rows),
+            bootstrap: p.bootstrap,
+            reference: reference_code,
+            confidence: CONFIDENCE,
+            clusters: self
+                .clusters
+                .as_ref()
+                .map(|c| rows.iter().map(|&i| c[i]).collect()),
+        };
+        let size = match p.size_model {
+            SizeModel::Geometric => size_test(&t, &g, &sopts, None),
+            SizeModel::Rate => {
+                let (y, e): (Vec<f64>, Vec<f64>) = rows
+                    .iter()
+                    .map(|&i| (self.counts[i], self.effort[i]))
+                    .unzip();
+                rate_test(&y, &e, &g, &sopts, None)
+            }
+        }
         .map_err(|e| kernel_on(format!("{what}size test"), e, self.m, rows))?;
         // shape.rows[k] is the matrix row of the shape dissimilarity's k-th sample.
         let sk: Vec<usize> = (0..self.shape.rows.len())
@@ -616,18 +662,29 @@ impl Spec {
         let n = m.values.nrows();
         let distance = self.shape_distance.distance();
         let Some(r) = self.rarefy else {
+            // A sample that caught nothing has no composition: it counts in the size
+            // test and is left out of the shape tests, with a note.
+            let keep: Vec<usize> = (0..n).filter(|&i| totals[i] > 0.0).collect();
+            if keep.len() < n {
+                let empty: Vec<String> = (0..n)
+                    .filter(|&i| totals[i] <= 0.0)
+                    .map(|i| m.samples[i].label.clone())
+                    .collect();
+                notes.push(format!(
+                    "{} row(s) caught nothing: they count in the size test and are left out of \
+                     the composition and dispersion tests, which need a composition ({}{})",
+                    empty.len(),
+                    empty.iter().take(5).cloned().collect::<Vec<_>>().join(", "),
+                    if empty.len() > 5 { ", …" } else { "" }
+                ));
+            }
+            let sub = m.select_rows(&keep);
             let d = DistanceSpec {
                 distance,
                 transform: Transform::None,
             }
-            .compute(m)?;
-            return Ok((
-                ShapeD {
-                    d,
-                    rows: (0..n).collect(),
-                },
-                None,
-            ));
+            .compute(&sub)?;
+            return Ok((ShapeD { d, rows: keep }, None));
         };
         if per_effort {
             return Err(WorkflowError::Refused(
@@ -727,7 +784,15 @@ impl Analysis for Spec {
             Some(r) => r.clone(),
             None => levels[0].clone(),
         };
-        let scheme = design::scheme(m, self.strata.as_deref(), Some(&self.by))?;
+        let chosen = design::term_scheme(
+            m,
+            self.scheme,
+            self.strata.as_deref(),
+            &self.by,
+            groups.codes(),
+        )?;
+        let scheme = chosen.scheme.clone();
+        let chosen_permute = chosen.permute;
         let n = m.values.nrows();
         let totals = m.totals();
         let labels: Vec<String> = groups.codes().iter().map(|&c| levels[c].clone()).collect();
@@ -736,9 +801,23 @@ impl Analysis for Spec {
 
         // (b) The shape dissimilarity, after rarefying if asked.
         let (shape, rarefied) = self.shape_distances(m, per_effort, &totals, &mut notes)?;
+        let (counts, effort): (Vec<f64>, Vec<f64>) = if per_effort {
+            totals
+                .iter()
+                .zip(&m.samples)
+                .map(|(t, s)| (t * s.effort, s.effort))
+                .unzip()
+        } else {
+            totals.iter().map(|&t| (t, 1.0)).unzip()
+        };
+        let clusters = matches!(chosen.permute, "whole-sites" | "within-sites")
+            .then(|| design::site_codes(m).0);
         let ctx = Ctx {
             m,
             totals,
+            counts,
+            effort,
+            clusters,
             labels,
             shape,
             scheme,
@@ -751,39 +830,55 @@ impl Analysis for Spec {
         progress.update(1, 3);
 
         // (c) The combined dissimilarity with its PERMANOVA and partition.
-        let comb_d = self.combined.compute(m)?;
+        // Rows that caught nothing have no place in a dissimilarity of compositions.
+        let filled: Vec<usize> = (0..n).filter(|&i| ctx.totals[i] > 0.0).collect();
+        let comb_m = m.select_rows(&filled);
+        let comb_groups = groups.subset(&filled);
+        let comb_scheme = ctx.scheme.subset(&filled);
+        let comb_d = self.combined.compute(&comb_m)?;
         let comb = permanova_oneway(
             &comb_d,
-            &groups,
+            &comb_groups,
             &PermanovaOptions {
                 permutations: self.permutations,
                 seed: self.seed,
-                scheme: ctx.scheme.clone(),
+                scheme: comb_scheme.clone(),
                 ss_type: SsType::Sequential,
             },
             None,
         )
         .map_err(|e| WorkflowError::kernel("PERMANOVA of the combined dissimilarity", e, m))?;
-        let part = match partition(
-            &m.values,
-            &comb_d,
-            &PartitionOptions {
-                size: SizeCoding::LogTotal,
-                shape_axes: ShapeAxes::Auto {
-                    min_resid_df: MIN_RESID_DF,
+        let relabels = Permuter::new(filled.len(), &comb_scheme, None).is_ok_and(|p| p.relabels());
+        let part = if relabels {
+            notes.push(
+                "no size/shape partition of the combined dissimilarity: its tests permute rows, \
+                 and whole sites can move as rows only when every site gives the same number of \
+                 rows (select the same years at every site to get it)"
+                    .to_string(),
+            );
+            None
+        } else {
+            match partition(
+                &comb_m.values,
+                &comb_d,
+                &PartitionOptions {
+                    size: SizeCoding::LogTotal,
+                    shape_axes: ShapeAxes::Auto {
+                        min_resid_df: MIN_RESID_DF,
+                    },
+                    permutations: self.permutations,
+                    seed: self.seed,
+                    scheme: comb_scheme.clone(),
                 },
-                permutations: self.permutations,
-                seed: self.seed,
-                scheme: ctx.scheme.clone(),
-            },
-            None,
-        ) {
-            Ok(r) => Some(r),
-            Err(e) => {
-                notes.push(format!(
-                    "no size/shape partition of the combined dissimilarity: {e}"
-                ));
-                None
+                None,
+            ) {
+                Ok(r) => Some(r),
+                Err(e) => {
+                    notes.push(format!(
+                        "no size/shape partition of the combined dissimilarity: {e}"
+                    ));
+                    None
+                }
             }
         };
         progress.update(2, 3);
@@ -862,19 +957,28 @@ impl Analysis for Spec {
                 ci_low: two.then_some(first.size.ci_low),
                 ci_high: two.then_some(first.size.ci_high),
                 p_value: size.p_value,
+                model: size.model,
                 f: size.f,
                 df: size.df,
                 confidence: size.confidence,
                 bootstrap: size.bootstrap,
+                resampled: match (ctx.clusters.is_some(), chosen_permute) {
+                    (false, _) => "samples within groups",
+                    (true, "whole-sites") => "whole sites within groups",
+                    (true, _) => "whole sites",
+                },
                 permutations: size.permutations,
                 exact: size.exact,
+                smallest_possible_p: size.min_p,
                 groups: size
                     .groups
                     .iter()
                     .map(|g| SizeGroup {
                         name: g.name.clone(),
                         n: g.n,
-                        geometric_mean_total: g.geometric_mean,
+                        geometric_mean_total: (size.model == SizeModel::Geometric)
+                            .then_some(g.level),
+                        pooled_rate: (size.model == SizeModel::Rate).then_some(g.level),
                         ratio: g.ratio,
                         ci_low: g.ratio_low,
                         ci_high: g.ratio_high,
@@ -888,6 +992,7 @@ impl Analysis for Spec {
                 p_value: term.p_value,
                 permutations: global.shape.permutations,
                 exact: global.shape.exact,
+                smallest_possible_p: term.min_p,
                 dispersion_f: global.disp.f,
                 dispersion_p_value: global.disp.p_value,
                 dispersion_permutations: global.disp.permutations,
@@ -931,6 +1036,7 @@ impl Analysis for Spec {
             comparisons,
             seed: self.seed,
             scheme: global.size.scheme,
+            design: vec![chosen],
             permutations: self.permutations,
             assembly_notes: prepared.notes.len(),
             notes,

@@ -7,7 +7,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::analysis::dissimilarity::{Distance, DistanceMatrix};
 use crate::analysis::linear_model::Grouping;
-use crate::analysis::permutation::Scheme;
+use crate::analysis::permutation::{Permuter, Scheme};
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
 
@@ -62,6 +62,247 @@ pub fn covariates(
         out.push((c.clone(), numeric(m, c, "--covariate")?));
     }
     Ok(out)
+}
+
+/// How the rows of a selection are exchanged in a permutation test (`--permute`;
+/// docs/methods.md, "Permutation designs for revisited sites").
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PermuteDesign {
+    /// Choose per term: whole sites for a term constant within sites, within sites for
+    /// a term that varies within sites, free when every site gives one row.
+    #[default]
+    Auto,
+    /// Any row may go anywhere (rows are independent replicates).
+    Free,
+    /// Rows move only among the rows of their own site.
+    WithinSites,
+    /// Sites exchange their site-level values, each keeping its whole series.
+    WholeSites,
+}
+
+impl PermuteDesign {
+    /// The name used on the command line and in JSON.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            PermuteDesign::Auto => "auto",
+            PermuteDesign::Free => "free",
+            PermuteDesign::WithinSites => "within-sites",
+            PermuteDesign::WholeSites => "whole-sites",
+        }
+    }
+
+    /// The choice of runs stored before `--permute` existed: their permutations were
+    /// free (or within `--strata`), so that is how they are replayed.
+    pub fn before_designs() -> PermuteDesign {
+        PermuteDesign::Free
+    }
+}
+
+impl std::str::FromStr for PermuteDesign {
+    type Err = String;
+    fn from_str(s: &str) -> std::result::Result<Self, String> {
+        match s {
+            "auto" => Ok(PermuteDesign::Auto),
+            "free" => Ok(PermuteDesign::Free),
+            "within-sites" => Ok(PermuteDesign::WithinSites),
+            "whole-sites" => Ok(PermuteDesign::WholeSites),
+            other => Err(format!(
+                "unknown permutation design '{other}': use auto, free, within-sites or whole-sites"
+            )),
+        }
+    }
+}
+
+/// The scheme one term is tested under, and why it was chosen.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TermScheme {
+    /// The term (a factor or covariate name).
+    pub term: String,
+    /// `free`, `within-sites`, `whole-sites` or `within-strata`.
+    pub permute: &'static str,
+    /// Why, in words.
+    pub reason: String,
+    /// The scheme itself.
+    #[serde(skip)]
+    pub scheme: Scheme,
+}
+
+/// One code per row of `values`: equal values get equal codes.
+fn codes_of<T: PartialEq>(values: &[T]) -> Vec<usize> {
+    let mut seen: Vec<&T> = Vec::new();
+    values
+        .iter()
+        .map(|v| {
+            seen.iter().position(|s| *s == v).unwrap_or_else(|| {
+                seen.push(v);
+                seen.len() - 1
+            })
+        })
+        .collect()
+}
+
+/// The site code of every row of `m` (0, 1, … in order of first appearance) and the
+/// number of sites.
+pub fn site_codes(m: &CountMatrix) -> (Vec<usize>, usize) {
+    let sites: Vec<&str> = m.samples.iter().map(|s| s.site.as_str()).collect();
+    let codes = codes_of(&sites);
+    let k = codes.iter().max().map_or(0, |c| c + 1);
+    (codes, k)
+}
+
+/// The scheme under which the term `term` (values `values`, one per row of `m`,
+/// compared for equality) is tested: `--strata` when given (with `PermuteDesign::Auto`),
+/// otherwise the `permute` choice, resolved for this term under `PermuteDesign::Auto`.
+///
+/// A term the scheme cannot vary is refused, naming the scheme that would test it:
+/// within sites for a term constant within every site, whole sites for a term that
+/// varies within a site, any scheme that leaves one arrangement.
+///
+/// # Errors
+/// As [`grouping`] for `strata`; [`WorkflowError::StrataIsFactor`];
+/// [`WorkflowError::Invalid`] for `--strata` beside an explicit site design;
+/// [`WorkflowError::Refused`] for an untestable term.
+pub fn term_scheme<T: PartialEq>(
+    m: &CountMatrix,
+    permute: PermuteDesign,
+    strata: Option<&str>,
+    term: &str,
+    values: &[T],
+) -> Result<TermScheme> {
+    let n = m.samples.len();
+    let tcodes = codes_of(values);
+    let (sites, n_sites) = site_codes(m);
+    let chosen = |permute: &'static str, reason: String, scheme: Scheme| TermScheme {
+        term: term.to_string(),
+        permute,
+        reason,
+        scheme,
+    };
+    let out = if let Some(f) = strata {
+        if !matches!(permute, PermuteDesign::Auto | PermuteDesign::Free) {
+            return Err(WorkflowError::Invalid {
+                option: "--strata",
+                reason: format!(
+                    "choose either --strata {f} or --permute {}: both say how rows move",
+                    permute.as_str()
+                ),
+            });
+        }
+        if f == term {
+            return Err(WorkflowError::StrataIsFactor {
+                field: f.to_string(),
+            });
+        }
+        let s = grouping(m, f, "--strata")?;
+        if !varies_within(s.codes(), &tcodes) {
+            return Err(WorkflowError::Refused(format!(
+                "--strata {f}: every stratum holds a single value of {term}, so permutations \
+                 within strata cannot change it and its test has one possible arrangement; \
+                 drop --strata {f}{}",
+                if f == "site" {
+                    format!(" and test {term} with --permute whole-sites (or auto)")
+                } else {
+                    format!(", or test {term} with a scheme that moves whole {f} units")
+                }
+            )));
+        }
+        chosen(
+            "within-strata",
+            format!(
+                "--strata {f}: rows move only within the {} levels of {f}",
+                s.n_groups()
+            ),
+            Scheme::WithinStrata(s.codes().to_vec()),
+        )
+    } else {
+        let repeat = n_sites < n;
+        let varies = varies_within(&sites, &tcodes);
+        match permute {
+            PermuteDesign::Free => chosen(
+                "free",
+                if repeat {
+                    format!(
+                        "free, as asked: the {n} rows of {n_sites} sites are treated as \
+                         independent replicates"
+                    )
+                } else {
+                    "every site gives one row, so rows are the replicates".to_string()
+                },
+                Scheme::Free,
+            ),
+            PermuteDesign::WithinSites | PermuteDesign::Auto if repeat && varies => chosen(
+                "within-sites",
+                format!(
+                    "{term} varies within sites: rows move only among the rows of their own \
+                     site ({n_sites} sites)"
+                ),
+                Scheme::WithinStrata(sites.clone()),
+            ),
+            PermuteDesign::WholeSites | PermuteDesign::Auto if repeat && !varies => chosen(
+                "whole-sites",
+                format!(
+                    "{term} is constant within each site: its values are permuted among the \
+                     {n_sites} sites, each site keeping its whole series"
+                ),
+                Scheme::WholeSites(sites.clone()),
+            ),
+            PermuteDesign::Auto => chosen(
+                "free",
+                "every site gives one row, so rows are the replicates".to_string(),
+                Scheme::Free,
+            ),
+            PermuteDesign::WithinSites if !repeat => {
+                return Err(WorkflowError::Refused(format!(
+                    "--permute within-sites: every site gives one row, so no row can move \
+                     within its site and the test of {term} has one possible arrangement; \
+                     use --permute free (or auto)"
+                )));
+            }
+            PermuteDesign::WithinSites => {
+                return Err(WorkflowError::Refused(format!(
+                    "--permute within-sites: {term} is constant within every site, so \
+                     permutations within sites cannot change it and its test has one possible \
+                     arrangement; test {term} with --permute whole-sites (or auto)"
+                )));
+            }
+            PermuteDesign::WholeSites if !repeat => chosen(
+                "whole-sites",
+                format!("every site gives one row: its {n_sites} sites are permuted freely"),
+                Scheme::WholeSites(sites.clone()),
+            ),
+            PermuteDesign::WholeSites => {
+                let site = (0..n)
+                    .find(|&i| (0..n).any(|j| sites[j] == sites[i] && tcodes[j] != tcodes[i]))
+                    .map_or_else(String::new, |i| m.samples[i].site.clone());
+                return Err(WorkflowError::Refused(format!(
+                    "--permute whole-sites: {term} varies within site {site}, and whole-site \
+                     permutation moves site-level values only; test {term} with --permute \
+                     within-sites (or auto)"
+                )));
+            }
+        }
+    };
+    let permuter = Permuter::new(n, &out.scheme, Some(&tcodes))
+        .map_err(|e| WorkflowError::kernel("the permutation design", e, m))?;
+    if permuter.distinct() == Some(1) {
+        return Err(WorkflowError::Refused(format!(
+            "{term}: under {} permutation only the observed arrangement is possible (every \
+             value of {term} sits in one unit that cannot move), so it cannot be tested; \
+             add sites or years, or test another term",
+            out.permute
+        )));
+    }
+    Ok(out)
+}
+
+/// True when some stratum (`strata` codes) holds two different `values` codes.
+fn varies_within(strata: &[usize], values: &[usize]) -> bool {
+    let mut first: std::collections::HashMap<usize, usize> = std::collections::HashMap::new();
+    strata
+        .iter()
+        .zip(values)
+        .any(|(s, v)| *first.entry(*s).or_insert(*v) != *v)
 }
 
 /// The exchangeability scheme: free without `strata`, otherwise samples move

@@ -24,6 +24,9 @@ pub struct Spec {
     pub by: String,
     /// Permute only within the levels of this field.
     pub strata: Option<String>,
+    /// How rows are exchanged (runs stored before this choice existed were free).
+    #[serde(default = "design::PermuteDesign::before_designs")]
+    pub scheme: design::PermuteDesign,
     /// Also compare every pair of groups.
     pub pairwise: bool,
     /// What is permuted to build the null distribution of F.
@@ -57,6 +60,8 @@ pub struct Outcome {
     pub by: String,
     /// The strata field, if permutations were restricted.
     pub strata: Option<String>,
+    /// The scheme the factor was tested under, and why.
+    pub design: Vec<design::TermScheme>,
     /// The dissimilarity.
     pub distance: Distance,
     /// The transform applied before it.
@@ -76,6 +81,7 @@ pub struct Outcome {
     /// Exactly enumerated.
     pub exact: bool,
     /// Smallest attainable p-value.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
     /// Generator seed.
     pub seed: u64,
@@ -110,10 +116,17 @@ impl Analysis for Spec {
     fn run(&self, prepared: &Prepared, progress: &dyn Progress) -> Result<Outcome> {
         let m = &prepared.matrix;
         let groups = design::grouping(m, &self.by, "--by")?;
+        let chosen = design::term_scheme(
+            m,
+            self.scheme,
+            self.strata.as_deref(),
+            &self.by,
+            groups.codes(),
+        )?;
         let opts = DispersionOptions {
             permutations: self.permutations,
             seed: self.seed,
-            scheme: design::scheme(m, self.strata.as_deref(), Some(&self.by))?,
+            scheme: chosen.scheme.clone(),
             permute: self.permute,
         };
         let d = self.distance.compute(m)?;
@@ -154,6 +167,7 @@ impl Analysis for Spec {
             n: m.samples.len(),
             by: self.by.clone(),
             strata: self.strata.clone(),
+            design: vec![chosen],
             distance: self.distance.distance,
             transform: self.distance.transform,
             unit: prepared.unit(),

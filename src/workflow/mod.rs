@@ -19,6 +19,7 @@ pub mod compare;
 pub mod design;
 pub mod dispersion;
 pub mod error;
+pub mod impact;
 pub mod ordinate;
 pub mod partition;
 pub mod permanova;
@@ -165,6 +166,7 @@ analyses! {
     Trend => trend,
     Partition => partition,
     Compare => compare,
+    Impact => impact,
 }
 
 #[cfg(test)]

@@ -141,6 +141,7 @@ pub struct CcaTest {
     /// Exchangeability scheme, described.
     pub scheme: String,
     /// Smallest attainable p-value.
+    #[serde(rename = "smallest_possible_p")]
     pub min_p: f64,
 }
 

@@ -12,11 +12,11 @@ use serde::{Deserialize, Serialize};
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::linear_model::{Design, Grouping, SsType, Term, TermSpec};
 use crate::analysis::permanova::{
-    PairTest, PermanovaOptions, PermanovaResult, pairwise, permanova, permanova_oneway,
+    PairTest, PermanovaOptions, PermanovaResult, pairwise, permanova_by_term, permanova_oneway,
 };
 use crate::analysis::transform::Transform;
 
-use super::design::{self, DistanceSpec};
+use super::design::{self, DistanceSpec, PermuteDesign, TermScheme};
 use super::{Analysis, Prepared, Progress, Result, WorkflowError};
 
 /// The run kind.
@@ -36,6 +36,9 @@ pub struct Spec {
     pub covariates: Vec<String>,
     /// Permute only within the levels of this field.
     pub strata: Option<String>,
+    /// How rows are exchanged (runs stored before this choice existed were free).
+    #[serde(default = "PermuteDesign::before_designs")]
+    pub scheme: PermuteDesign,
     /// Also compare every pair of groups.
     pub pairwise: bool,
     /// Sums of squares of the multi-term model.
@@ -80,6 +83,8 @@ pub struct Outcome {
     pub covariates: Vec<String>,
     /// The strata field, if permutations were restricted.
     pub strata: Option<String>,
+    /// The scheme each term was tested under, and why.
+    pub design: Vec<TermScheme>,
     /// The dissimilarity.
     pub distance: Distance,
     /// The transform applied before it.
@@ -112,12 +117,22 @@ impl Analysis for Spec {
         let m = &prepared.matrix;
         let groups = design::grouping(m, &self.by, "--by")?;
         let covariates = design::covariates(m, &self.covariates, Some(&self.by))?;
-        let scheme = design::scheme(m, self.strata.as_deref(), Some(&self.by))?;
+        let strata = self.strata.as_deref();
+        let mut schemes = vec![design::term_scheme(
+            m,
+            self.scheme,
+            strata,
+            &self.by,
+            groups.codes(),
+        )?];
+        for (name, v) in &covariates {
+            schemes.push(design::term_scheme(m, self.scheme, strata, name, v)?);
+        }
         let d = self.distance.compute(m)?;
         let opts = PermanovaOptions {
             permutations: self.permutations,
             seed: self.seed,
-            scheme,
+            scheme: schemes[0].scheme.clone(),
             ss_type: self.ss,
         };
         progress.stage("PERMANOVA");
@@ -134,7 +149,8 @@ impl Analysis for Spec {
             }
             let design = Design::new(m.samples.len(), terms)
                 .map_err(|e| WorkflowError::kernel("building the model", e, m))?;
-            permanova(&d, &design, &opts, Some(&cb))
+            let per_term: Vec<_> = schemes.iter().map(|s| s.scheme.clone()).collect();
+            permanova_by_term(&d, &design, &opts, &per_term, Some(&cb))
                 .map_err(|e| WorkflowError::kernel("PERMANOVA", e, m))?
         };
         // The one-way path has no sequential/marginal distinction; report what was asked.
@@ -162,6 +178,7 @@ impl Analysis for Spec {
             by: self.by.clone(),
             covariates: self.covariates.clone(),
             strata: self.strata.clone(),
+            design: schemes,
             distance: self.distance.distance,
             transform: self.distance.transform,
             unit: prepared.unit(),

@@ -144,13 +144,20 @@ fn diff(path: &str, a: &Value, b: &Value, count: &mut usize, out: &mut Vec<Diffe
                 } else {
                     format!("{path}.{k}")
                 };
-                diff(
-                    &p,
-                    x.get(k).unwrap_or(&Value::Null),
-                    y.get(k).unwrap_or(&Value::Null),
-                    count,
-                    out,
-                );
+                match (x.get(k), y.get(k)) {
+                    (Some(u), Some(v)) => diff(&p, u, v, count, out),
+                    // A field only one side has (added or renamed by a later version of
+                    // tally) is reported, but is not a number that differs.
+                    (u, v) => {
+                        *count += 1;
+                        out.push(Difference {
+                            path: p,
+                            stored: u.cloned().unwrap_or(Value::Null),
+                            recomputed: v.cloned().unwrap_or(Value::Null),
+                            text_only: true,
+                        });
+                    }
+                }
             }
         }
         (Value::Array(x), Value::Array(y)) if x.len() == y.len() => {
@@ -517,5 +524,6 @@ mod tests {
         assert_eq!(n, 5);
         let paths: Vec<&str> = d.iter().map(|x| x.path.as_str()).collect();
         assert_eq!(paths, vec!["extra", "y.z[1]"]);
+        assert!(d[0].text_only && !d[1].text_only);
     }
 }

@@ -375,10 +375,15 @@ fn permanova_on_demo_reports_every_key_and_stores_a_run() {
             .iter()
             .any(|n| n.as_str().unwrap().contains("tally dispersion"))
     );
-    // demo-data/README.md: each reach has its own taxon preferences, so the
-    // reaches differ in composition; 199 permutations can reach p = 0.005.
+    // Reach is assigned to whole sites and sites are revisited, so `--permute auto`
+    // tests it by moving whole sites: 18 sites, 6 per reach, far more relabellings
+    // than 199 (docs/methods.md, "Permutation designs for revisited sites").
+    assert_eq!(v["design"][0]["term"], "reach");
+    assert_eq!(v["design"][0]["permute"], "whole-sites");
+    assert_eq!(t["scheme"], "whole sites (18 sites)");
     let p = f64_of(&t["p_value"]);
-    assert!(p <= 0.05, "reach p = {p}");
+    assert!(close(f64_of(&t["smallest_possible_p"]), 1.0 / 200.0, 1e-12));
+    assert!((1.0 / 200.0..=1.0).contains(&p), "reach p = {p}");
     // SS partition: term + residual = total (one term).
     let ss = f64_of(&t["ss"]) + f64_of(&v["residual"]["ss"]);
     assert!(close(ss, f64_of(&v["total"]["ss"]), 1e-10));

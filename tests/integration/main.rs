@@ -3,6 +3,7 @@ mod architecture;
 mod citations;
 mod compare;
 mod demo_data;
+mod designs_cli;
 mod distance_properties;
 mod engine_cli;
 mod import;

@@ -117,6 +117,7 @@ fn size_test_f_equals_anova_f_on_log_totals() {
             bootstrap: 99,
             reference: 0,
             confidence: 0.95,
+            clusters: None,
         };
         let r = size_test(&totals, &Grouping::from_codes(&codes), &o, None).expect("size test");
         let f = case["f"].as_f64().expect("f");

@@ -2,7 +2,8 @@
 
 use std::io::{self, Write};
 
-use super::Render;
+use super::{Render, design_lines};
+use crate::analysis::size_test::SizeModel;
 use crate::report::format::{MISSING, csv_num, fmt_p, new_table, write_table};
 use crate::workflow::compare::Outcome;
 
@@ -77,14 +78,27 @@ impl Render for Outcome {
         }
         write_table(out, &t)?;
         let (s, sh, cb) = (&self.size, &self.shape, &self.combined);
+        let statistic = match s.model {
+            SizeModel::Rate => format!(
+                "pooled rates ({}), samples that caught nothing included; quasi-Poisson deviance F",
+                if self.per_effort {
+                    "count ÷ effort"
+                } else {
+                    "count per sample"
+                }
+            ),
+            SizeModel::Geometric => format!(
+                "geometric mean totals; one-way F on log totals{}",
+                if self.per_effort {
+                    " per unit effort"
+                } else {
+                    ""
+                }
+            ),
+        };
         writeln!(
             out,
-            "(a) Size: one-way F on log totals{} = {}, p = {}.",
-            if self.per_effort {
-                " per unit effort"
-            } else {
-                ""
-            },
+            "(a) Size: {statistic} = {}, p = {}.",
             fixed(s.f, 3),
             fmt_p(s.p_value, s.permutations)
         )?;
@@ -126,11 +140,23 @@ impl Render for Outcome {
         for line in self.verdict.lines() {
             writeln!(out, "  {line}")?;
         }
+        let arrangements = if s.exact && sh.exact {
+            format!("exact enumeration of {} arrangements", s.permutations)
+        } else {
+            format!("{} permutations per test", self.permutations)
+        };
         writeln!(
             out,
-            "Permutation p-values: {} permutations per test, scheme {}, seed {}; ratio intervals from {} bootstrap resamples within groups.",
-            self.permutations, self.scheme, self.seed, s.bootstrap
+            "Permutation p-values: {arrangements}, scheme {}, seed {}; ratio intervals from {} bootstrap resamples of {}.",
+            self.scheme, self.seed, s.bootstrap, s.resampled
         )?;
+        for line in design_lines(
+            &self.design,
+            &[s.smallest_possible_p.max(sh.smallest_possible_p)],
+            self.alpha,
+        ) {
+            writeln!(out, "{line}")?;
+        }
         writeln!(out, "{}", self.caution)
     }
 

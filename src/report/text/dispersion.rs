@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use super::{Render, groups_line, permutations_line};
+use super::{DESIGN_ALPHA, Render, design_lines, groups_line, permutations_line};
 use crate::analysis::dispersion::Permute;
 use crate::report::format::{csv_num, fmt_num, fmt_p, new_table, write_table};
 use crate::workflow::dispersion::Outcome;
@@ -46,6 +46,9 @@ impl Render for Outcome {
                 Permute::Values => "distances",
             }
         )?;
+        for line in design_lines(&self.design, &[self.min_p], DESIGN_ALPHA) {
+            writeln!(out, "{line}")?;
+        }
         if let Some(pairs) = &self.pairs {
             writeln!(out)?;
             writeln!(out, "pairwise comparisons")?;

@@ -7,6 +7,7 @@ use std::io::{self, Write};
 pub mod compare;
 pub mod dispersion;
 pub mod distances;
+pub mod impact;
 pub mod matrix;
 pub mod ordinate;
 pub mod partition;
@@ -37,6 +38,38 @@ pub fn groups_line<'a>(groups: impl IntoIterator<Item = (&'a str, usize)>) -> St
         .map(|(l, n)| format!("{l} {n}"))
         .collect::<Vec<_>>()
         .join(", ")
+}
+
+/// The significance level against which the design lines of commands without an
+/// `--alpha` judge the smallest possible p-value (the customary 0.05; common practice).
+pub const DESIGN_ALPHA: f64 = 0.05;
+
+/// One line per tested term: the scheme it was tested under and why, then, when the
+/// smallest p-value the design can give (`smallest`, one per term in the same order)
+/// exceeds `alpha`, a line saying that this design cannot reach alpha.
+pub fn design_lines(
+    design: &[crate::workflow::design::TermScheme],
+    smallest: &[f64],
+    alpha: f64,
+) -> Vec<String> {
+    let mut out = Vec::new();
+    for (t, &p) in design.iter().zip(smallest) {
+        out.push(format!(
+            "{}: {} permutation ({})",
+            t.term, t.permute, t.reason
+        ));
+        if p > alpha {
+            out.push(format!(
+                "{}: this design cannot reach p ≤ {alpha}: the smallest possible p-value is {} \
+                 ({} arrangements); a p-value above {alpha} here says nothing about the effect. \
+                 More sites (or years) are needed for a verdict",
+                t.term,
+                crate::report::format::fmt_num(p),
+                (1.0 / p).round()
+            ));
+        }
+    }
+    out
 }
 
 /// The `permutations: N (exact enumeration|random), scheme: S, seed: K` part of

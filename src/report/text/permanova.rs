@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use super::{Render, groups_line, permutations_line};
+use super::{DESIGN_ALPHA, Render, design_lines, groups_line, permutations_line};
 use crate::analysis::linear_model::SsType;
 use crate::analysis::permanova::PermutationMethod;
 use crate::report::format::{csv_num, fmt_num, fmt_p, new_table, write_table};
@@ -65,6 +65,10 @@ impl Render for Outcome {
                 SsType::Marginal => "marginal",
             }
         )?;
+        let smallest: Vec<f64> = r.terms.iter().map(|t| t.min_p).collect();
+        for line in design_lines(&self.design, &smallest, DESIGN_ALPHA) {
+            writeln!(out, "{line}")?;
+        }
         if let Some(pairs) = &self.pairs {
             writeln!(out)?;
             writeln!(out, "pairwise comparisons")?;
