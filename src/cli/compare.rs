@@ -112,7 +112,12 @@ fn parse_size_model(s: &str) -> Result<SizeModel, String> {
 /// Unknown fields or groups, too few groups, strata that leave the groups no
 /// room to vary, rarefying per-effort values, kernel refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    let prepared = prepare(store, &args.selection)?;
+    // Under the rate model rows that caught nothing are data for the size test:
+    // keep them (the shape tests leave them out with a note). The stored selection
+    // records this.
+    let mut selection = args.selection.clone();
+    selection.keep_empty |= args.size_model == SizeModel::Rate;
+    let prepared = prepare(store, &selection)?;
     let spec = args.spec(args.run.seed());
     let outcome = spec.run(&prepared, &Progress::new("compare"))?;
     for n in outcome.own_notes() {

@@ -62,7 +62,11 @@ impl Args {
 /// Unknown fields or values, roles that change within a site, a design without
 /// impact or control sites, kernel refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    let prepared = prepare(store, &args.selection)?;
+    // Rows that caught nothing are data for the size test: keep them (the shape
+    // tests leave them out with a note). The stored selection records this.
+    let mut selection = args.selection.clone();
+    selection.keep_empty = true;
+    let prepared = prepare(store, &selection)?;
     let spec = args.spec(args.run.seed());
     let outcome = spec.run(&prepared, &Progress::new("impact"))?;
     for n in &outcome.notes[prepared.notes.len().min(outcome.notes.len())..] {

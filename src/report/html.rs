@@ -547,16 +547,19 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
                         fnum(size.ci_high, 3)
                     ),
                     fmt_p(size.p_value, size.permutations),
+                    esc(&v.scheme),
                 ],
                 vec![
                     format!("Composition (shape, {})", esc(shape.distance.name())),
                     format!("pseudo-F {}", fnum(Some(shape.pseudo_f), 3)),
                     fmt_p(shape.p_value, shape.permutations),
+                    esc(&v.scheme),
                 ],
                 vec![
                     "Spread of composition (dispersion)".into(),
                     String::new(),
                     fmt_p(shape.dispersion_p_value, shape.dispersion_permutations),
+                    esc(&v.scheme),
                 ],
                 vec![
                     format!(
@@ -566,13 +569,21 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
                     ),
                     format!("pseudo-F {}", fnum(Some(comb.pseudo_f), 3)),
                     fmt_p(comb.p_value, comb.permutations),
+                    esc(&v.scheme),
                 ],
             ];
             out.push_str(&table(
-                &["Test", "Effect", "p-value"],
+                &["Test", "Effect", "p-value", "Permutation scheme"],
                 &rows,
-                &[false, false, true],
+                &[false, false, true, false],
             ));
+            for line in super::text::design_lines(
+                &v.design,
+                &[size.smallest_possible_p.max(shape.smallest_possible_p)],
+                v.alpha,
+            ) {
+                out.push_str(&format!("<p>{}</p>\n", esc(&line)));
+            }
             if !v.comparisons.is_empty() {
                 let rows: Vec<Vec<String>> = v
                     .comparisons
