@@ -742,12 +742,7 @@ impl Analysis for Spec {
     }
 
     fn run(&self, prepared: &Prepared, progress: &dyn Progress) -> Result<Outcome> {
-        if !(self.alpha > 0.0 && self.alpha < 1.0) {
-            return Err(WorkflowError::Invalid {
-                option: "--alpha",
-                reason: format!("must be between 0 and 1, got {}", self.alpha),
-            });
-        }
+        design::check_alpha(self.alpha)?;
         let mut notes = prepared.notes.clone();
         let with_periods;
         let m = match &self.periods {
@@ -801,15 +796,7 @@ impl Analysis for Spec {
 
         // (b) The shape dissimilarity, after rarefying if asked.
         let (shape, rarefied) = self.shape_distances(m, per_effort, &totals, &mut notes)?;
-        let (counts, effort): (Vec<f64>, Vec<f64>) = if per_effort {
-            totals
-                .iter()
-                .zip(&m.samples)
-                .map(|(t, s)| (t * s.effort, s.effort))
-                .unzip()
-        } else {
-            totals.iter().map(|&t| (t, 1.0)).unzip()
-        };
+        let (counts, effort) = design::counts_and_effort(m, per_effort);
         let clusters = matches!(chosen.permute, "whole-sites" | "within-sites")
             .then(|| design::site_codes(m).0);
         let ctx = Ctx {

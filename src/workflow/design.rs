@@ -64,6 +64,37 @@ pub fn covariates(
     Ok(out)
 }
 
+/// Row totals as counts and their effort, for the log-linear count model: with
+/// `per_effort` the matrix holds totals per unit effort, so the counts are the totals
+/// times the rows' effort; otherwise the totals themselves, each with effort 1.
+pub fn counts_and_effort(m: &CountMatrix, per_effort: bool) -> (Vec<f64>, Vec<f64>) {
+    let totals = m.totals();
+    if per_effort {
+        totals
+            .iter()
+            .zip(&m.samples)
+            .map(|(t, s)| (t * s.effort, s.effort))
+            .unzip()
+    } else {
+        totals.iter().map(|&t| (t, 1.0)).unzip()
+    }
+}
+
+/// The significance level of a verdict's wording (`--alpha`), strictly between 0 and 1.
+///
+/// # Errors
+/// [`WorkflowError::Invalid`] otherwise.
+pub fn check_alpha(alpha: f64) -> Result<()> {
+    if alpha > 0.0 && alpha < 1.0 {
+        Ok(())
+    } else {
+        Err(WorkflowError::Invalid {
+            option: "--alpha",
+            reason: format!("must be between 0 and 1, got {alpha}"),
+        })
+    }
+}
+
 /// How the rows of a selection are exchanged in a permutation test (`--permute`;
 /// docs/methods.md, "Permutation designs for revisited sites").
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]

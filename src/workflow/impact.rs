@@ -101,12 +101,7 @@ impl Analysis for Spec {
     }
 
     fn run(&self, prepared: &Prepared, progress: &dyn Progress) -> Result<Outcome> {
-        if !(self.alpha > 0.0 && self.alpha < 1.0) {
-            return Err(WorkflowError::Invalid {
-                option: "--alpha",
-                reason: format!("must be between 0 and 1, got {}", self.alpha),
-            });
-        }
+        design::check_alpha(self.alpha)?;
         let (b, a) = (self.before, self.after);
         if b.0 > b.1 || a.0 > a.1 || !(b.1 < a.0 || a.1 < b.0) {
             return Err(WorkflowError::Invalid {
@@ -237,15 +232,7 @@ impl Analysis for Spec {
         let after: Vec<bool> = m.samples.iter().map(|s| after_of(s.year)).collect();
         let per_effort = prepared.selection.per_effort;
         let totals = m.totals();
-        let (counts, effort): (Vec<f64>, Vec<f64>) = if per_effort {
-            totals
-                .iter()
-                .zip(&m.samples)
-                .map(|(t, s)| (t * s.effort, s.effort))
-                .unzip()
-        } else {
-            totals.iter().map(|&t| (t, 1.0)).unzip()
-        };
+        let (counts, effort) = design::counts_and_effort(&m, per_effort);
         let opts = BaciOptions {
             permutations: self.permutations,
             seed: self.seed,
