@@ -128,13 +128,19 @@ pub struct Permuter {
     units: Vec<Unit>,
     scheme: Scheme,
     relabel: bool,
+    /// Two labels, and every unit holds as many slots of one as of the other: each
+    /// arrangement has a mirror (the labels swapped) that is also an arrangement.
+    mirrored: bool,
 }
 
 impl Permuter {
     /// A permuter for `n` samples. `labels` (optional, one per sample) are the group
     /// labels of a one-way design: rearrangements that only swap samples with equal
     /// labels give the same statistic, so they count once when deciding whether exact
-    /// enumeration fits (docs/methods.md, "Permutation schemes and p-values").
+    /// enumeration fits (docs/methods.md, "Permutation schemes and p-values"). A
+    /// statistic tested with labels must not depend on which group is called which
+    /// (as every F-type statistic): with two balanced labels the smallest exact
+    /// p-value is then 2/N ([`Permuter::mirrored`]).
     ///
     /// # Errors
     /// [`AnalysisError::DimensionMismatch`] when strata/blocks/labels are not of length n;
@@ -231,12 +237,32 @@ impl Permuter {
                 }]
             }
         };
+        let mirrored = !matches!(scheme, Scheme::WholeBlocks(_))
+            && labels.is_some_and(|l| {
+                let mut d = l.to_vec();
+                d.sort_unstable();
+                d.dedup();
+                d.len() == 2
+                    && units.iter().all(|u| {
+                        let a = u.keys.iter().filter(|&&k| k == d[0]).count();
+                        2 * a == u.keys.len()
+                    })
+            });
         Ok(Permuter {
             n,
             units,
             scheme: scheme.clone(),
             relabel,
+            mirrored,
         })
+    }
+
+    /// True when the arrangements come in mirror pairs (two labels, swapped): a
+    /// statistic that does not depend on which group is called which (every one-way
+    /// statistic here) takes equal values on both, so an exact p-value is at least
+    /// 2/N.
+    pub fn mirrored(&self) -> bool {
+        self.mirrored
     }
 
     /// True when permutations are label sources rather than bijections (whole sites of
@@ -521,7 +547,9 @@ pub fn permutation_test(
         (total, counts.iter().sum::<usize>())
     };
     let (p_value, min_p) = if exact {
-        (exceed as f64 / total as f64, 1.0 / total as f64)
+        // With mirrored arrangements the observed one and its mirror both count.
+        let least = if permuter.mirrored { 2.0 } else { 1.0 };
+        (exceed as f64 / total as f64, least / total as f64)
     } else {
         (
             (exceed + 1) as f64 / (total + 1) as f64,

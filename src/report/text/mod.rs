@@ -60,12 +60,11 @@ pub fn design_lines(
         ));
         if p > alpha {
             out.push(format!(
-                "{}: this design cannot reach p ≤ {alpha}: the smallest possible p-value is {} \
-                 ({} arrangements); a p-value above {alpha} here says nothing about the effect. \
-                 More sites (or years) are needed for a verdict",
+                "{}: this design cannot reach p ≤ {alpha}: the smallest possible p-value is {}; \
+                 a p-value above {alpha} here says nothing about the effect. More sites (or \
+                 years) are needed for a verdict",
                 t.term,
                 crate::report::format::fmt_num(p),
-                (1.0 / p).round()
             ));
         }
     }
