@@ -149,12 +149,7 @@ pub fn size_test(
             found: groups.n(),
         });
     }
-    if let Some(row) = totals.iter().position(|t| !t.is_finite()) {
-        return Err(AnalysisError::NonFinite { row, col: 0 });
-    }
-    if let Some(row) = totals.iter().position(|&t| t < 0.0) {
-        return Err(AnalysisError::Negative { row, col: 0 });
-    }
+    check_totals(totals)?;
     let empty: Vec<usize> = (0..n).filter(|&i| totals[i] == 0.0).collect();
     if !empty.is_empty() {
         return Err(AnalysisError::EmptySamples { rows: empty });
@@ -216,12 +211,7 @@ pub fn rate_test(
             },
         });
     }
-    if let Some(row) = counts.iter().position(|t| !t.is_finite()) {
-        return Err(AnalysisError::NonFinite { row, col: 0 });
-    }
-    if let Some(row) = counts.iter().position(|&t| t < 0.0) {
-        return Err(AnalysisError::Negative { row, col: 0 });
-    }
+    check_totals(counts)?;
     if let Some(row) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
         return Err(AnalysisError::InvalidArgument {
             name: "effort",
@@ -305,6 +295,17 @@ fn rate_f(y: &[f64], e: &[f64], codes: &[usize], a: usize) -> f64 {
         })
         .sum();
     (dev / (a - 1) as f64) / (chi2 / (n - a) as f64)
+}
+
+/// Totals must be finite and not negative (row, column 0 in the error).
+fn check_totals(totals: &[f64]) -> Result<(), AnalysisError> {
+    if let Some(row) = totals.iter().position(|t| !t.is_finite()) {
+        return Err(AnalysisError::NonFinite { row, col: 0 });
+    }
+    if let Some(row) = totals.iter().position(|&t| t < 0.0) {
+        return Err(AnalysisError::Negative { row, col: 0 });
+    }
+    Ok(())
 }
 
 /// The checks every size model shares: at least two groups, residual df, a valid

@@ -336,48 +336,20 @@ fn varies_within(strata: &[usize], values: &[usize]) -> bool {
         .any(|(s, v)| *first.entry(*s).or_insert(*v) != *v)
 }
 
-/// The exchangeability scheme: free without `strata`, otherwise samples move
-/// only within the levels of the `strata` field.
-///
-/// When a factor is under test (`factor`), the strata must leave it room to
-/// vary: a stratum field equal to the factor, or one in which every stratum
-/// holds a single level of the factor, admits only the observed arrangement,
-/// so its p-value would be 1 whatever the data. Both are refused.
+/// The exchangeability scheme of a test without a tested factor (the partition's
+/// fractions): free without `strata`, otherwise samples move only within the levels
+/// of the `strata` field. Tests of a factor or covariate take their scheme from
+/// [`term_scheme`], which also refuses strata that leave the term no room to vary.
 ///
 /// # Errors
-/// As [`grouping`]; [`WorkflowError::StrataIsFactor`]; [`WorkflowError::Refused`]
-/// when the factor cannot vary within any stratum.
-pub fn scheme(m: &CountMatrix, strata: Option<&str>, factor: Option<&str>) -> Result<Scheme> {
-    let Some(f) = strata else {
-        return Ok(Scheme::Free);
-    };
-    if Some(f) == factor {
-        return Err(WorkflowError::StrataIsFactor {
-            field: f.to_string(),
-        });
+/// As [`grouping`].
+pub fn scheme(m: &CountMatrix, strata: Option<&str>) -> Result<Scheme> {
+    match strata {
+        None => Ok(Scheme::Free),
+        Some(f) => Ok(Scheme::WithinStrata(
+            grouping(m, f, "--strata")?.codes().to_vec(),
+        )),
     }
-    let s = grouping(m, f, "--strata")?;
-    if let Some(by) = factor {
-        let g = grouping(m, by, "--by")?;
-        let varies = (0..s.n_groups()).any(|k| {
-            let mut levels = s
-                .codes()
-                .iter()
-                .zip(g.codes())
-                .filter(|(sc, _)| **sc == k)
-                .map(|(_, gc)| *gc);
-            let first = levels.next();
-            levels.any(|l| Some(l) != first)
-        });
-        if !varies {
-            return Err(WorkflowError::Refused(format!(
-                "--strata {f}: every stratum holds a single level of {by}, so permutations \
-                 within strata cannot change any sample's group and the test has one possible \
-                 arrangement; drop --strata {f}, or test {by} with a scheme that moves whole {f} units"
-            )));
-        }
-    }
-    Ok(Scheme::WithinStrata(s.codes().to_vec()))
 }
 
 /// A dissimilarity and the transform applied before it.
@@ -601,10 +573,20 @@ mod tests {
             ("B", "fenced"),
             ("B", "fenced"),
         ]);
-        let err = scheme(&m, Some("site"), Some("treatment")).unwrap_err();
+        let tested = |m: &CountMatrix, permute: PermuteDesign, strata: Option<&str>| {
+            let values = m.field_values("treatment").unwrap();
+            term_scheme(m, permute, strata, "treatment", &values).map(|t| t.scheme)
+        };
+        let err = tested(&m, PermuteDesign::Auto, Some("site")).unwrap_err();
         assert!(err.to_string().contains("one possible"), "{err}");
         assert!(matches!(
-            scheme(&m, Some("treatment"), Some("treatment")),
+            term_scheme(
+                &m,
+                PermuteDesign::Auto,
+                Some("treatment"),
+                "treatment",
+                &[0, 0, 1, 1]
+            ),
             Err(WorkflowError::StrataIsFactor { .. })
         ));
         // A factor that varies within at least one stratum can be tested.
@@ -615,12 +597,12 @@ mod tests {
             ("B", "fenced"),
         ]);
         assert!(matches!(
-            scheme(&m, Some("site"), Some("treatment")),
+            tested(&m, PermuteDesign::Auto, Some("site")),
             Ok(Scheme::WithinStrata(_))
         ));
-        assert_eq!(scheme(&m, None, Some("treatment")).unwrap(), Scheme::Free);
+        assert_eq!(tested(&m, PermuteDesign::Free, None).unwrap(), Scheme::Free);
         assert!(matches!(
-            scheme(&m, Some("reach"), None),
+            scheme(&m, Some("reach")),
             Err(WorkflowError::Field {
                 option: "--strata",
                 ..

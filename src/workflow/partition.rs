@@ -325,7 +325,7 @@ impl Analysis for Spec {
             },
             permutations: self.permutations,
             seed: self.seed,
-            scheme: design::scheme(m, self.strata.as_deref(), None)?,
+            scheme: design::scheme(m, self.strata.as_deref())?,
         };
         progress.stage("partition");
         let cb = |done: usize, total: usize| progress.update(done, total);
