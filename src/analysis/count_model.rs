@@ -297,6 +297,74 @@ impl ScoreTest {
     }
 }
 
+impl ScoreTest {
+    /// The score test for candidate columns that depend on the row's group only,
+    /// `extra = A v` (A: rows × `k` group indicators from `codes`, v: one value per
+    /// group), reduced to `k`-vectors and `k × k` matrices: `U = v'(A'r)` and
+    /// `V = v'(diag(Σ w) − B B')v` with `B = A' sqrt(W) Q`. Each
+    /// [`GroupedScore::statistic`] then costs O(k²) whatever the number of rows
+    /// (the year permutations of a trend relabel whole years).
+    ///
+    /// # Panics
+    /// When `codes` does not have one entry per row or a code is `≥ k`.
+    pub fn grouped(&self, codes: &[usize], k: usize) -> GroupedScore {
+        assert_eq!(codes.len(), self.resid.len(), "codes have the wrong length");
+        let p = self.q.ncols();
+        let mut u = DVector::zeros(k);
+        let mut b: DMatrix<f64> = DMatrix::zeros(k, p);
+        let mut wsum = vec![0.0; k];
+        for (i, &c) in codes.iter().enumerate() {
+            u[c] += self.resid[i];
+            wsum[c] += self.sqrt_w[i] * self.sqrt_w[i];
+            for j in 0..p {
+                b[(c, j)] += self.sqrt_w[i] * self.q[(i, j)];
+            }
+        }
+        let mut v: DMatrix<f64> = -(&b * b.transpose());
+        for (j, w) in wsum.iter().enumerate() {
+            v[(j, j)] += w;
+        }
+        GroupedScore { u, v, wsum }
+    }
+}
+
+/// The score test of group-level columns ([`ScoreTest::grouped`]).
+#[derive(Debug, Clone)]
+pub struct GroupedScore {
+    /// `A'(y − mu)`.
+    u: DVector<f64>,
+    /// `A'WA − (A' sqrt(W) Q)(A' sqrt(W) Q)'`.
+    v: DMatrix<f64>,
+    /// Fitted weight of each group, `Σ mu` over its rows.
+    wsum: Vec<f64>,
+}
+
+impl GroupedScore {
+    /// `(U, V)` of the column `A v`; `None` when the column lies (numerically) in
+    /// the column space of the design (`V ≤ 1e-12 · Σ w v²`).
+    pub fn parts(&self, v: &[f64]) -> Option<(f64, f64)> {
+        assert_eq!(v.len(), self.u.len(), "one value per group");
+        let vv = DVector::from_column_slice(v);
+        let big_u = self.u.dot(&vv);
+        let big_v = (vv.transpose() * &self.v * &vv)[(0, 0)];
+        let scale: f64 = v.iter().zip(&self.wsum).map(|(a, w)| a * a * w).sum();
+        (big_v > 1e-12 * scale && big_v > 0.0).then_some((big_u, big_v))
+    }
+
+    /// Score statistic `U² / V` of the column `A v` (NaN when it adds nothing), equal
+    /// to [`ScoreTest::statistic`] of the expanded column.
+    pub fn statistic(&self, v: &[f64]) -> f64 {
+        self.parts(v).map_or(f64::NAN, |(u, w)| u * u / w)
+    }
+
+    /// The one-step (Fisher scoring) coefficient `U / V` of the column `A v` from the
+    /// fitted means: the change in its coefficient one IRLS step would make, starting
+    /// at 0. 0 when the column adds nothing.
+    pub fn one_step(&self, v: &[f64]) -> f64 {
+        self.parts(v).map_or(0.0, |(u, w)| u / w)
+    }
+}
+
 /// Sites (levels of `codes`) whose every count is zero: their site effect has no finite
 /// estimate, so callers drop them before fitting (they carry no information on ratios).
 ///
@@ -456,6 +524,36 @@ mod tests {
         // A column already in the design adds nothing.
         let first_site: Vec<f64> = (0..x.nrows()).map(|i| x[(i, 1)]).collect();
         assert!(test.statistic(&first_site).is_nan());
+    }
+
+    #[test]
+    fn grouped_score_equals_the_expanded_column() {
+        // Derived identity: for a column constant within groups, x = A v, the
+        // k-dimensional reduction gives the same U and V as the n-row formula.
+        let fx = fixture();
+        let case = &fx["cases"]["site_year"];
+        let (y, x, offset) = inputs(case);
+        let year = codes(&case["year"]);
+        let reduced = x.columns(0, x.ncols() - 1).into_owned();
+        let fit = poisson_glm(&y, &reduced, &offset).unwrap();
+        let test = ScoreTest::new(&y, &reduced, &fit);
+        let k = year.iter().max().unwrap() + 1;
+        let grouped = test.grouped(&year, k);
+        for v in [
+            (0..k).map(|j| j as f64).collect::<Vec<_>>(),
+            (0..k).map(|j| ((j * 7) % k) as f64).collect(),
+            (0..k).map(|j| f64::from(u8::from(j >= 4))).collect(),
+        ] {
+            let expanded: Vec<f64> = year.iter().map(|&c| v[c]).collect();
+            close(
+                grouped.statistic(&v),
+                test.statistic(&expanded),
+                "grouped score",
+            );
+        }
+        // A constant lies in the design.
+        assert!(grouped.statistic(&vec![2.0; k]).is_nan());
+        assert!(grouped.one_step(&vec![2.0; k]).abs() < 1e-15);
     }
 
     #[test]

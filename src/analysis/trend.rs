@@ -34,9 +34,11 @@ use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
 use super::DistanceMatrix;
+use super::count_model::{GroupedScore, PoissonFit, ScoreTest, all_zero_levels, poisson_glm};
 use super::gower::gower_centre;
 use super::linear_model::{Basis, Grouping};
 use super::permutation::{BLOCK, Permuter, Scheme, at_least, block_rng};
+use super::size_test::SizeModel;
 use super::{AnalysisError, prec};
 
 /// Which periods form the baseline.
@@ -93,6 +95,28 @@ pub struct TrendData<'a> {
     pub season: Option<&'a [usize]>,
     /// Site code of each sample.
     pub site: &'a [usize],
+    /// Every row's count and effort, rows that caught nothing included: when
+    /// given, size is the log-linear count model of these rows ([`CountData`])
+    /// and `log_abundance` only enters the size and shape parts of the combined
+    /// distance; when `None`, size is the geometric-mean model on `log_abundance`.
+    pub counts: Option<CountData<'a>>,
+}
+
+/// The rows of the count model of size: every row of the selection, rows that
+/// caught nothing included (they have no composition, so the shape inputs of
+/// [`TrendData`] leave them out).
+#[derive(Debug, Clone, Copy)]
+pub struct CountData<'a> {
+    /// Total count of each row.
+    pub count: &'a [f64],
+    /// Sampling effort of each row (the offset is its log).
+    pub effort: &'a [f64],
+    /// Year of each row.
+    pub year: &'a [i32],
+    /// Season code of each row (as [`TrendData::season`]).
+    pub season: Option<&'a [usize]>,
+    /// Site code of each row.
+    pub site: &'a [usize],
 }
 
 /// Summaries of one period.
@@ -135,10 +159,15 @@ pub struct PeriodResult {
     pub shape_part: Option<f64>,
 }
 
-/// The size trend: log abundance on year, site as a blocking factor.
+/// The size trend: abundance on year, site as a blocking factor.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SizeTrend {
-    /// OLS slope of ln(abundance) per year, given site.
+    /// The size model: the log-linear count model (`Rate`) or OLS of the log
+    /// totals (`Geometric`).
+    pub model: SizeModel,
+    /// Year coefficient per year, given site (and season): of the Poisson
+    /// log-linear model with log-effort offset (`Rate`), or the OLS slope of
+    /// ln(abundance) (`Geometric`).
     pub slope_log: f64,
     /// `100 (e^slope − 1)`: % change per year.
     pub slope_pct_per_year: f64,
@@ -147,9 +176,15 @@ pub struct SizeTrend {
     pub ci_low: f64,
     /// Upper end of that interval.
     pub ci_high: f64,
-    /// OLS standard error of the slope (treats samples as independent given site).
-    pub se_ols: f64,
-    /// Partial F of year given site.
+    /// Standard error of the slope from the model alone (treats samples as
+    /// independent given site): OLS (`Geometric`), or Poisson scaled by the
+    /// Pearson dispersion of the full model (quasi-Poisson, `Rate`).
+    pub se_log: f64,
+    /// Pearson dispersion `X² / df` of the full count model (`Rate` only).
+    pub dispersion: Option<f64>,
+    /// Partial F of year given site (`Geometric`); for `Rate`, the Rao score
+    /// statistic of year given site divided by the Pearson dispersion of the
+    /// reduced fit (a 1-df quasi-score F).
     pub pseudo_f: f64,
     /// Year-permutation p-value.
     pub p_value: f64,
@@ -267,6 +302,10 @@ pub struct TrendResult {
     pub seed: u64,
     /// Permutation scheme, described.
     pub scheme: String,
+    /// Smallest p-value the trend tests can give: `1/(P + 1)` for random
+    /// relabellings, `1/k!` (`2/k!` for equally spaced years, whose reversal
+    /// gives the same linear-trend statistic) under exact enumeration.
+    pub smallest_possible_p: f64,
     /// Plain-language notes.
     pub notes: Vec<String>,
 }
@@ -564,17 +603,286 @@ fn pct(b: f64) -> f64 {
     100.0 * (b.exp() - 1.0)
 }
 
+/// Pooled rate `Σy / Σe` of some rows and its 95 % interval: the ratio
+/// estimator's variance `n Σ (y_i − r e_i)² / ((n − 1)(Σe)²)` (Cochran 1977,
+/// *Sampling Techniques*, 3rd ed., section 6.4; from memory), carried to the log
+/// scale by the delta method with a t quantile on n − 1 df, so the interval stays
+/// positive. No interval for fewer than two rows or a rate of zero.
+fn rate_interval(y: &[f64], e: &[f64]) -> Result<(f64, Option<(f64, f64)>), AnalysisError> {
+    let n = y.len();
+    let sy: f64 = y.iter().sum();
+    let se: f64 = e.iter().sum();
+    let r = sy / se;
+    if n < 2 || prec::not_positive(r) {
+        return Ok((r, None));
+    }
+    let ss: f64 = y.iter().zip(e).map(|(a, b)| (a - r * b).powi(2)).sum();
+    let var = n as f64 / (n as f64 - 1.0) * ss / (se * se);
+    let half = t_quantile(0.975, (n - 1) as f64)? * var.sqrt() / r;
+    Ok((r, Some((r * (-half).exp(), r * half.exp()))))
+}
+
+/// Codes 0, 1, … in order of first appearance.
+fn recode(codes: &[usize]) -> Vec<usize> {
+    let mut seen: Vec<usize> = Vec::new();
+    codes
+        .iter()
+        .map(|c| {
+            seen.iter().position(|s| s == c).unwrap_or_else(|| {
+                seen.push(*c);
+                seen.len() - 1
+            })
+        })
+        .collect()
+}
+
+fn confounded() -> AnalysisError {
+    AnalysisError::InvalidArgument {
+        name: "year",
+        reason: "year is confounded with site: no site is sampled in two years".into(),
+    }
+}
+
+/// The size side of a trend: what every year relabelling needs.
+enum SizeSide {
+    /// OLS of ln(abundance) on year given site (and season).
+    Geometric {
+        model: YearModel,
+        q: DMatrix<f64>,
+        ry: DVector<f64>,
+        code: Vec<usize>,
+        /// `A'e`: full-model residuals summed per year.
+        ae: Vec<f64>,
+        slope: f64,
+        se: f64,
+    },
+    /// Poisson log-linear model `log mu = site + (season) + b·year + log effort`.
+    Rate {
+        /// Score test of year columns against the reduced fit.
+        reduced: GroupedScore,
+        /// Pearson dispersion of the reduced fit.
+        scale: f64,
+        /// One-step slopes from the full fit's residuals.
+        residual: GroupedScore,
+        fit: PoissonFit,
+        y: Vec<f64>,
+        x: DMatrix<f64>,
+        offset: Vec<f64>,
+        code: Vec<usize>,
+    },
+}
+
+impl SizeSide {
+    fn geometric(
+        log: &[f64],
+        reduced: &Basis,
+        code: &[usize],
+        k: usize,
+        yearv: &[f64],
+    ) -> Result<SizeSide, AnalysisError> {
+        let n = log.len();
+        let y = DVector::from_column_slice(log);
+        let g_size = &y * y.transpose();
+        let model = YearModel::new(&g_size, reduced, code, k)?;
+        let q = reduced.q().clone();
+        let ry = &y - &q * (q.transpose() * &y);
+        let x = DVector::from_fn(n, |i, _| yearv[code[i]]);
+        let rx = &x - &q * (q.transpose() * &x);
+        let xrx = rx.dot(&rx);
+        if prec::not_positive(xrx) {
+            return Err(confounded());
+        }
+        let slope = rx.dot(&ry) / xrx;
+        let e = &ry - &rx * slope;
+        let se = (e.dot(&e) / model.df_resid() as f64 / xrx).sqrt();
+        let mut ae = vec![0.0; k];
+        for i in 0..n {
+            ae[code[i]] += e[i];
+        }
+        Ok(SizeSide::Geometric {
+            model,
+            q,
+            ry,
+            code: code.to_vec(),
+            ae,
+            slope,
+            se,
+        })
+    }
+
+    /// The count model on every row of `c` (`code`: year index of each row) but
+    /// those of sites, then seasons, that caught nothing at all (their effects have
+    /// no finite estimate and they carry no information on change; noted).
+    fn rate(
+        c: &CountData<'_>,
+        code: &[usize],
+        k: usize,
+        yearv: &[f64],
+        notes: &mut Vec<String>,
+    ) -> Result<SizeSide, AnalysisError> {
+        let n_sites = c.site.iter().max().map_or(0, |m| m + 1);
+        let zero_sites = all_zero_levels(c.count, c.site, n_sites);
+        let mut keep: Vec<usize> = (0..c.count.len())
+            .filter(|&i| !zero_sites.contains(&c.site[i]))
+            .collect();
+        if !zero_sites.is_empty() {
+            notes.push(format!(
+                "{} site(s) caught nothing in any period: a site effect cannot be estimated \
+                 from zeros alone, and such a site says nothing about change, so its rows are \
+                 left out of the size trend",
+                zero_sites.len()
+            ));
+        }
+        if let Some(season) = c.season {
+            let ys: Vec<f64> = keep.iter().map(|&i| c.count[i]).collect();
+            let ss: Vec<usize> = keep.iter().map(|&i| season[i]).collect();
+            let n_seasons = ss.iter().max().map_or(0, |m| m + 1);
+            let zero = all_zero_levels(&ys, &ss, n_seasons);
+            if !zero.is_empty() {
+                keep.retain(|&i| !zero.contains(&season[i]));
+                notes.push(format!(
+                    "{} season(s) caught nothing in any year: left out of the size trend",
+                    zero.len()
+                ));
+            }
+        }
+        let y: Vec<f64> = keep.iter().map(|&i| c.count[i]).collect();
+        let offset: Vec<f64> = keep.iter().map(|&i| c.effort[i].ln()).collect();
+        let site = recode(&keep.iter().map(|&i| c.site[i]).collect::<Vec<_>>());
+        let season = c
+            .season
+            .map(|s| recode(&keep.iter().map(|&i| s[i]).collect::<Vec<_>>()));
+        let ycode: Vec<usize> = keep.iter().map(|&i| code[i]).collect();
+        let n = y.len();
+        let mut cols = vec![DMatrix::from_element(n, 1, 1.0)];
+        cols.push(Grouping::from_codes(&site).treatment_columns());
+        if let Some(s) = &season {
+            cols.push(Grouping::from_codes(s).treatment_columns());
+        }
+        let width: usize = cols.iter().map(DMatrix::ncols).sum();
+        let mut x = DMatrix::zeros(n, width);
+        let mut at = 0;
+        for m in &cols {
+            x.columns_mut(at, m.ncols()).copy_from(m);
+            at += m.ncols();
+        }
+        if n <= width + 1 {
+            return Err(AnalysisError::Saturated { rank: width + 1, n });
+        }
+        let fit_r = poisson_glm(&y, &x, &offset)?;
+        let reduced = ScoreTest::new(&y, &x, &fit_r).grouped(&ycode, k);
+        if reduced.parts(yearv).is_none() {
+            return Err(confounded());
+        }
+        let scale = fit_r.dispersion();
+        let scale = if scale.is_finite() && scale > 0.0 {
+            scale
+        } else {
+            1.0
+        };
+        let full = x.clone().insert_column(width, 0.0);
+        let mut full = full;
+        for i in 0..n {
+            full[(i, width)] = yearv[ycode[i]];
+        }
+        let fit = poisson_glm(&y, &full, &offset)?;
+        let residual = ScoreTest::new(&y, &x, &fit).grouped(&ycode, k);
+        Ok(SizeSide::Rate {
+            reduced,
+            scale,
+            residual,
+            fit,
+            y,
+            x,
+            offset,
+            code: ycode,
+        })
+    }
+
+    fn model(&self) -> SizeModel {
+        match self {
+            SizeSide::Geometric { .. } => SizeModel::Geometric,
+            SizeSide::Rate { .. } => SizeModel::Rate,
+        }
+    }
+
+    /// The test statistic of the year column `A v` (0 when it adds nothing).
+    fn statistic(&self, v: &[f64]) -> f64 {
+        match self {
+            SizeSide::Geometric { model, .. } => model.pseudo_f(v),
+            SizeSide::Rate { reduced, scale, .. } => {
+                let s = reduced.statistic(v);
+                if s.is_nan() { 0.0 } else { s / scale }
+            }
+        }
+    }
+
+    /// The slope of the year column `A v` refitted to the full model's residuals.
+    fn refitted_slope(&self, v: &[f64]) -> f64 {
+        match self {
+            SizeSide::Geometric { model, ae, .. } => {
+                let num: f64 = v.iter().zip(ae).map(|(a, b)| a * b).sum();
+                model.xrx(v).map_or(0.0, |d| num / d)
+            }
+            SizeSide::Rate { residual, .. } => residual.one_step(v),
+        }
+    }
+
+    /// `(slope, se, dispersion, df_resid)` of the observed year column.
+    fn estimate(&self) -> (f64, f64, Option<f64>, usize) {
+        match self {
+            SizeSide::Geometric {
+                slope, se, model, ..
+            } => (*slope, *se, None, model.df_resid()),
+            SizeSide::Rate { fit, .. } => {
+                let last = fit.coefficients.len() - 1;
+                (
+                    fit.coefficients[last],
+                    fit.scaled_std_errors()[last],
+                    Some(fit.dispersion()),
+                    fit.df_resid,
+                )
+            }
+        }
+    }
+
+    /// The log-scale effect of the year-level column `v` (a 0/1 step) given site.
+    fn effect(&self, v: &[f64]) -> Result<f64, AnalysisError> {
+        match self {
+            SizeSide::Geometric { q, ry, code, .. } => {
+                let xs = DVector::from_fn(code.len(), |i, _| v[code[i]]);
+                let rxs = &xs - q * (q.transpose() * &xs);
+                Ok(rxs.dot(ry) / rxs.dot(&rxs))
+            }
+            SizeSide::Rate {
+                y, x, offset, code, ..
+            } => {
+                let w = x.ncols();
+                let mut full = x.clone().insert_column(w, 0.0);
+                for i in 0..code.len() {
+                    full[(i, w)] = v[code[i]];
+                }
+                let fit = poisson_glm(y, &full, offset)?;
+                Ok(fit.coefficients[w])
+            }
+        }
+    }
+}
+
 // ------------------------------------------------------------------ the analysis
 
 /// The whole trend analysis of `data` (see the module documentation).
 ///
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`] when inputs disagree in length;
-/// [`AnalysisError::NonFinite`] for a non-finite log abundance;
+/// [`AnalysisError::NonFinite`] for a non-finite log abundance, count or effort;
+/// [`AnalysisError::Negative`] for a negative count;
 /// [`AnalysisError::TooFewGroups`] for fewer than 3 years (4 with a breakpoint
 /// search); [`AnalysisError::InvalidArgument`] for a baseline with no samples,
-/// a given breakpoint year without a year on each side, or alpha outside (0, 1);
-/// [`AnalysisError::Saturated`] when site (and season) leave no residual df.
+/// a given breakpoint year without a year on each side, a shape row whose year
+/// has no count row, non-positive effort, or alpha outside (0, 1);
+/// [`AnalysisError::Saturated`] when site (and season) leave no residual df;
+/// the count model's errors ([`poisson_glm`]).
 pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, AnalysisError> {
     let n = data.log_abundance.len();
     for len in [
@@ -594,15 +902,72 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
     if let Some(i) = data.log_abundance.iter().position(|v| !v.is_finite()) {
         return Err(AnalysisError::NonFinite { row: i, col: 0 });
     }
+    if let Some(c) = &data.counts {
+        let nc = c.count.len();
+        for len in [
+            c.effort.len(),
+            c.year.len(),
+            c.site.len(),
+            c.season.map_or(nc, <[usize]>::len),
+        ] {
+            if len != nc {
+                return Err(AnalysisError::DimensionMismatch {
+                    expected: nc,
+                    found: len,
+                });
+            }
+        }
+        if data.season.is_some() != c.season.is_some() {
+            return Err(AnalysisError::InvalidArgument {
+                name: "season",
+                reason: "the count rows and the shape rows must both have seasons or neither"
+                    .into(),
+            });
+        }
+        if let Some(i) = c.count.iter().position(|v| !v.is_finite()) {
+            return Err(AnalysisError::NonFinite { row: i, col: 0 });
+        }
+        if let Some(i) = c.count.iter().position(|v| *v < 0.0) {
+            return Err(AnalysisError::Negative { row: i, col: 0 });
+        }
+        if let Some(i) = c.effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
+            return Err(AnalysisError::InvalidArgument {
+                name: "effort",
+                reason: format!(
+                    "row {i} has effort {}: the count model needs positive effort",
+                    c.effort[i]
+                ),
+            });
+        }
+    }
     if !(opts.alpha > 0.0 && opts.alpha < 1.0) {
         return Err(AnalysisError::InvalidArgument {
             name: "alpha",
             reason: format!("must be between 0 and 1, got {}", opts.alpha),
         });
     }
-    let labels = YearLabels::new(data.year);
+    // The years are those of the count rows when given (the shape rows are a subset).
+    let size_year: &[i32] = data.counts.as_ref().map_or(data.year, |c| c.year);
+    let size_site: &[usize] = data.counts.as_ref().map_or(data.site, |c| c.site);
+    let size_season: Option<&[usize]> = match &data.counts {
+        Some(c) => c.season,
+        None => data.season,
+    };
+    let labels = YearLabels::new(size_year);
     let years = labels.years().to_vec();
     let k = years.len();
+    let shape_code: Vec<usize> = data
+        .year
+        .iter()
+        .map(|y| {
+            years
+                .binary_search(y)
+                .map_err(|_| AnalysisError::InvalidArgument {
+                    name: "year",
+                    reason: format!("a shape row's year {y} has no count row"),
+                })
+        })
+        .collect::<Result<_, _>>()?;
     let min_years = if opts.breakpoint == Some(BreakpointSpec::Auto) {
         4
     } else {
@@ -631,41 +996,56 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
             reason: "no samples fall in the baseline years".into(),
         });
     }
-    let in_baseline = |i: usize| baseline_years.contains(&data.year[i]);
 
     let g_shape = gower_centre(data.shape);
     let g_comb = gower_centre(data.combined);
 
-    // Periods.
-    let mut keys: Vec<(i32, Option<usize>)> = (0..n)
-        .map(|i| (data.year[i], data.season.map(|s| s[i])))
+    // Periods: those of the count rows (all rows), or of the shape rows.
+    let size_n = size_year.len();
+    let mut keys: Vec<(i32, Option<usize>)> = (0..size_n)
+        .map(|i| (size_year[i], size_season.map(|s| s[i])))
         .collect();
     keys.sort_unstable();
     keys.dedup();
-    let mut periods = Vec::with_capacity(keys.len());
-    let mut few = Vec::new();
-    for &(year, season) in &keys {
-        let members: Vec<usize> = (0..n)
-            .filter(|&i| data.year[i] == year && data.season.map(|s| s[i]) == season)
+    // Rows of a period, and its comparison group: the baseline rows of the same
+    // season, less the period's year.
+    let rows_of = |year_of: &[i32], season_of: Option<&[usize]>, key: (i32, Option<usize>)| {
+        let m = year_of.len();
+        let members: Vec<usize> = (0..m)
+            .filter(|&i| year_of[i] == key.0 && season_of.map(|s| s[i]) == key.1)
             .collect();
-        let reference: Vec<usize> = (0..n)
+        let reference: Vec<usize> = (0..m)
             .filter(|&i| {
-                in_baseline(i) && data.season.map(|s| s[i]) == season && data.year[i] != year
+                baseline_years.contains(&year_of[i])
+                    && season_of.map(|s| s[i]) == key.1
+                    && year_of[i] != key.0
             })
             .collect();
-        let mut sites: Vec<usize> = members.iter().map(|&i| data.site[i]).collect();
+        (members, reference)
+    };
+    let min = opts.min_samples.max(2);
+    let mut periods = Vec::with_capacity(keys.len());
+    let mut few = Vec::new();
+    let mut shape_few = 0usize;
+    let mut no_interval = 0usize;
+    for &(year, season) in &keys {
+        let (members, reference) = rows_of(data.year, data.season, (year, season));
+        let (size_members, size_reference) = match &data.counts {
+            Some(c) => rows_of(c.year, c.season, (year, season)),
+            None => (members.clone(), reference.clone()),
+        };
+        let mut sites: Vec<usize> = size_members.iter().map(|&i| size_site[i]).collect();
         sites.sort_unstable();
         sites.dedup();
-        let min = opts.min_samples.max(2);
-        let too_few = members.len() < min || reference.len() < min;
+        let too_few = size_members.len() < min || size_reference.len() < min;
         let mut p = PeriodResult {
             year,
             season,
-            n: members.len(),
+            n: size_members.len(),
             sites: sites.len(),
             baseline: baseline_years.contains(&year),
             too_few,
-            n_reference: reference.len(),
+            n_reference: size_reference.len(),
             abundance: None,
             ci_low: None,
             ci_high: None,
@@ -680,15 +1060,46 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
             periods.push(p);
             continue;
         }
-        let logs: Vec<f64> = members.iter().map(|&i| data.log_abundance[i]).collect();
-        let (m, sd) = mean_sd(&logs);
-        let half = t_quantile(0.975, (logs.len() - 1) as f64)? * sd / (logs.len() as f64).sqrt();
-        let ref_logs: Vec<f64> = reference.iter().map(|&i| data.log_abundance[i]).collect();
-        let (m_ref, _) = mean_sd(&ref_logs);
-        p.abundance = Some(m.exp());
-        p.ci_low = Some((m - half).exp());
-        p.ci_high = Some((m + half).exp());
-        p.change_pct = Some(pct(m - m_ref));
+        match &data.counts {
+            None => {
+                let logs: Vec<f64> = members.iter().map(|&i| data.log_abundance[i]).collect();
+                let (m, sd) = mean_sd(&logs);
+                let half =
+                    t_quantile(0.975, (logs.len() - 1) as f64)? * sd / (logs.len() as f64).sqrt();
+                let ref_logs: Vec<f64> = reference.iter().map(|&i| data.log_abundance[i]).collect();
+                let (m_ref, _) = mean_sd(&ref_logs);
+                p.abundance = Some(m.exp());
+                p.ci_low = Some((m - half).exp());
+                p.ci_high = Some((m + half).exp());
+                p.change_pct = Some(pct(m - m_ref));
+            }
+            Some(c) => {
+                let pick = |rows: &[usize], v: &[f64]| -> Vec<f64> {
+                    rows.iter().map(|&i| v[i]).collect()
+                };
+                let (r, ci) = rate_interval(
+                    &pick(&size_members, c.count),
+                    &pick(&size_members, c.effort),
+                )?;
+                let (r_ref, _) = rate_interval(
+                    &pick(&size_reference, c.count),
+                    &pick(&size_reference, c.effort),
+                )?;
+                p.abundance = Some(r);
+                if let Some((lo, hi)) = ci {
+                    p.ci_low = Some(lo);
+                    p.ci_high = Some(hi);
+                } else {
+                    no_interval += 1;
+                }
+                p.change_pct = (r_ref > 0.0).then(|| 100.0 * (r / r_ref - 1.0));
+            }
+        }
+        if members.len() < min || reference.len() < min {
+            shape_few += 1;
+            periods.push(p);
+            continue;
+        }
         p.shape_distance = Some(
             centroid_distance_sq(&g_shape, &members, &reference)
                 .max(0.0)
@@ -709,44 +1120,33 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
     }
     if !few.is_empty() {
         notes.push(format!(
-            "{} period(s) with fewer than {} samples (or a comparison group that small) are listed without summaries",
+            "{} period(s) with fewer than {min} samples (or a comparison group that small) are listed without summaries",
             few.len(),
-            opts.min_samples.max(2)
+        ));
+    }
+    if shape_few > 0 {
+        notes.push(format!(
+            "{shape_few} period(s) have fewer than {min} rows that caught anything (or a \
+             comparison group that small): their abundance is given, their composition \
+             summaries are not"
+        ));
+    }
+    if no_interval > 0 {
+        notes.push(format!(
+            "{no_interval} period(s) caught nothing: their rate is 0, with no interval"
         ));
     }
 
     // Trend tests.
     let reduced = reduced_basis(data.site, data.season)?;
-    let code = labels.codes();
-    let y = DVector::from_column_slice(data.log_abundance);
-    let g_size = &y * y.transpose();
-    let size_model = YearModel::new(&g_size, &reduced, code, k)?;
-    let shape_model = YearModel::new(&g_shape, &reduced, code, k)?;
+    let shape_model = YearModel::new(&g_shape, &reduced, &shape_code, k)?;
     // Years relative to the first (constants change nothing; avoids cancellation).
     let yearv: Vec<f64> = years.iter().map(|&y| f64::from(y - years[0])).collect();
+    let size = match &data.counts {
+        None => SizeSide::geometric(data.log_abundance, &reduced, &shape_code, k, &yearv)?,
+        Some(c) => SizeSide::rate(c, labels.codes(), k, &yearv, &mut notes)?,
+    };
     let (perms, exact) = year_permutations(k, opts.permutations, opts.seed)?;
-
-    // Size slope: b = x'Ry / x'Rx; full-model residuals e = Ry − b Rx.
-    let q = reduced.q();
-    let ry = &y - q * (q.transpose() * &y);
-    let x = DVector::from_fn(n, |i, _| yearv[code[i]]);
-    let rx = &x - q * (q.transpose() * &x);
-    let xrx = rx.dot(&rx);
-    if prec::not_positive(xrx) {
-        return Err(AnalysisError::InvalidArgument {
-            name: "year",
-            reason: "year is confounded with site: no site is sampled in two years".into(),
-        });
-    }
-    let slope = rx.dot(&ry) / xrx;
-    let e = &ry - &rx * slope;
-    let df_resid = size_model.df_resid();
-    let se_ols = (e.dot(&e) / df_resid as f64 / xrx).sqrt();
-    // A'e per year, for slopes refitted to residuals under each permutation.
-    let mut ae = vec![0.0; k];
-    for i in 0..n {
-        ae[code[i]] += e[i];
-    }
     let permuted =
         |perm: &[usize], values: &[f64]| -> Vec<f64> { perm.iter().map(|&j| values[j]).collect() };
     let mut f_size = Vec::with_capacity(perms.len());
@@ -754,21 +1154,23 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
     let mut slopes = Vec::with_capacity(perms.len());
     for perm in &perms {
         let v = permuted(perm, &yearv);
-        f_size.push(size_model.pseudo_f(&v));
+        f_size.push(size.statistic(&v));
         f_shape.push(shape_model.pseudo_f(&v));
-        let num: f64 = v.iter().zip(&ae).map(|(a, b)| a * b).sum();
-        slopes.push(size_model.xrx(&v).map_or(0.0, |d| num / d));
+        slopes.push(size.refitted_slope(&v));
     }
-    let f_size_obs = size_model.pseudo_f(&yearv);
+    let f_size_obs = size.statistic(&yearv);
     let f_shape_obs = shape_model.pseudo_f(&yearv);
     slopes.sort_by(f64::total_cmp);
     let (lo, hi) = (quantile(&slopes, 0.025), quantile(&slopes, 0.975));
+    let (slope, se_log, dispersion, df_resid) = size.estimate();
     let size_trend = SizeTrend {
+        model: size.model(),
         slope_log: slope,
         slope_pct_per_year: pct(slope),
         ci_low: pct(slope - hi),
         ci_high: pct(slope - lo),
-        se_ols,
+        se_log,
+        dispersion,
         pseudo_f: f_size_obs,
         p_value: p_value(f_size_obs, &f_size, exact),
         df_resid,
@@ -807,10 +1209,10 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
                     .collect()
             };
             let identity: Vec<usize> = (0..k).collect();
-            let search = |model: &YearModel| -> (usize, f64, Vec<f64>) {
+            let search = |stat: &dyn Fn(&[f64]) -> f64| -> (usize, f64, Vec<f64>) {
                 let (mut best, mut best_f) = (candidates[0], f64::NEG_INFINITY);
                 for &j in &candidates {
-                    let f = model.pseudo_f(&step(&identity, j));
+                    let f = stat(&step(&identity, j));
                     if f > best_f {
                         best = j;
                         best_f = f;
@@ -821,19 +1223,15 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
                     .map(|perm| {
                         candidates
                             .iter()
-                            .map(|&j| model.pseudo_f(&step(perm, j)))
+                            .map(|&j| stat(&step(perm, j)))
                             .fold(f64::NEG_INFINITY, f64::max)
                     })
                     .collect();
                 (best, best_f, maxes)
             };
-            let (js, fs, ms) = search(&size_model);
-            let (jh, fh, mh) = search(&shape_model);
-            // Step effect on the log scale: b = x'Ry / x'Rx with x the step.
-            let sv = step(&identity, js);
-            let xs = DVector::from_fn(n, |i, _| sv[code[i]]);
-            let rxs = &xs - q * (q.transpose() * &xs);
-            let b_step = rxs.dot(&ry) / rxs.dot(&rxs);
+            let (js, fs, ms) = search(&|v| size.statistic(v));
+            let (jh, fh, mh) = search(&|v| shape_model.pseudo_f(v));
+            let b_step = size.effect(&step(&identity, js))?;
             let hv = step(&identity, jh);
             Some(Breakpoints {
                 size: BreakpointResult {
@@ -865,7 +1263,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
         size_decision_p <= opts.alpha,
         shape_decision_p <= opts.alpha,
     );
-    let mut sites: Vec<usize> = data.site.to_vec();
+    let mut sites: Vec<usize> = size_site.to_vec();
     sites.sort_unstable();
     sites.dedup();
     let scheme = format!(
@@ -876,8 +1274,17 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
             ""
         }
     );
+    // Equally spaced years: the reversed relabelling gives the same linear-trend
+    // statistic, so an exact p is at least 2/k!.
+    let mirrored =
+        (0..k).all(|j| (yearv[j] + yearv[k - 1 - j] - (yearv[0] + yearv[k - 1])).abs() < 1e-9);
+    let smallest_possible_p = if exact {
+        (if mirrored { 2.0 } else { 1.0 }) / perms.len() as f64
+    } else {
+        1.0 / (perms.len() + 1) as f64
+    };
     Ok(TrendResult {
-        n,
+        n: size_n,
         years,
         sites: sites.len(),
         baseline_years,
@@ -893,6 +1300,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
         exact,
         seed: opts.seed,
         scheme,
+        smallest_possible_p,
         notes,
     })
 }
@@ -1067,6 +1475,114 @@ mod tests {
     }
 
     #[test]
+    fn rate_slope_matches_statsmodels_poisson_glm_with_zero_catches() {
+        // statsmodels GLM(Poisson, offset = log effort) of y on site + centred year,
+        // tests/reference/count_model.json case site_year (zeros at the rare site).
+        let fx: Value =
+            serde_json::from_str(include_str!("../../tests/reference/count_model.json")).unwrap();
+        let c = &fx["cases"]["site_year"];
+        let floats = |v: &Value| -> Vec<f64> {
+            v.as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_f64().unwrap())
+                .collect()
+        };
+        let y = floats(&c["y"]);
+        let effort = floats(&c["effort"]);
+        let site: Vec<usize> = floats(&c["codes"]).iter().map(|&v| v as usize).collect();
+        let year: Vec<i32> = floats(&c["year"])
+            .iter()
+            .map(|&v| 2000 + v as i32)
+            .collect();
+        assert!(y.iter().filter(|&&v| v == 0.0).count() >= 2);
+        let keep: Vec<usize> = (0..y.len()).filter(|&i| y[i] > 0.0).collect();
+        let logs: Vec<f64> = keep.iter().map(|&i| (y[i] / effort[i]).ln()).collect();
+        let d = univariate(&logs);
+        let sy: Vec<i32> = keep.iter().map(|&i| year[i]).collect();
+        let ss: Vec<usize> = keep.iter().map(|&i| site[i]).collect();
+        let data = TrendData {
+            log_abundance: &logs,
+            shape: &d,
+            combined: &d,
+            year: &sy,
+            season: None,
+            site: &ss,
+            counts: Some(CountData {
+                count: &y,
+                effort: &effort,
+                year: &year,
+                season: None,
+                site: &site,
+            }),
+        };
+        let r = trend(&data, &opts(99, 3)).unwrap();
+        let params = floats(&c["params"]);
+        let want = params[params.len() - 1];
+        let s = &r.size_trend;
+        assert_eq!(s.model, SizeModel::Rate);
+        assert!(
+            (s.slope_log - want).abs() < 1e-7,
+            "{} vs {want}",
+            s.slope_log
+        );
+        assert!((s.slope_pct_per_year - 100.0 * want.exp_m1()).abs() < 1e-5);
+        // statsmodels fit(scale="X2") standard error of the year coefficient
+        let bse = floats(&c["bse_x2"]);
+        assert!((s.se_log - bse[bse.len() - 1]).abs() < 1e-7);
+        assert_eq!(s.df_resid, c["df_resid"].as_u64().unwrap() as usize);
+        // Every row counts, the empty ones included.
+        assert_eq!(r.n, y.len());
+        assert!(s.ci_low < s.slope_pct_per_year && s.slope_pct_per_year < s.ci_high);
+        assert!(s.p_value >= r.smallest_possible_p);
+        // A site that caught nothing at all is left out, with a note, and changes nothing.
+        let mut y2 = y.clone();
+        let mut effort2 = effort.clone();
+        let mut year2 = year.clone();
+        let mut site2 = site.clone();
+        for (i, yr) in (2000..2010).enumerate() {
+            y2.push(0.0);
+            effort2.push(1.0 + i as f64 * 0.1);
+            year2.push(yr);
+            site2.push(9);
+        }
+        let data2 = TrendData {
+            counts: Some(CountData {
+                count: &y2,
+                effort: &effort2,
+                year: &year2,
+                season: None,
+                site: &site2,
+            }),
+            ..data
+        };
+        let r2 = trend(&data2, &opts(99, 3)).unwrap();
+        assert!((r2.size_trend.slope_log - want).abs() < 1e-7);
+        assert!(
+            r2.notes
+                .iter()
+                .any(|n| n.contains("caught nothing in any period"))
+        );
+    }
+
+    #[test]
+    fn pooled_rate_interval_is_the_ratio_estimator() {
+        // Worked by hand: y = (2, 0, 4), e = (1, 1, 2): r = 6/4 = 1.5,
+        // residuals (0.5, −1.5, 1.0), Σd² = 3.5, var = 3 · 3.5 / (2 · 16).
+        let (r, ci) = rate_interval(&[2.0, 0.0, 4.0], &[1.0, 1.0, 2.0]).unwrap();
+        assert!((r - 1.5).abs() < 1e-15);
+        let se = (3.0 * 3.5 / 32.0_f64).sqrt();
+        let half = t_quantile(0.975, 2.0).unwrap() * se / 1.5;
+        let (lo, hi) = ci.unwrap();
+        assert!((lo - 1.5 * (-half).exp()).abs() < 1e-12);
+        assert!((hi - 1.5 * half.exp()).abs() < 1e-12);
+        assert_eq!(
+            rate_interval(&[0.0, 0.0], &[1.0, 1.0]).unwrap(),
+            (0.0, None)
+        );
+    }
+
+    #[test]
     fn size_slope_matches_statsmodels_ols() {
         let fx = fixture();
         let o = &fx["ols"];
@@ -1097,12 +1613,13 @@ mod tests {
             year: &year,
             season: None,
             site: &site,
+            counts: None,
         };
         let r = trend(&data, &opts(99, 1)).unwrap();
         // statsmodels OLS y ~ C(site) + year (make_trend_fixtures.py)
         let s = &r.size_trend;
         assert!((s.slope_log - o["slope"].as_f64().unwrap()).abs() < 1e-10);
-        assert!((s.se_ols - o["se"].as_f64().unwrap()).abs() < 1e-10);
+        assert!((s.se_log - o["se"].as_f64().unwrap()).abs() < 1e-10);
         assert_eq!(s.df_resid as u64, o["df_resid"].as_u64().unwrap());
         // anova_lm(reduced, full) F of year given site
         let f = o["f_year_given_site"].as_f64().unwrap();
@@ -1245,6 +1762,7 @@ mod tests {
             year: &year,
             season: None,
             site: &site,
+            counts: None,
         };
         let r = trend(&data, &opts(99, 4)).unwrap();
         assert_eq!(r.periods.len(), 6);
@@ -1409,6 +1927,7 @@ mod tests {
             year: &year,
             season: None,
             site: &site,
+            counts: None,
         };
         let mut o = opts(199, seed + 1000);
         o.breakpoint = bp;

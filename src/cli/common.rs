@@ -8,6 +8,7 @@ use clap::Args;
 use clap::builder::TypedValueParser;
 
 use crate::analysis::dissimilarity::Distance;
+use crate::analysis::size_test::SizeModel;
 use crate::analysis::transform::Transform;
 use crate::report::text::Render;
 use crate::store::Store;
@@ -29,8 +30,19 @@ pub struct DesignArgs {
     pub strata: Option<String>,
 }
 
+/// clap's parser of `--size-model`.
+pub fn parse_size_model(s: &str) -> Result<SizeModel, String> {
+    match s {
+        "rate" => Ok(SizeModel::Rate),
+        "geometric" => Ok(SizeModel::Geometric),
+        other => Err(format!(
+            "unknown size model '{other}': use rate or geometric"
+        )),
+    }
+}
+
 /// clap's parser of `--permute`.
-fn parse_permute(s: &str) -> Result<PermuteDesign, String> {
+pub fn parse_permute(s: &str) -> Result<PermuteDesign, String> {
     s.parse()
 }
 

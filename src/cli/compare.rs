@@ -9,7 +9,7 @@ use std::io::Write;
 use super::common::{
     DesignArgs, Progress, RunArgs, distance_parser, finish, shape_distance_parser,
 };
-use super::common::{Periods, parse_periods, transform_parser};
+use super::common::{Periods, parse_periods, parse_size_model, transform_parser};
 use super::note;
 use super::selection::{SelectionArgs, prepare};
 use crate::analysis::size_test::SizeModel;
@@ -92,17 +92,6 @@ impl Args {
             bootstrap: BOOTSTRAP,
             seed,
         }
-    }
-}
-
-/// clap's parser of `--size-model`.
-fn parse_size_model(s: &str) -> Result<SizeModel, String> {
-    match s {
-        "rate" => Ok(SizeModel::Rate),
-        "geometric" => Ok(SizeModel::Geometric),
-        other => Err(format!(
-            "unknown size model '{other}': use rate or geometric"
-        )),
     }
 }
 

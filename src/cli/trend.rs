@@ -10,15 +10,17 @@ use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 
 use super::FormatArg;
 use super::common::{
-    Progress, RunArgs, distance_parser, finish, shape_distance_parser, transform_parser,
+    Progress, RunArgs, distance_parser, finish, parse_permute, parse_size_model,
+    shape_distance_parser, transform_parser,
 };
 use super::selection::SelectionArgs;
 use crate::analysis::dissimilarity::Distance;
+use crate::analysis::size_test::SizeModel;
 use crate::analysis::transform::Transform;
 use crate::analysis::trend::BreakpointSpec;
 use crate::report::text::Render;
 use crate::store::Store;
-use crate::workflow::design::{DistanceSpec, ShapeDistance, parse_years};
+use crate::workflow::design::{DistanceSpec, PermuteDesign, ShapeDistance, parse_years};
 use crate::workflow::trend::{self, DEFAULT_ALPHA, DEFAULT_MIN_SAMPLES, Every, Spec};
 use crate::workflow::{self, Analysis, Outcome, runs};
 
@@ -66,6 +68,14 @@ pub struct Args {
     /// Periods (and baselines) with fewer samples are listed without summaries.
     #[arg(long, value_name = "N", default_value_t = DEFAULT_MIN_SAMPLES)]
     pub min_samples: usize,
+    /// How size is modelled: rate (counts with effort as an offset; rows that
+    /// caught nothing count) or geometric (log totals; strictly positive only).
+    #[arg(long, value_name = "MODEL", default_value = "rate", value_parser = parse_size_model)]
+    pub size_model: SizeModel,
+    /// How the year test permutes: auto or within-sites (whole years relabelled
+    /// across all sites at once); free and whole-sites are refused with the reason.
+    #[arg(long, value_name = "DESIGN", default_value = "auto", value_parser = parse_permute)]
+    pub permute: PermuteDesign,
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
@@ -89,6 +99,8 @@ impl Args {
                 transform: self.transform,
             },
             min_samples: self.min_samples,
+            size_model: self.size_model,
+            scheme: self.permute,
             permutations: self.run.permutations,
             seed,
         }
@@ -111,23 +123,22 @@ fn notes(group: Option<&str>, notes: &[String]) {
 /// Selection, assembly and field errors; a split field that cannot be a
 /// selection; analysis refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    let spec = args.spec(args.run.seed());
     let sel = trend::resolve(
         store,
         args.selection.selection.as_deref(),
         &args.selection.explicit(),
-        args.every,
+        &spec,
     )
     .context("resolving the selection")?;
     let progress = Progress::new("trend");
     let Some(field) = &args.split_by else {
         let prepared = workflow::prepare(store, &sel)?;
-        let spec = args.spec(args.run.seed());
         let outcome = spec.run(&prepared, &progress)?;
         notes(None, outcome.notes());
         return finish(store, &args.run, &prepared, &spec, &outcome, out);
     };
     let parts = trend::split(store, &sel, field)?;
-    let spec = args.spec(args.run.seed());
     let split = spec.run_split(field, &parts, &progress)?;
     for g in &split.groups {
         notes(Some(&g.group), g.outcome.notes());

@@ -187,7 +187,7 @@ pub fn run(store: &Store) -> Result<Ran> {
     let prepared = prepare(store, &resolve(store, None, &sel)?)?;
     let outcome = spec.run(&prepared, &Silent)?;
     let (sel, t) = s.trends;
-    let base = resolve(store, None, &sel)?;
+    let base = trend::resolve(store, None, &sel, &t)?;
     let parts = trend::split(store, &base, SPLIT_BY)?;
     let split = t.run_split(SPLIT_BY, &parts, &Silent)?;
     let trends = Trends {

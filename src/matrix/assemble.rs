@@ -449,7 +449,7 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         let labels: Vec<&str> = empty.iter().map(|&i| rows[i].label.as_str()).collect();
         if opts.keep_empty {
             notes.push(format!(
-                "{} rows with no organisms kept (--keep-empty): {}",
+                "{} rows with no organisms kept (they caught nothing): {}",
                 empty.len(),
                 labels.join(", ")
             ));

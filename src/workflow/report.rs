@@ -257,15 +257,10 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
 /// --breakpoint auto` on the report's selection (rows pooled per site and year
 /// unless a unit is given), one run per group.
 fn trends(store: &Store, spec: &Spec, field: &str, progress: &dyn Progress) -> Result<Trends> {
-    let base = trend::resolve(
-        store,
-        spec.saved.as_deref(),
-        &spec.selection,
-        trend::Every::Year,
-    )?;
-    let parts = trend::split(store, &base, field)?;
     let mut t = trend::Spec::new(spec.permutations, spec.seed);
     t.breakpoint = Some(BreakpointSpec::Auto);
+    let base = trend::resolve(store, spec.saved.as_deref(), &spec.selection, &t)?;
+    let parts = trend::split(store, &base, field)?;
     let split = t.run_split(field, &parts, progress)?;
     Ok(Trends {
         field: field.to_string(),

@@ -22,15 +22,16 @@ use serde::{Deserialize, Serialize};
 
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::linear_model::Grouping;
+use crate::analysis::size_test::SizeModel;
 use crate::analysis::transform::Transform;
 use crate::analysis::trend::{
-    Baseline, BreakpointSpec, Diagnosis, ShapeTrend, TrendData, TrendOptions, trend,
+    Baseline, BreakpointSpec, CountData, Diagnosis, ShapeTrend, TrendData, TrendOptions, trend,
 };
 use crate::matrix::{BUILTIN_FIELDS, Unit};
 use crate::store::runs::SeriesPoint;
 use crate::store::{Selection, Store};
 
-use super::design::{DistanceSpec, ShapeDistance};
+use super::design::{self, DistanceSpec, PermuteDesign, ShapeDistance};
 use super::runs::ToSave;
 use super::{Analysis, Prepared, Progress, Result, WorkflowError, prepare};
 
@@ -44,8 +45,15 @@ pub const DEFAULT_MIN_SAMPLES: usize = 3;
 /// Baseline years unless given: the first this many years.
 pub const DEFAULT_BASELINE_YEARS: usize = 3;
 
-/// How the size-trend interval is obtained (stored with every outcome).
+/// How the size-trend interval is obtained under the geometric model (stored with every outcome).
 pub const CI_METHOD: &str = "2.5 and 97.5 % points of slopes refitted to full-model residuals under the same year permutations";
+/// How the size-trend interval is obtained under the rate model.
+pub const CI_METHOD_RATE: &str = "2.5 and 97.5 % points of one-step (Fisher scoring) year slopes from the full count model's residuals under the same year permutations";
+
+/// The size model of runs stored before the count model existed.
+fn geometric_before_rates() -> SizeModel {
+    SizeModel::Geometric
+}
 
 /// What one period is.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
@@ -119,6 +127,15 @@ pub struct Spec {
     pub distance: DistanceSpec,
     /// Periods (and baselines) with fewer samples are listed without summaries.
     pub min_samples: usize,
+    /// How size is modelled: counts with effort as an offset, rows that caught
+    /// nothing included (`rate`), or the log of strictly positive totals (`geometric`).
+    #[serde(default = "geometric_before_rates")]
+    pub size_model: SizeModel,
+    /// The permutation design: the year test relabels whole years across all sites
+    /// (a within-sites design); `auto` and `within-sites` choose it, `free` and
+    /// `whole-sites` are refused.
+    #[serde(default)]
+    pub scheme: PermuteDesign,
     /// Random year permutations (every arrangement when there are no more).
     pub permutations: usize,
     /// Seed of the permutation streams.
@@ -141,8 +158,31 @@ impl Spec {
                 transform: Transform::Sqrt,
             },
             min_samples: DEFAULT_MIN_SAMPLES,
+            size_model: SizeModel::Rate,
+            scheme: PermuteDesign::Auto,
             permutations,
             seed,
+        }
+    }
+
+    /// The one rule of `--permute` for a trend: years vary within sites, and the
+    /// year test relabels whole years across all sites at once.
+    fn check_scheme(&self) -> Result<()> {
+        match self.scheme {
+            PermuteDesign::Auto | PermuteDesign::WithinSites => Ok(()),
+            PermuteDesign::WholeSites => Err(WorkflowError::Refused(
+                "--permute whole-sites: year varies within every site, and moving whole sites \
+                 carries each site's years with it, so the year term could not change; test the \
+                 trend with --permute within-sites (or auto), which relabels whole years across \
+                 all sites"
+                    .into(),
+            )),
+            PermuteDesign::Free => Err(WorkflowError::Refused(
+                "--permute free: moving single site-years as if independent ignores the \
+                 year-to-year swings that all sites share; test the trend with --permute \
+                 within-sites (or auto), which relabels whole years across all sites"
+                    .into(),
+            )),
         }
     }
 
@@ -194,9 +234,12 @@ impl Spec {
     }
 }
 
-/// Size trend: log abundance on year given site.
+/// Size trend: abundance on year given site.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SizeTrend {
+    /// The size model (`rate`: Poisson log-linear count model with log-effort
+    /// offset; `geometric`: OLS of log totals).
+    pub model: SizeModel,
     /// `100 (e^slope − 1)`: % change per year.
     pub slope_pct_per_year: f64,
     /// Year-permutation p-value.
@@ -207,11 +250,19 @@ pub struct SizeTrend {
     pub ci_high: f64,
     /// How the interval is obtained ([`CI_METHOD`]).
     pub ci_method: &'static str,
-    /// OLS slope of ln(abundance) per year, given site.
+    /// Year coefficient on the log scale, given site (count model or OLS).
     pub slope_log: f64,
-    /// OLS standard error of that slope.
-    pub se_ols_log: f64,
-    /// Partial F of year given site.
+    /// OLS standard error of that slope (geometric model).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub se_ols_log: Option<f64>,
+    /// Quasi-Poisson standard error of that slope (rate model).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub se_quasi_log: Option<f64>,
+    /// Pearson dispersion of the full count model (rate model).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub dispersion: Option<f64>,
+    /// Partial F of year given site (geometric); the score statistic over the
+    /// reduced model's dispersion (rate).
     pub pseudo_f: f64,
     /// Residual degrees of freedom.
     pub df_resid: usize,
@@ -354,6 +405,8 @@ pub struct Outcome {
     pub seed: u64,
     /// Permutation scheme, described.
     pub scheme: String,
+    /// Smallest p-value the trend tests can give with these years and permutations.
+    pub smallest_possible_p: f64,
     /// The dissimilarities.
     pub distances: Distances,
     /// What one row is.
@@ -441,12 +494,27 @@ impl Analysis for Spec {
         if n == 0 {
             return Err(WorkflowError::Refused("no rows to analyse".into()));
         }
+        self.check_scheme()?;
         let totals = m.totals();
-        if let Some(i) = totals.iter().position(|t| t.is_nan() || *t <= 0.0) {
-            return Err(WorkflowError::Refused(format!(
-                "row {} has no organisms: ln(abundance) is undefined (leave out --keep-empty)",
-                m.samples[i].label
-            )));
+        let mut notes = prepared.notes.clone();
+        match self.size_model {
+            SizeModel::Geometric => {
+                if let Some(i) = totals.iter().position(|t| t.is_nan() || *t <= 0.0) {
+                    return Err(WorkflowError::Refused(format!(
+                        "row {} has no organisms: ln(abundance) is undefined under the geometric \
+                         model; use --size-model rate, which counts rows that caught nothing",
+                        m.samples[i].label
+                    )));
+                }
+            }
+            SizeModel::Rate if !prepared.selection.keep_empty => {
+                return Err(WorkflowError::Refused(
+                    "the rate model counts rows that caught nothing, but this selection leaves \
+                     them out; prepare it with --keep-empty (trend::resolve does)"
+                        .into(),
+                ));
+            }
+            SizeModel::Rate => {}
         }
         let mut year = Vec::with_capacity(n);
         for s in &m.samples {
@@ -486,20 +554,50 @@ impl Analysis for Spec {
         });
         let sites: Vec<&str> = m.samples.iter().map(|s| s.site.as_str()).collect();
         let site = Grouping::from_labels(&sites).codes().to_vec();
-        let logs: Vec<f64> = totals.iter().map(|t| t.ln()).collect();
+        // A row that caught nothing has no composition: it counts in the size trend
+        // and is left out of the shape trend and the composition summaries.
+        let keep: Vec<usize> = (0..n).filter(|&i| totals[i] > 0.0).collect();
+        if keep.len() < n {
+            let empty: Vec<&str> = (0..n)
+                .filter(|&i| totals[i] <= 0.0)
+                .map(|i| m.samples[i].label.as_str())
+                .collect();
+            notes.push(format!(
+                "{} row(s) caught nothing: they count in the size trend and are left out of the \
+                 shape trend and the composition summaries, which need a composition ({}{})",
+                empty.len(),
+                empty.iter().take(5).copied().collect::<Vec<_>>().join(", "),
+                if empty.len() > 5 { ", …" } else { "" }
+            ));
+        }
+        let shape_m = m.select_rows(&keep);
+        let logs: Vec<f64> = keep.iter().map(|&i| totals[i].ln()).collect();
         let shape = DistanceSpec {
             distance: self.shape_distance.distance(),
             transform: Transform::None,
         }
-        .compute(m)?;
-        let combined = self.distance.compute(m)?;
+        .compute(&shape_m)?;
+        let combined = self.distance.compute(&shape_m)?;
+        let (count, effort) = design::counts_and_effort(m, prepared.selection.per_effort);
+        let pick_i32 = |v: &[i32]| -> Vec<i32> { keep.iter().map(|&i| v[i]).collect() };
+        let pick = |v: &[usize]| -> Vec<usize> { keep.iter().map(|&i| v[i]).collect() };
+        let shape_year = pick_i32(&year);
+        let shape_site = pick(&site);
+        let shape_season = season.as_deref().map(pick);
         let data = TrendData {
             log_abundance: &logs,
             shape: &shape,
             combined: &combined,
-            year: &year,
-            season: season.as_deref(),
-            site: &site,
+            year: &shape_year,
+            season: shape_season.as_deref(),
+            site: &shape_site,
+            counts: (self.size_model == SizeModel::Rate).then_some(CountData {
+                count: &count,
+                effort: &effort,
+                year: &year,
+                season: season.as_deref(),
+                site: &site,
+            }),
         };
         progress.stage("trend");
         let r = trend(&data, &self.options()).map_err(|e| WorkflowError::kernel("trend", e, m))?;
@@ -551,19 +649,22 @@ impl Analysis for Spec {
             })
             .collect();
         let s = &r.size_trend;
-        let mut notes = prepared.notes.clone();
+        let rate = s.model == SizeModel::Rate;
         notes.extend(r.notes.iter().cloned());
         Ok(Outcome {
             diagnosis: r.diagnosis,
             alpha: r.alpha,
             size_trend: SizeTrend {
+                model: s.model,
                 slope_pct_per_year: s.slope_pct_per_year,
                 p_value: s.p_value,
                 ci_low: s.ci_low,
                 ci_high: s.ci_high,
-                ci_method: CI_METHOD,
+                ci_method: if rate { CI_METHOD_RATE } else { CI_METHOD },
                 slope_log: s.slope_log,
-                se_ols_log: s.se_ols,
+                se_ols_log: (!rate).then_some(s.se_log),
+                se_quasi_log: rate.then_some(s.se_log),
+                dispersion: s.dispersion,
                 pseudo_f: s.pseudo_f,
                 df_resid: s.df_resid,
             },
@@ -602,6 +703,7 @@ impl Analysis for Spec {
             exact: r.exact,
             seed: r.seed,
             scheme: r.scheme,
+            smallest_possible_p: r.smallest_possible_p,
             distances: Distances {
                 shape: self.shape_distance,
                 combined: self.distance.distance,
@@ -672,9 +774,12 @@ impl super::Outcome for Outcome {
     }
 }
 
-/// The effective selection of a trend: as [`super::resolve`], except that when
-/// neither the flags nor the saved selection name a unit, rows are pooled per
-/// site and period (`site-year`, or `site-season` with `every` season).
+/// The effective selection of the trend `spec`: as [`super::resolve`], except
+/// that when neither the flags nor the saved selection name a unit, rows are
+/// pooled per site and period (`site-year`, or `site-season` with `every`
+/// season), and that rows that caught nothing are kept: the rate model counts
+/// them (the shape trend leaves them out with a note) and the geometric model
+/// refuses them by name instead of losing them.
 ///
 /// # Errors
 /// As [`super::resolve`].
@@ -682,9 +787,11 @@ pub fn resolve(
     store: &Store,
     saved: Option<&str>,
     explicit: &Selection,
-    every: Every,
+    spec: &Spec,
 ) -> Result<Selection> {
+    let every = spec.every;
     let mut e = explicit.clone();
+    e.keep_empty = true;
     if e.unit.is_none() {
         let saved_unit = match saved {
             Some(name) => store.selection(name)?.unit,

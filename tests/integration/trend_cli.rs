@@ -264,3 +264,98 @@ fn single_selection_table_and_seasons() {
     .assert()
     .failure();
 }
+
+/// A small invented program: six sites visited once a year for eight years, with
+/// unequal effort, a decline of about 10 % a year planted in the counts, one
+/// renamed taxon, and one rare site that catches nothing in most years.
+fn zero_catch_store() -> TestEnv {
+    let env = TestEnv::new();
+    env.stdout(["init"]);
+    let mut sites = String::from("code,name,latitude,longitude,treatment\n");
+    for s in 1..=6 {
+        sites.push_str(&format!(
+            "P{s},Plot {s},50.{s}0,4.{s}0,{}\n",
+            if s <= 3 { "grazed" } else { "open" }
+        ));
+    }
+    let protocols =
+        "code,description,effort_unit\npit,Pitfall line (effort is trap nights),nights\n";
+    let taxa =
+        "name,rank,parent,accepted\nCarabus,genus,,\nPterus,genus,,\nOldpterus,genus,,Pterus\n";
+    let mut records = String::from("site,date,protocol,effort,taxon,count,replicate\n");
+    for s in 1..=6u32 {
+        for (t, year) in (2010..2018).enumerate() {
+            let effort = 1 + (s as usize + t) % 3;
+            let base = if s == 6 { 0.6 } else { 8.0 + f64::from(s) };
+            let mu = base * 0.9f64.powi(t as i32) * effort as f64;
+            let carabus = (0.6 * mu).round();
+            let pterus = (0.4 * mu).round();
+            // The rare site's pterus records are kept under the old name in early years.
+            let name = if t < 3 { "Oldpterus" } else { "Pterus" };
+            records.push_str(&format!(
+                "P{s},{year}-06-1{s},pit,{effort},Carabus,{carabus},1\nP{s},{year}-06-1{s},pit,{effort},{name},{pterus},1\n"
+            ));
+        }
+    }
+    for (kind, text) in [
+        ("sites", sites.as_str()),
+        ("protocols", protocols),
+        ("taxa", taxa),
+        ("records", records.as_str()),
+    ] {
+        let p = env.write(&format!("{kind}.csv"), text);
+        env.stdout(["import", kind, p.to_str().unwrap()]);
+    }
+    env
+}
+
+#[test]
+fn rows_that_caught_nothing_count_in_the_size_trend_and_replay() {
+    let env = zero_catch_store();
+    let (code, out, err) = env.run([
+        "trend",
+        "--per-effort",
+        "--permutations",
+        "99",
+        "--seed",
+        "3",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: Value = serde_json::from_str(&out).unwrap();
+    // Every site-year is a row, the empty ones included (6 sites x 8 years).
+    assert_eq!(v["n"], 48);
+    assert_eq!(v["size_trend"]["model"], "rate");
+    let notes = v["notes"].to_string();
+    assert!(notes.contains("caught nothing"), "{notes}");
+    // The planted decline: ln 0.9 = -10.5 % per year, up to rounding of the counts.
+    let slope = v["size_trend"]["slope_pct_per_year"].as_f64().unwrap();
+    assert!((slope + 10.0).abs() < 1.5, "slope {slope}");
+    let p = v["size_trend"]["p_value"].as_f64().unwrap();
+    assert!(p >= v["smallest_possible_p"].as_f64().unwrap());
+    let id = v["run_id"].to_string();
+    let out = env.stdout(["runs", "verify", id.as_str()]);
+    assert!(
+        out.contains("identical") || out.contains("reproduced"),
+        "{out}"
+    );
+    // The geometric model cannot take a zero; free and whole-site designs cannot test year.
+    for (args, want) in [
+        (vec!["--size-model", "geometric"], "--size-model rate"),
+        (vec!["--permute", "whole-sites"], "within-sites"),
+        (vec!["--permute", "free"], "within-sites"),
+    ] {
+        let mut all = vec![
+            "trend",
+            "--per-effort",
+            "--no-store",
+            "--permutations",
+            "19",
+        ];
+        all.extend(args.iter().copied());
+        let (code, out, err) = env.run(&all);
+        assert_eq!(code, 1, "{args:?}: {err}");
+        assert!(out.is_empty() && err.contains(want), "{args:?}: {err}");
+    }
+}

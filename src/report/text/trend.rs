@@ -1,5 +1,6 @@
 //! Tables and CSV of trend outcomes: one trend, or the groups of `--split-by`.
 
+use crate::analysis::size_test::SizeModel;
 use std::io::{self, Write};
 
 use super::Render;
@@ -97,9 +98,27 @@ fn footer(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
         o.scheme,
         o.seed
     )?;
+    if o.smallest_possible_p > o.alpha {
+        writeln!(
+            out,
+            "year: this design cannot reach p ≤ {}: the smallest possible p-value is {}; a \
+             p-value above {} here says nothing about the trend. More years are needed for a verdict",
+            o.alpha,
+            fmt_num(o.smallest_possible_p),
+            o.alpha
+        )?;
+    }
+    let abundance = match o.size_trend.model {
+        SizeModel::Rate => {
+            "abundance as pooled rate (Σ count ÷ Σ effort, rows that caught nothing included) with a ratio-estimator interval; slope from the Poisson count model with site effects"
+        }
+        SizeModel::Geometric => {
+            "abundance as geometric mean with a t interval on the log scale; slope by OLS of log totals"
+        }
+    };
     writeln!(
         out,
-        "rule: {} (alpha {}); abundance as geometric mean with a t interval on the log scale; size parts of {} on {} vs shape ({})",
+        "rule: {} (alpha {}); {abundance}; size parts of {} on {} vs shape ({})",
         if o.breakpoints.is_some() {
             "an aspect changed when min(1, 2·min(p trend, p breakpoint)) ≤ alpha"
         } else {
