@@ -267,6 +267,10 @@ pub struct UniqueTest {
     pub permutations: usize,
     /// Whether every distinct permutation was enumerated.
     pub exact: bool,
+    /// Smallest p-value this design and number of permutations can give; `None`
+    /// when not applicable.
+    #[serde(rename = "smallest_possible_p")]
+    pub min_p: Option<f64>,
 }
 
 /// A partition with its shape design and tests.
@@ -401,6 +405,7 @@ pub fn partition(
                     df_resid: t.df_resid,
                     permutations: 0,
                     exact: false,
+                    min_p: None,
                 });
             }
             let term = PartialTerm::new(&g, reduced, full);
@@ -417,6 +422,7 @@ pub fn partition(
                 df_resid: t.df_resid,
                 permutations: r.permutations,
                 exact: r.exact,
+                min_p: Some(r.min_p),
             })
         };
     let size_only = run(&bp, &bps, &fitted.size_test)?;

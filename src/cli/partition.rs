@@ -8,7 +8,7 @@ use std::io::Write;
 
 use clap::ValueEnum;
 
-use super::common::{DistanceArgs, Progress, RunArgs, finish};
+use super::common::{DesignArgs, DistanceArgs, Progress, RunArgs, finish};
 use super::note;
 use super::selection::{SelectionArgs, prepare};
 use crate::analysis::partition::SizeCoding;
@@ -48,9 +48,9 @@ pub struct Args {
     /// of freedom would remain; then the leading axes that leave 10].
     #[arg(long, value_name = "K")]
     pub shape_axes: Option<usize>,
-    /// Permute only within the levels of this field (e.g. site).
-    #[arg(long, value_name = "FIELD")]
-    pub strata: Option<String>,
+    /// How rows are exchanged in the tests of the unique parts.
+    #[command(flatten)]
+    pub design: DesignArgs,
     /// Partition several dissimilarity/transform pairs in one table: Bray-Curtis
     /// raw, Bray-Curtis fourth root, Euclidean log(x+1), chi-square, Hellinger.
     #[arg(long)]
@@ -75,7 +75,8 @@ impl Args {
             },
             size: self.size.into(),
             shape_axes: self.shape_axes,
-            strata: self.strata.clone(),
+            strata: self.design.strata.clone(),
+            scheme: self.design.permute,
             permutations: self.run.permutations,
             seed,
         }

@@ -1007,6 +1007,7 @@ mod tests {
             df_resid: 20,
             permutations: 199,
             exact: false,
+            min_p: Some(0.005),
         };
         let part = |distance, adjusted| P {
             distance,
@@ -1043,6 +1044,7 @@ mod tests {
                 seed: 1,
                 n: 24,
             },
+            design: Vec::new(),
             permutations: 199,
             per_effort: true,
             caution: "",

@@ -336,22 +336,6 @@ fn varies_within(strata: &[usize], values: &[usize]) -> bool {
         .any(|(s, v)| *first.entry(*s).or_insert(*v) != *v)
 }
 
-/// The exchangeability scheme of a test without a tested factor (the partition's
-/// fractions): free without `strata`, otherwise samples move only within the levels
-/// of the `strata` field. Tests of a factor or covariate take their scheme from
-/// [`term_scheme`], which also refuses strata that leave the term no room to vary.
-///
-/// # Errors
-/// As [`grouping`].
-pub fn scheme(m: &CountMatrix, strata: Option<&str>) -> Result<Scheme> {
-    match strata {
-        None => Ok(Scheme::Free),
-        Some(f) => Ok(Scheme::WithinStrata(
-            grouping(m, f, "--strata")?.codes().to_vec(),
-        )),
-    }
-}
-
 /// A dissimilarity and the transform applied before it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub struct DistanceSpec {
@@ -602,7 +586,7 @@ mod tests {
         ));
         assert_eq!(tested(&m, PermuteDesign::Free, None).unwrap(), Scheme::Free);
         assert!(matches!(
-            scheme(&m, Some("reach")),
+            tested(&m, PermuteDesign::Auto, Some("reach")),
             Err(WorkflowError::Field {
                 option: "--strata",
                 ..

@@ -15,7 +15,7 @@ use crate::analysis::partition::{
 };
 use crate::analysis::transform::Transform;
 
-use super::design::{self, DistanceSpec};
+use super::design::{self, DistanceSpec, PermuteDesign, TermScheme};
 use super::{Analysis, Prepared, Progress, Result, WorkflowError};
 
 /// The run kind.
@@ -93,6 +93,10 @@ pub struct Spec {
     pub shape_axes: Option<usize>,
     /// Permute only within the levels of this field.
     pub strata: Option<String>,
+    /// How rows move (`--permute`): size and shape are row-level, so `auto` moves
+    /// rows within their site when sites repeat.
+    #[serde(default = "PermuteDesign::before_designs")]
+    pub scheme: PermuteDesign,
     /// Random permutations per test.
     pub permutations: usize,
     /// Seed of the random streams.
@@ -108,6 +112,7 @@ impl Spec {
             size: SizeCoding::LogTotal,
             shape_axes: None,
             strata: None,
+            scheme: PermuteDesign::Auto,
             permutations,
             seed,
         }
@@ -244,6 +249,8 @@ pub struct Outcome {
     /// The partition(s).
     #[serde(flatten)]
     pub partitions: Partitions,
+    /// The permutation scheme of the tests of the unique parts, and why.
+    pub design: Vec<TermScheme>,
     /// Random permutations per test.
     pub permutations: usize,
     /// The totals are per unit effort.
@@ -315,6 +322,10 @@ impl Analysis for Spec {
 
     fn run(&self, prepared: &Prepared, progress: &dyn Progress) -> Result<Outcome> {
         let m = &prepared.matrix;
+        // Size and shape are properties of each row: the unique parts are tested
+        // under the scheme that fits a row-level term.
+        let totals = m.totals();
+        let design = design::term_scheme(m, self.scheme, self.strata.as_deref(), "size", &totals)?;
         let opts = PartitionOptions {
             size: self.size,
             shape_axes: match self.shape_axes {
@@ -325,7 +336,7 @@ impl Analysis for Spec {
             },
             permutations: self.permutations,
             seed: self.seed,
-            scheme: design::scheme(m, self.strata.as_deref())?,
+            scheme: design.scheme.clone(),
         };
         progress.stage("partition");
         let cb = |done: usize, total: usize| progress.update(done, total);
@@ -353,6 +364,7 @@ impl Analysis for Spec {
         };
         Ok(Outcome {
             partitions,
+            design: vec![design],
             permutations: self.permutations,
             per_effort: prepared.selection.per_effort,
             caution: CAUTION,

@@ -53,6 +53,18 @@ fn every_untestable_term_and_scheme_pair_is_refused_by_name() {
             "period",
             "within-sites",
         ),
+        // The partition's size and shape are row-level: whole sites cannot vary them.
+        (
+            vec!["partition", "--permute", "whole-sites"],
+            "size",
+            "within-sites",
+        ),
+        // So is a trend's year.
+        (
+            vec!["trend", "--permute", "whole-sites"],
+            "year",
+            "within-sites",
+        ),
         // A covariate that varies within sites cannot move with whole sites.
         (
             vec![
@@ -97,6 +109,12 @@ fn auto_moves_whole_sites_for_reach_and_rows_within_sites_for_period() {
         ],
     );
     assert_eq!(v["design"][0]["permute"], "within-sites");
+    let part = json(&env, &["partition", "--no-store"]);
+    assert_eq!(part["design"][0]["permute"], "within-sites");
+    let s = part["tests"]["size_only"]["smallest_possible_p"]
+        .as_f64()
+        .unwrap();
+    assert!((s - 0.01).abs() < 1e-12, "{s}");
     // 99 random permutations: the smallest possible p is 1/100 and every p is at
     // least that (Phipson & Smyth 2010).
     for part in ["size", "shape"] {

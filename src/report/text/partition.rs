@@ -153,6 +153,14 @@ impl Render for Outcome {
              (Freedman-Lane); {} permutations, scheme {}, seed {}.",
             self.permutations, first.scheme, first.seed
         )?;
+        let smallest = parts
+            .iter()
+            .flat_map(|p| [p.tests.size_only.min_p, p.tests.shape_only.min_p])
+            .flatten()
+            .fold(0.0, f64::max);
+        for line in super::design_lines(&self.design, &[smallest], super::DESIGN_ALPHA) {
+            writeln!(out, "{line}")?;
+        }
         writeln!(out, "{SHARED}")?;
         writeln!(out, "{CAUTION} (`tally compare` runs both.)")
     }
