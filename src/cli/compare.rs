@@ -11,7 +11,7 @@ use super::common::{
 };
 use super::common::{Periods, parse_periods, parse_size_model, transform_parser};
 use super::note;
-use super::selection::{SelectionArgs, prepare};
+use super::selection::SelectionArgs;
 use crate::analysis::size_test::SizeModel;
 use crate::analysis::{Distance, Transform};
 use crate::store::Store;
@@ -101,13 +101,12 @@ impl Args {
 /// Unknown fields or groups, too few groups, strata that leave the groups no
 /// room to vary, rarefying per-effort values, kernel refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    // Under the rate model rows that caught nothing are data for the size test:
-    // keep them (the shape tests leave them out with a note). The stored selection
-    // records this.
-    let mut selection = args.selection.clone();
-    selection.keep_empty |= args.size_model == SizeModel::Rate;
-    let prepared = prepare(store, &selection)?;
     let spec = args.spec(args.run.seed());
+    let prepared =
+        crate::workflow::prepare(store, &spec.selection(&args.selection.resolve(store)?))?;
+    for n in &prepared.notes {
+        note(n);
+    }
     let outcome = spec.run(&prepared, &Progress::new("compare"))?;
     for n in outcome.own_notes() {
         note(n);

@@ -13,7 +13,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::RunArgs;
+use super::common::{DesignArgs, RunArgs};
 use super::common::{Periods, parse_periods};
 use super::ordinate::write_new_file;
 use super::selection::SelectionArgs;
@@ -38,6 +38,9 @@ pub struct Args {
     /// Year ranges defining the field `period`, e.g. 2008..2015,2016..2025.
     #[arg(long, value_name = "A..B,C..D", value_parser = parse_periods)]
     pub periods: Option<Periods>,
+    /// How rows move in the tests of the comparison and the partition.
+    #[command(flatten)]
+    pub design: DesignArgs,
     /// The HTML file to write.
     #[arg(long, value_name = "FILE.html")]
     pub out: PathBuf,
@@ -58,6 +61,8 @@ impl Args {
             by: self.by.clone(),
             split_by: self.split_by.clone(),
             periods: self.periods.clone(),
+            permute: self.design.permute,
+            strata: self.design.strata.clone(),
             permutations: self.run.permutations,
             seed,
         }

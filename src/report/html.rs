@@ -645,15 +645,24 @@ fn partition_part(out: &mut String, input: &ReportInput) {
             if bars.is_empty() {
                 out.push_str("<p class=\"notrun\">The partition result holds no adjusted fractions to draw.</p>\n");
             } else {
+                let scheme = o.design.first().map_or("free", |d| d.permute).to_string();
+                let p_of = |t: &crate::analysis::partition::UniqueTest| match t.p_value {
+                    Some(v) => fmt_p(v, t.permutations),
+                    None => "not applicable".to_string(),
+                };
                 let rows: Vec<Vec<String>> = bars
                     .iter()
-                    .map(|b| {
+                    .zip(o.parts())
+                    .map(|(b, x)| {
                         vec![
                             esc(&b.label),
                             format!("{:.3}", b.size_only),
                             format!("{:.3}", b.shared),
                             format!("{:.3}", b.shape_only),
                             format!("{:.3}", b.unexplained),
+                            p_of(&x.tests.size_only),
+                            p_of(&x.tests.shape_only),
+                            esc(&scheme),
                         ]
                     })
                     .collect();
@@ -673,10 +682,24 @@ fn partition_part(out: &mut String, input: &ReportInput) {
                         "Shared",
                         "Shape only",
                         "Unexplained",
+                        "p (size only)",
+                        "p (shape only)",
+                        "Permutation scheme",
                     ],
                     &rows,
-                    &[false, true, true, true, true],
+                    &[false, true, true, true, true, true, true, false],
                 ));
+                let smallest = o
+                    .parts()
+                    .iter()
+                    .flat_map(|x| [x.tests.size_only.min_p, x.tests.shape_only.min_p])
+                    .flatten()
+                    .fold(0.0, f64::max);
+                for line in
+                    super::text::design_lines(&o.design, &[smallest], super::text::DESIGN_ALPHA)
+                {
+                    out.push_str(&format!("<p>{}</p>\n", esc(&line)));
+                }
             }
         }
         other if !from_compare => {
@@ -753,6 +776,26 @@ fn trends_part(out: &mut String, input: &ReportInput) {
                 fnum(Some(t.shape_trend.r2), 3),
                 fmt_p(t.shape_trend.p_value, t.permutations),
             ));
+            out.push_str(&format!(
+                "<p>Permutation scheme of these p-values: within sites, {} ({} {} relabellings, seed {}); size as {}.</p>\n",
+                esc(&t.scheme),
+                t.permutations,
+                if t.exact { "exact" } else { "random" },
+                t.seed,
+                match t.size_trend.model {
+                    crate::analysis::size_test::SizeModel::Rate => {
+                        "pooled rate (count model, rows that caught nothing included)"
+                    }
+                    crate::analysis::size_test::SizeModel::Geometric => "geometric mean",
+                }
+            ));
+            if t.smallest_possible_p > t.alpha {
+                out.push_str(&format!(
+                    "<p>This design cannot reach p ≤ {}: the smallest possible p-value is {}. More years are needed for a verdict.</p>\n",
+                    t.alpha,
+                    fnum(Some(t.smallest_possible_p), 3)
+                ));
+            }
             if let Some(b) = &t.breakpoints {
                 out.push_str(&format!(
                     "<p>Best before/after split: size from {} ({} %, p = {}), shape from {} (R² {}, p = {}).</p>\n",

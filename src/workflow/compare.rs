@@ -24,6 +24,7 @@ use crate::analysis::size_test::{
 };
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
+use crate::store::Selection;
 // The verdict is part of the stored result, worded with the one p-value formatter.
 use crate::report::format::fmt_p;
 
@@ -138,6 +139,15 @@ fn geometric_before_rates() -> SizeModel {
 }
 
 impl Spec {
+    /// The selection this comparison runs on, from `base`: under the rate model
+    /// rows that caught nothing are data for the size test, so they are kept (the
+    /// shape tests leave them out with a note). The stored selection records this.
+    pub fn selection(&self, base: &Selection) -> Selection {
+        let mut s = base.clone();
+        s.keep_empty |= self.size_model == SizeModel::Rate;
+        s
+    }
+
     /// The comparison by `by` with every other choice at its default.
     pub fn new(by: impl Into<String>, permutations: usize, seed: u64) -> Spec {
         Spec {

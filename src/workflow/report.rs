@@ -10,7 +10,7 @@
 use crate::analysis::trend::BreakpointSpec;
 use crate::store::{Selection, Store};
 
-use super::design::{DistanceSpec, Periods};
+use super::design::{DistanceSpec, Periods, PermuteDesign};
 use super::ordinate::{self, Method};
 use super::runs::ToSave;
 use super::summary::{self, Summary};
@@ -30,6 +30,12 @@ pub struct Spec {
     pub split_by: Option<String>,
     /// Year ranges defining the field `period`.
     pub periods: Option<Periods>,
+    /// How rows move in the tests of the comparison and the partition
+    /// (`--permute`); the trends relabel whole years, a within-sites design, and
+    /// refuse `free` and `whole-sites`.
+    pub permute: PermuteDesign,
+    /// Permute the comparison and the partition only within the levels of this field.
+    pub strata: Option<String>,
     /// Random permutations of every test.
     pub permutations: usize,
     /// Seed of every random stream.
@@ -78,6 +84,9 @@ pub struct Report {
     pub ordination: Done<ordinate::Spec>,
     /// The comparison by `by`.
     pub compare: Option<Done<compare::Spec>>,
+    /// The prepared selection of the comparison: the report's, with the rows that
+    /// caught nothing kept for the rate model ([`compare::Spec::selection`]).
+    pub compare_prepared: Option<Prepared>,
     /// The five-way size/shape partition (with `by`).
     pub partition: Option<Done<partition::Spec>>,
     /// The trends by `split_by`.
@@ -124,8 +133,8 @@ impl Report {
     /// Serialisation errors.
     pub fn to_save(&self) -> Result<Vec<ToSave<'_>>> {
         let mut v = Vec::new();
-        if let Some(c) = &self.compare {
-            v.push(ToSave::new(&self.prepared, &c.spec, &c.outcome)?);
+        if let (Some(c), Some(p)) = (&self.compare, &self.compare_prepared) {
+            v.push(ToSave::new(p, &c.spec, &c.outcome)?);
         }
         if let Some(p) = &self.partition {
             v.push(ToSave::new(&self.prepared, &p.spec, &p.outcome)?);
@@ -213,29 +222,42 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
         // A correspondence analysis draws no random numbers: no seed.
         command: format!("tally ordinate {flags} --method ca --by {field}{periods}"),
     };
-    let (compare, partition) = match &spec.by {
+    let design = design_flags(spec);
+    let (compare, compare_prepared, partition) = match &spec.by {
         Some(by) => {
             let mut c = compare::Spec::new(by.clone(), p, s);
             c.periods = spec.periods.clone();
-            let pa = partition::Spec::compared(p, s);
+            c.scheme = spec.permute;
+            c.strata = spec.strata.clone();
+            let sel = c.selection(&prepared.selection);
+            let cp = if sel == prepared.selection {
+                prepared.clone()
+            } else {
+                prepare(store, &sel)?
+            };
+            let mut pa = partition::Spec::compared(p, s);
+            pa.scheme = spec.permute;
+            pa.strata = spec.strata.clone();
             (
                 Some(Done {
-                    outcome: c.run(&prepared, progress)?,
+                    outcome: c.run(&cp, progress)?,
                     spec: c,
                     command: format!(
-                        "tally compare {flags} --by {by}{periods} --permutations {p} --seed {s}"
+                        "tally compare {} --by {by}{periods}{design} --permutations {p} --seed {s}",
+                        cp.selection.to_flags()
                     ),
                 }),
+                Some(cp),
                 Some(Done {
                     outcome: pa.run(&prepared, progress)?,
                     spec: pa,
                     command: format!(
-                        "tally partition {flags} --compare-distances --permutations {p} --seed {s}"
+                        "tally partition {flags} --compare-distances{design} --permutations {p} --seed {s}"
                     ),
                 }),
             )
         }
-        None => (None, None),
+        None => (None, None, None),
     };
     let trends = match &spec.split_by {
         Some(split_by) => Some(trends(store, spec, split_by, progress)?),
@@ -248,9 +270,23 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
         prepared,
         ordination,
         compare,
+        compare_prepared,
         partition,
         trends,
     })
+}
+
+/// ` --permute X` (unless `auto`) and ` --strata F` of the report's tests of the
+/// comparison and the partition, for their equivalent command lines.
+fn design_flags(spec: &Spec) -> String {
+    let mut f = String::new();
+    if spec.permute != PermuteDesign::Auto {
+        f.push_str(&format!(" --permute {}", spec.permute.as_str()));
+    }
+    if let Some(strata) = &spec.strata {
+        f.push_str(&format!(" --strata {strata}"));
+    }
+    f
 }
 
 /// The trends of the report: `tally trend --split-by FIELD --every year
@@ -259,14 +295,20 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
 fn trends(store: &Store, spec: &Spec, field: &str, progress: &dyn Progress) -> Result<Trends> {
     let mut t = trend::Spec::new(spec.permutations, spec.seed);
     t.breakpoint = Some(BreakpointSpec::Auto);
+    t.scheme = spec.permute;
     let base = trend::resolve(store, spec.saved.as_deref(), &spec.selection, &t)?;
     let parts = trend::split(store, &base, field)?;
     let split = t.run_split(field, &parts, progress)?;
     Ok(Trends {
         field: field.to_string(),
         command: format!(
-            "tally trend {} --every year --split-by {field} --breakpoint auto --permutations {} --seed {}",
+            "tally trend {} --every year --split-by {field} --breakpoint auto{} --permutations {} --seed {}",
             base.to_flags(),
+            if spec.permute == PermuteDesign::Auto {
+                String::new()
+            } else {
+                format!(" --permute {}", spec.permute.as_str())
+            },
             spec.permutations,
             spec.seed
         ),

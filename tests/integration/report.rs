@@ -507,3 +507,56 @@ fn report_renders_in_headless_chromium() {
         "dark share {dark}, mean {mean}"
     );
 }
+
+#[test]
+fn report_design_flags_reach_every_part_and_its_command() {
+    let env = demo_env();
+    let out = env.path("free.html");
+    let out_s = out.to_string_lossy().to_string();
+    env.stdout(args(
+        "report",
+        &[
+            "--by",
+            "reach",
+            "--permute",
+            "free",
+            "--out",
+            &out_s,
+            "--permutations",
+            "19",
+            "--seed",
+            "2",
+            "--no-store",
+        ],
+    ));
+    let html = std::fs::read_to_string(&out).unwrap();
+    // The comparison and the partition say "free" beside their p-values, and
+    // their commands carry the flag.
+    assert!(html.contains("free, as asked"), "reason of the scheme");
+    assert!(html.contains("--compare-distances --permute free --permutations 19"));
+    assert!(html.contains("--by reach --permute free --permutations 19"));
+    assert!(html.contains("<th>Permutation scheme</th>"));
+    // The trends cannot be tested under whole sites: refused, and no file written.
+    let bad = env.path("bad.html");
+    let bad_s = bad.to_string_lossy().to_string();
+    let (code, _, err) = env.run(args(
+        "report",
+        &[
+            "--split-by",
+            "reach",
+            "--permute",
+            "whole-sites",
+            "--out",
+            &bad_s,
+            "--permutations",
+            "19",
+            "--no-store",
+        ],
+    ));
+    assert_eq!(code, 1, "{err}");
+    assert!(
+        err.contains("year") && err.contains("within-sites"),
+        "{err}"
+    );
+    assert!(!bad.exists());
+}
