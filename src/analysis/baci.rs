@@ -21,6 +21,7 @@
 //!
 //! Owns: [`baci_size`], [`baci_shape`], [`BaciSize`], [`BaciShape`].
 
+use super::prec::quantile;
 use nalgebra::DMatrix;
 use serde::Serialize;
 
@@ -92,6 +93,9 @@ pub struct BaciOptions {
     pub permutations: usize,
     /// Generator seed.
     pub seed: u64,
+    /// Site-bootstrap resamples of the ratio-of-ratios interval; 0 for the Wald
+    /// interval scaled by the Pearson dispersion (runs stored before the bootstrap).
+    pub bootstrap: usize,
 }
 
 /// The size part of a BACI analysis.
@@ -99,10 +103,16 @@ pub struct BaciOptions {
 pub struct BaciSize {
     /// `exp(γ)`: (impact after/before) ÷ (control after/before).
     pub ratio_of_ratios: f64,
-    /// Lower bound of the 95% interval (Wald, scaled by the Pearson dispersion).
+    /// Lower bound of the 95% interval: percentile of the site bootstrap (sites
+    /// resampled within role, the model refitted), or Wald scaled by the Pearson
+    /// dispersion when `bootstrap` is 0.
     pub ci_low: f64,
     /// Upper bound.
     pub ci_high: f64,
+    /// How the interval was obtained.
+    pub ci_method: &'static str,
+    /// Bootstrap resamples whose model could be fitted (0 for Wald).
+    pub bootstrap_fitted: usize,
     /// γ, the interaction coefficient (log scale).
     pub coefficient: f64,
     /// Its standard error scaled by √φ.
@@ -124,6 +134,89 @@ pub struct BaciSize {
     pub smallest_possible_p: f64,
     /// The scheme, described.
     pub scheme: String,
+}
+
+/// The design `[1, site, year, interaction]` (treatment coding; codes 0.. with no
+/// gaps) of the BACI count model.
+fn design(site: &[usize], year: &[usize], inter: &[f64]) -> DMatrix<f64> {
+    let n = site.len();
+    let s = site.iter().max().map_or(0, |m| m + 1);
+    let y_levels = year.iter().max().map_or(0, |m| m + 1);
+    let p_r = 1 + (s - 1) + (y_levels - 1);
+    let mut x = DMatrix::<f64>::zeros(n, p_r + 1);
+    for i in 0..n {
+        x[(i, 0)] = 1.0;
+        if site[i] > 0 {
+            x[(i, site[i])] = 1.0;
+        }
+        if year[i] > 0 {
+            x[(i, s - 1 + year[i])] = 1.0;
+        }
+        x[(i, p_r)] = inter[i];
+    }
+    x
+}
+
+/// Interaction coefficients γ of `opts.bootstrap` site resamples: the control and
+/// the impact sites are each drawn with replacement (as many as there are), every
+/// drawn copy keeps its whole series as a site of its own, and the model is
+/// refitted. Sites are the replicates of a BACI contrast, so the interval reflects
+/// how much the change differs from site to site, not only Poisson-like noise
+/// (Stewart-Oaten, Murdoch & Parker 1986). A resample whose model cannot be fitted
+/// (for example, drawn impact sites that caught nothing after) is skipped; the
+/// count fitted is reported. Seeded (stream [`super::size_test::BOOTSTRAP_STREAM`]).
+fn site_bootstrap(
+    counts: &[f64],
+    effort: &[f64],
+    rows: &BaciRows<'_>,
+    inter: &[f64],
+    opts: &BaciOptions,
+) -> Vec<f64> {
+    let s = rows.impact.len();
+    let mut site_rows = vec![Vec::new(); s];
+    for (i, &c) in rows.site.iter().enumerate() {
+        site_rows[c].push(i);
+    }
+    let by_role: [Vec<usize>; 2] = [
+        (0..s).filter(|&c| !rows.impact[c]).collect(),
+        (0..s).filter(|&c| rows.impact[c]).collect(),
+    ];
+    let mut rng = permutation::block_rng(opts.seed, super::size_test::BOOTSTRAP_STREAM);
+    let mut out = Vec::with_capacity(opts.bootstrap);
+    for _ in 0..opts.bootstrap {
+        let (mut site, mut year, mut y, mut e, mut x) =
+            (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+        let mut copy = 0;
+        for group in &by_role {
+            for _ in 0..group.len() {
+                let c = group[permutation::bounded(&mut rng, group.len() as u64) as usize];
+                for &i in &site_rows[c] {
+                    site.push(copy);
+                    year.push(rows.year[i]);
+                    y.push(counts[i]);
+                    e.push(effort[i].ln());
+                    x.push(inter[i]);
+                }
+                copy += 1;
+            }
+        }
+        // Years absent from the resample have no column.
+        let mut present: Vec<usize> = year.clone();
+        present.sort_unstable();
+        present.dedup();
+        let year: Vec<usize> = year
+            .iter()
+            .map(|v| present.binary_search(v).expect("invariant: a present year"))
+            .collect();
+        let d = design(&site, &year, &x);
+        if let Ok(fit) = poisson_glm(&y, &d, &e) {
+            let g = fit.coefficients[d.ncols() - 1];
+            if g.is_finite() {
+                out.push(g);
+            }
+        }
+    }
+    out
 }
 
 /// The size test: the interaction of period and role in the log-linear count model
@@ -156,21 +249,12 @@ pub fn baci_size(
             });
         }
     }
-    let y_levels = rows.year.iter().max().map_or(0, |m| m + 1);
-    // Intercept, sites 1.., years 1.. (treatment coding), then the interaction.
-    let p_r = 1 + (s - 1) + (y_levels - 1);
-    let mut x = DMatrix::<f64>::zeros(n, p_r + 1);
     let roles = rows.roles();
-    for i in 0..n {
-        x[(i, 0)] = 1.0;
-        if rows.site[i] > 0 {
-            x[(i, rows.site[i])] = 1.0;
-        }
-        if rows.year[i] > 0 {
-            x[(i, s - 1 + rows.year[i])] = 1.0;
-        }
-        x[(i, p_r)] = f64::from(u8::from(roles[i] == 1 && rows.after[i]));
-    }
+    let inter: Vec<f64> = (0..n)
+        .map(|i| f64::from(u8::from(roles[i] == 1 && rows.after[i])))
+        .collect();
+    let x = design(rows.site, rows.year, &inter);
+    let p_r = x.ncols() - 1;
     let offset: Vec<f64> = effort.iter().map(|e| e.ln()).collect();
     let full = poisson_glm(counts, &x, &offset)?;
     let reduced_x = x.columns(0, p_r).into_owned();
@@ -200,6 +284,30 @@ pub fn baci_size(
     )?;
     let gamma = full.coefficients[p_r];
     let se = full.scaled_std_errors()[p_r];
+    let (ci_low, ci_high, ci_method, bootstrap_fitted) = if opts.bootstrap == 0 {
+        (
+            (gamma - Z_975 * se).exp(),
+            (gamma + Z_975 * se).exp(),
+            "Wald, standard error scaled by the Pearson dispersion",
+            0,
+        )
+    } else {
+        let mut g = site_bootstrap(counts, effort, &rows, &inter, opts);
+        if g.is_empty() {
+            return Err(AnalysisError::InvalidArgument {
+                name: "bootstrap",
+                reason: "no site resample could be fitted (too few sites that caught anything)"
+                    .into(),
+            });
+        }
+        g.sort_by(f64::total_cmp);
+        (
+            quantile(&g, 0.025).exp(),
+            quantile(&g, 0.975).exp(),
+            "2.5 and 97.5 % points of the ratio of ratios refitted to site resamples (sites drawn with replacement within role)",
+            g.len(),
+        )
+    };
     let mut sums = [[0.0f64; 2]; 4];
     for i in 0..n {
         let k = 2 * roles[i] + usize::from(rows.after[i]);
@@ -208,8 +316,10 @@ pub fn baci_size(
     }
     Ok(BaciSize {
         ratio_of_ratios: gamma.exp(),
-        ci_low: (gamma - Z_975 * se).exp(),
-        ci_high: (gamma + Z_975 * se).exp(),
+        ci_low,
+        ci_high,
+        ci_method,
+        bootstrap_fitted,
         coefficient: gamma,
         std_error: se,
         dispersion: full.dispersion(),
@@ -408,6 +518,60 @@ mod tests {
         (totals, y, site, year, after)
     }
 
+    #[test]
+    fn site_bootstrap_widens_when_sites_change_differently() {
+        // Simulated: 8 sites x 8 years, large counts, the four impact sites change by
+        // x0.25, x0.5, x1 and x2 after year 4 (site-to-site heterogeneity of the
+        // change). The Wald interval only sees the Poisson-like noise of the rows;
+        // the site bootstrap sees the sites disagree (Stewart-Oaten et al. 1986).
+        let mut rng = block_rng(5, 0);
+        let change = [0.25, 0.5, 1.0, 2.0];
+        let (mut t, mut site, mut year, mut after) = (vec![], vec![], vec![], vec![]);
+        for s in 0..8usize {
+            for yr in 0..8usize {
+                let mut mu = 200.0 * (1.0 + 0.1 * s as f64);
+                if s >= 4 && yr >= 4 {
+                    mu *= change[s - 4];
+                }
+                t.push(poisson(&mut rng, mu));
+                site.push(s);
+                year.push(yr);
+                after.push(yr >= 4);
+            }
+        }
+        let impact: Vec<bool> = (0..8).map(|s| s >= 4).collect();
+        let rows = BaciRows {
+            site: &site,
+            year: &year,
+            after: &after,
+            impact: &impact,
+        };
+        let e = vec![1.0; t.len()];
+        let mut opts = BaciOptions {
+            permutations: 69,
+            seed: 2,
+            bootstrap: 0,
+        };
+        let wald = baci_size(&t, &e, rows, &opts).unwrap();
+        opts.bootstrap = 199;
+        let boot = baci_size(&t, &e, rows, &opts).unwrap();
+        assert_eq!(boot.ratio_of_ratios, wald.ratio_of_ratios);
+        assert_eq!(boot.bootstrap_fitted, 199);
+        let width = |b: &BaciSize| (b.ci_high / b.ci_low).ln();
+        assert!(
+            width(&boot) > 2.0 * width(&wald),
+            "bootstrap {}-{}, Wald {}-{}",
+            boot.ci_low,
+            boot.ci_high,
+            wald.ci_low,
+            wald.ci_high
+        );
+        assert!(boot.ci_low < boot.ratio_of_ratios && boot.ratio_of_ratios < boot.ci_high);
+        // Seeded: the same seed gives the same interval.
+        let again = baci_size(&t, &e, rows, &opts).unwrap();
+        assert_eq!((again.ci_low, again.ci_high), (boot.ci_low, boot.ci_high));
+    }
+
     fn verdict(seed: u64, size: f64, shape: bool, shared: bool) -> (f64, f64) {
         let (t, y, site, year, after) = program(seed, size, shape, shared);
         let impact: Vec<bool> = (0..8).map(|s| s >= 4).collect();
@@ -420,6 +584,7 @@ mod tests {
         let opts = BaciOptions {
             permutations: 999,
             seed,
+            bootstrap: 0,
         };
         let e = vec![1.0; t.len()];
         let sz = baci_size(&t, &e, rows, &opts).unwrap();
@@ -473,6 +638,7 @@ mod tests {
         let opts = BaciOptions {
             permutations: 99,
             seed: 1,
+            bootstrap: 0,
         };
         assert!(baci_size(&[1.0, 2.0, 3.0, 4.0], &[1.0; 4], rows, &opts).is_err());
     }

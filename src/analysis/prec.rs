@@ -21,6 +21,16 @@ pub fn close(a: f64, b: f64, rel: f64) -> bool {
 pub fn not_positive(x: f64) -> bool {
     x.is_nan() || x <= 0.0
 }
+/// Quantile `q` of sorted, non-empty data by linear interpolation between order
+/// statistics (`h = (n − 1) q`; Hyndman & Fan 1996, Am. Stat. 50:361-365, their
+/// type 7, the default of NumPy's `quantile`): the one quantile rule of the
+/// bootstrap and permutation intervals and of the box plots.
+pub fn quantile(sorted: &[f64], q: f64) -> f64 {
+    let h = (sorted.len() - 1) as f64 * q;
+    let lo = h.floor() as usize;
+    let hi = (lo + 1).min(sorted.len() - 1);
+    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+}
 
 /// Small published or documented inputs shared by the kernels' unit tests.
 #[cfg(test)]

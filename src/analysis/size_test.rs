@@ -12,6 +12,7 @@
 //! Owns: [`size_test`], [`rate_test`], [`SizeModel`], [`SizeTestOptions`],
 //! [`SizeTestResult`].
 
+use super::prec::quantile;
 use serde::Serialize;
 
 use super::AnalysisError;
@@ -118,14 +119,6 @@ pub struct SizeTestResult {
     pub bootstrap: usize,
     /// Interval coverage.
     pub confidence: f64,
-}
-
-/// Linear-interpolation quantile of sorted data (the default of NumPy's `quantile`).
-fn quantile(sorted: &[f64], q: f64) -> f64 {
-    let h = (sorted.len() - 1) as f64 * q;
-    let lo = h.floor() as usize;
-    let hi = (lo + 1).min(sorted.len() - 1);
-    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
 
 /// Compare log totals between groups.

@@ -30,6 +30,7 @@
 //! statistic is `v_π' M v_π / v_π' N v_π` with `M = A'G_R A`, `N = A'R A`
 //! precomputed: O(k²) per permutation for k years.
 
+use super::prec::quantile;
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
@@ -589,14 +590,6 @@ fn mean_sd(v: &[f64]) -> (f64, f64) {
         f64::NAN
     };
     (m, var.sqrt())
-}
-
-/// Linear-interpolation quantile of sorted data.
-fn quantile(sorted: &[f64], q: f64) -> f64 {
-    let h = q * (sorted.len() - 1) as f64;
-    let lo = h.floor() as usize;
-    let hi = h.ceil() as usize;
-    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
 
 fn pct(b: f64) -> f64 {

@@ -11,7 +11,7 @@ use super::selection::{SelectionArgs, prepare};
 use crate::store::Store;
 use crate::workflow::Analysis;
 use crate::workflow::design::parse_years;
-use crate::workflow::impact::{ALPHA, Spec};
+use crate::workflow::impact::{ALPHA, BOOTSTRAP, Spec};
 
 /// Arguments of `tally impact`.
 #[derive(Debug, Clone, clap::Args)]
@@ -52,6 +52,7 @@ impl Args {
             alpha: self.alpha,
             permutations: self.run.permutations,
             seed,
+            bootstrap: BOOTSTRAP,
         }
     }
 }

@@ -29,6 +29,7 @@
 //! diamond), so groups stay apart in greyscale print. Points are drawn with a
 //! dark outline so the light colours remain visible on white.
 
+use crate::analysis::prec::quantile;
 use plotters::prelude::*;
 /// A pixel position on the canvas.
 type BackendCoord = (i32, i32);
@@ -659,15 +660,6 @@ pub struct BoxStats {
     pub whisker_high: f64,
     /// Values beyond the whiskers.
     pub outliers: Vec<f64>,
-}
-
-/// Quantile by linear interpolation between order statistics
-/// (`h = (n − 1) p`; Hyndman & Fan 1996, Am. Stat. 50:361-365, their type 7).
-fn quantile(sorted: &[f64], p: f64) -> f64 {
-    let h = (sorted.len() - 1) as f64 * p;
-    let lo = h.floor() as usize;
-    let hi = h.ceil() as usize;
-    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
 
 /// Box-plot summary of `values`: quartiles by linear interpolation (type 7),

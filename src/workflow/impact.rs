@@ -36,7 +36,14 @@ pub struct Spec {
     pub permutations: usize,
     /// Seed of the random streams.
     pub seed: u64,
+    /// Site-bootstrap resamples of the ratio-of-ratios interval ([`BOOTSTRAP`]); 0
+    /// (runs stored before the bootstrap) gives the Wald interval.
+    #[serde(default)]
+    pub bootstrap: usize,
 }
+
+/// Site resamples of the interval of the ratio of ratios.
+pub const BOOTSTRAP: usize = 999;
 
 /// The sites of each role.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -236,6 +243,7 @@ impl Analysis for Spec {
         let opts = BaciOptions {
             permutations: self.permutations,
             seed: self.seed,
+            bootstrap: self.bootstrap,
         };
         let baci_rows = BaciRows {
             site: &site_codes,

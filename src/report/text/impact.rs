@@ -73,8 +73,14 @@ impl Render for Outcome {
         writeln!(out, "Verdict at alpha = {}: {}", self.alpha, self.verdict)?;
         writeln!(
             out,
-            "Size: log-linear count model with site and year effects and the impact × after term (interval scaled by the Pearson dispersion {}); shape: each site's shift of Hellinger centroid from before to after, compared between roles.",
-            fmt_num(s.dispersion)
+            "Size: log-linear count model with site and year effects and the impact × after term (Pearson dispersion {}; interval: {}{}); shape: each site's shift of Hellinger centroid from before to after, compared between roles.",
+            fmt_num(s.dispersion),
+            s.ci_method,
+            if s.bootstrap_fitted > 0 {
+                format!(", {} resamples fitted", s.bootstrap_fitted)
+            } else {
+                String::new()
+            }
         )?;
         writeln!(
             out,
