@@ -5,12 +5,12 @@
 
 use std::io::Write;
 
-use super::common::{Progress, RunArgs, finish};
+use super::common::{Progress, RunArgs, finish, shape_distance_parser};
 use super::note;
 use super::selection::{SelectionArgs, prepare};
 use crate::store::Store;
 use crate::workflow::Analysis;
-use crate::workflow::design::parse_years;
+use crate::workflow::design::{ShapeDistance, parse_years};
 use crate::workflow::impact::{ALPHA, BOOTSTRAP, Spec};
 
 /// Arguments of `tally impact`.
@@ -32,6 +32,9 @@ pub struct Args {
     /// Significance level used for the wording of the verdict (every p-value is printed).
     #[arg(long, value_name = "A", default_value_t = ALPHA)]
     pub alpha: f64,
+    /// The shape-only space the sites' composition shifts are measured in.
+    #[arg(long, value_parser = shape_distance_parser(), default_value = "hellinger")]
+    pub shape_distance: ShapeDistance,
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
@@ -53,6 +56,7 @@ impl Args {
             permutations: self.run.permutations,
             seed,
             bootstrap: BOOTSTRAP,
+            shape_distance: self.shape_distance,
         }
     }
 }

@@ -6,11 +6,10 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::analysis::Transform;
 use crate::analysis::baci::{BaciOptions, BaciRows, BaciShape, BaciSize, baci_shape, baci_size};
 use crate::report::format::fmt_p;
 
-use super::design::{self, TermScheme};
+use super::design::{self, ShapeDistance, TermScheme};
 use super::{Analysis, Prepared, Progress, Result, WorkflowError};
 
 /// The run kind.
@@ -40,6 +39,10 @@ pub struct Spec {
     /// (runs stored before the bootstrap) gives the Wald interval.
     #[serde(default)]
     pub bootstrap: usize,
+    /// The shape-only space the sites' shifts are measured in (Hellinger, or
+    /// chi-square: both have Euclidean coordinates, so centroids are defined).
+    #[serde(default)]
+    pub shape_distance: ShapeDistance,
 }
 
 /// Site resamples of the interval of the ratio of ratios.
@@ -75,8 +78,10 @@ pub struct Outcome {
     pub per_effort: bool,
     /// Size: the period × role interaction of the log-linear count model.
     pub size: BaciSize,
-    /// Shape: the sites' centroid shifts in Hellinger space by role.
+    /// Shape: the sites' centroid shifts in the shape-only space by role.
     pub shape: BaciShape,
+    /// That space.
+    pub shape_distance: ShapeDistance,
     /// The size p-value is at most alpha.
     pub abundance_differs: bool,
     /// The shape p-value is at most alpha.
@@ -265,9 +270,11 @@ impl Analysis for Spec {
             ));
         }
         let fm = m.select_rows(&filled);
-        let h = Transform::Hellinger
-            .apply(&fm.values)
-            .map_err(|e| WorkflowError::kernel("Hellinger transform", e, &fm))?;
+        let distance = self.shape_distance.distance();
+        let h = distance
+            .euclidean_coordinates(&fm.values)
+            .map_err(|e| WorkflowError::kernel(format!("{} coordinates", distance.name()), e, &fm))?
+            .expect("invariant: every shape-only distance has Euclidean coordinates");
         let (fs, fy, fa): (Vec<usize>, Vec<usize>, Vec<bool>) = (
             filled.iter().map(|&i| site_codes[i]).collect(),
             filled.iter().map(|&i| year[i]).collect(),
@@ -355,6 +362,7 @@ impl Analysis for Spec {
             scheme: size.scheme.clone(),
             size,
             shape,
+            shape_distance: self.shape_distance,
             abundance_differs,
             composition_differs,
             dispersion_differs,

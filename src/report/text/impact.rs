@@ -56,9 +56,10 @@ impl Render for Outcome {
         t.add_row(vec![
             "composition changed differently (shape)".into(),
             format!(
-                "mean shift control {}, impact {} (Hellinger)",
+                "mean shift control {}, impact {} ({})",
                 fmt_num(sh.mean_shift[0]),
-                fmt_num(sh.mean_shift[1])
+                fmt_num(sh.mean_shift[1]),
+                self.shape_distance.name()
             ),
             format!("pseudo-F {}", fmt_num(sh.pseudo_f)),
             fmt_p(sh.p_value, sh.permutations),
@@ -73,14 +74,15 @@ impl Render for Outcome {
         writeln!(out, "Verdict at alpha = {}: {}", self.alpha, self.verdict)?;
         writeln!(
             out,
-            "Size: log-linear count model with site and year effects and the impact × after term (Pearson dispersion {}; interval: {}{}); shape: each site's shift of Hellinger centroid from before to after, compared between roles.",
+            "Size: log-linear count model with site and year effects and the impact × after term (Pearson dispersion {}; interval: {}{}); shape: each site's shift of {} centroid from before to after, compared between roles.",
             fmt_num(s.dispersion),
             s.ci_method,
             if s.bootstrap_fitted > 0 {
                 format!(", {} resamples fitted", s.bootstrap_fitted)
             } else {
                 String::new()
-            }
+            },
+            self.shape_distance.name()
         )?;
         writeln!(
             out,
