@@ -215,3 +215,28 @@ where
 }
 
 pub use crate::workflow::design::{Periods, parse_periods};
+
+/// The one overwrite rule of every command that writes a file (`report --out`,
+/// `ordinate --plot`, `backup`): an existing file is replaced only with `--force`,
+/// and the refusal comes before any work, so nothing is written or stored.
+///
+/// # Errors
+/// `path` exists and `force` is not given.
+pub fn refuse_existing(path: &std::path::Path, force: bool) -> anyhow::Result<()> {
+    if path.exists() && !force {
+        anyhow::bail!(
+            "{} exists; nothing was written. Give another path, or --force to replace it",
+            path.display()
+        );
+    }
+    Ok(())
+}
+
+/// Write `text` to `path` under [`refuse_existing`].
+///
+/// # Errors
+/// As [`refuse_existing`]; I/O errors.
+pub fn write_new_file(path: &std::path::Path, text: &str, force: bool) -> anyhow::Result<()> {
+    refuse_existing(path, force)?;
+    std::fs::write(path, text).with_context(|| format!("writing {}", path.display()))
+}

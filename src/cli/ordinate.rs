@@ -4,13 +4,13 @@
 //! [`crate::report::text::ordinate`]. CCA runs (which carry a test) are stored.
 
 use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
-use anyhow::{Context, anyhow, bail};
+use anyhow::{Context, anyhow};
 use clap::ValueEnum;
 
 use super::FormatArg;
-use super::common::{DistanceArgs, Progress, RunArgs, finish};
+use super::common::{DistanceArgs, Progress, RunArgs, finish, refuse_existing, write_new_file};
 use super::selection::{SelectionArgs, prepare};
 use crate::report::format::write_json;
 use crate::report::svg::ordination_svg;
@@ -95,17 +95,6 @@ impl Args {
     }
 }
 
-/// Write `text` to `path`, refusing to replace an existing file unless `force`.
-///
-/// # Errors
-/// The file exists (without `force`); I/O errors.
-pub fn write_new_file(path: &Path, text: &str, force: bool) -> anyhow::Result<()> {
-    if path.exists() && !force {
-        bail!("{} exists; give --force to replace it", path.display());
-    }
-    std::fs::write(path, text).with_context(|| format!("writing {}", path.display()))
-}
-
 /// Run `tally ordinate`: compute, write the plot, store a CCA run (unless
 /// `--no-store`) and print.
 ///
@@ -114,11 +103,8 @@ pub fn write_new_file(path: &Path, text: &str, force: bool) -> anyhow::Result<()
 /// kernel refusals; an existing plot file without `--force`; a plot of fewer
 /// than two axes; I/O and SQLite errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    if let Some(p) = &args.plot
-        && p.exists()
-        && !args.force
-    {
-        bail!("{} exists; give --force to replace it", p.display());
+    if let Some(p) = &args.plot {
+        refuse_existing(p, args.force)?;
     }
     let prepared = prepare(store, &args.selection)?;
     let tested = args.method == MethodArg::Cca;

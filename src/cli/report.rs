@@ -13,9 +13,8 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::{DesignArgs, RunArgs};
+use super::common::{DesignArgs, RunArgs, refuse_existing, write_new_file};
 use super::common::{Periods, parse_periods};
-use super::ordinate::write_new_file;
 use super::selection::SelectionArgs;
 use crate::report::{html, input};
 use crate::store::Store;
@@ -75,9 +74,7 @@ impl Args {
 /// Selection, field and analysis errors of the parts; an existing output file
 /// without `--force`; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    if args.out.exists() && !args.force {
-        anyhow::bail!("{} exists; give --force to replace it", args.out.display());
-    }
+    refuse_existing(&args.out, args.force)?;
     let spec = args.spec(args.run.seed());
     let r = report::run(store, &spec, &Silent).context("the analyses of the report")?;
     let ids = if args.run.no_store {

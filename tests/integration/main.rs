@@ -8,6 +8,7 @@ mod distance_properties;
 mod engine_cli;
 mod import;
 mod matrix_cli;
+mod overwrite;
 mod reference_distances;
 mod reference_models;
 mod report;

@@ -1,0 +1,76 @@
+//! One overwrite rule for every command that writes a file (`report --out`,
+//! `ordinate --plot`, `backup`): an existing file is replaced only with
+//! `--force`; without it the command exits 1 before any work, the file keeps its
+//! bytes and the store is unchanged (dumped before and after).
+
+use crate::util::TestEnv;
+
+const SEL: [&str; 5] = ["--protocol", "kick", "--per-effort", "--unit", "site-year"];
+
+#[test]
+fn existing_files_are_kept_unless_forced() {
+    let env = TestEnv::with_demo_data();
+    let keep = env.write("keep.txt", "the analyst's own notes\n");
+    let keep_s = keep.to_string_lossy().to_string();
+    let commands: Vec<Vec<&str>> = vec![
+        [
+            vec!["report", "--by", "reach", "--out", keep_s.as_str()],
+            SEL.to_vec(),
+            vec!["--permutations", "19", "--seed", "1"],
+        ]
+        .concat(),
+        [
+            vec![
+                "ordinate",
+                "--method",
+                "ca",
+                "--by",
+                "reach",
+                "--plot",
+                keep_s.as_str(),
+            ],
+            SEL.to_vec(),
+        ]
+        .concat(),
+        vec!["backup", keep_s.as_str()],
+    ];
+    for args in &commands {
+        let before = env.dump();
+        let (code, out, err) = env.run(args);
+        assert_eq!(code, 1, "{args:?}: {out}{err}");
+        assert!(
+            err.contains("--force") && err.contains("nothing was written"),
+            "{err}"
+        );
+        assert_eq!(
+            std::fs::read_to_string(&keep).unwrap(),
+            "the analyst's own notes\n",
+            "{args:?} touched the file"
+        );
+        assert_eq!(before, env.dump(), "{args:?} changed the store");
+    }
+    // With --force each replaces the file.
+    for args in &commands {
+        let mut forced = args.clone();
+        forced.push("--force");
+        let (code, _, err) = env.run(&forced);
+        assert_eq!(code, 0, "{forced:?}: {err}");
+        assert_ne!(
+            std::fs::read_to_string(&keep).unwrap_or_default(),
+            "the analyst's own notes\n"
+        );
+    }
+    // The forced backup is a store holding the same data.
+    let copy = tally::store::Store::open(&keep)
+        .expect("the backup opens as a store")
+        .content_dump()
+        .expect("dump");
+    assert_eq!(copy, env.dump());
+    // A backup onto the store itself is refused even with --force.
+    let own = env.db.to_string_lossy().to_string();
+    let before = env.dump();
+    let (code, _, err) = env.run(["backup", own.as_str(), "--force"]);
+    assert_eq!(code, 1, "{err}");
+    assert!(err.contains("store being copied"), "{err}");
+    assert_eq!(before, env.dump());
+}
