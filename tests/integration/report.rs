@@ -560,3 +560,119 @@ fn report_design_flags_reach_every_part_and_its_command() {
     );
     assert!(!bad.exists());
 }
+
+/// Every number leaf of `v`, by its path.
+fn leaves(v: &Value, path: String, out: &mut Vec<(String, f64)>) {
+    match v {
+        Value::Number(n) => out.push((path, n.as_f64().unwrap())),
+        Value::Array(a) => {
+            for (i, x) in a.iter().enumerate() {
+                leaves(x, format!("{path}[{i}]"), out);
+            }
+        }
+        Value::Object(o) => {
+            for (k, x) in o {
+                if k != "run_id" {
+                    leaves(x, format!("{path}.{k}"), out);
+                }
+            }
+        }
+        _ => {}
+    }
+}
+
+fn same_numbers(stored: &Value, rerun: &Value, what: &str) {
+    let (mut a, mut b) = (Vec::new(), Vec::new());
+    leaves(stored, String::new(), &mut a);
+    leaves(rerun, String::new(), &mut b);
+    assert!(a.len() > 5, "{what}: too few numbers");
+    let b: std::collections::HashMap<String, f64> = b.into_iter().collect();
+    for (path, x) in a {
+        let y = b
+            .get(&path)
+            .unwrap_or_else(|| panic!("{what}: {path} missing from the rerun"));
+        assert!(
+            x == *y || (x - y).abs() <= 1e-12 * x.abs().max(1.0),
+            "{what}: {path} stored {x}, rerun {y}"
+        );
+    }
+}
+
+#[test]
+fn the_commands_the_report_prints_reproduce_its_numbers() {
+    // The "how each part was obtained" table: each command, run as printed with
+    // --format json, gives the numbers of the part's stored run (which the HTML
+    // renders), and the ordination's axis shares as the page shows them.
+    let env = demo_env();
+    let out = env.path("cmd.html");
+    let out_s = out.to_string_lossy().to_string();
+    env.stdout(args(
+        "report",
+        &[
+            "--by",
+            "reach",
+            "--split-by",
+            "reach",
+            "--out",
+            &out_s,
+            "--permutations",
+            "49",
+            "--seed",
+            "5",
+        ],
+    ));
+    let html = std::fs::read_to_string(&out).unwrap();
+    let mut rows = Vec::new();
+    for chunk in html.split("<tr><td>").skip(1) {
+        let Some(rest) = chunk.split_once("</td><td><code>") else {
+            continue;
+        };
+        let Some((command, tail)) = rest.1.split_once("</code></td><td") else {
+            continue;
+        };
+        let ids = tail
+            .split_once('>')
+            .and_then(|(_, t)| t.split_once("</td>"))
+            .map_or("", |(ids, _)| ids);
+        rows.push((rest.0.to_string(), command.to_string(), ids.to_string()));
+    }
+    let parts: Vec<&str> = rows.iter().map(|r| r.0.as_str()).collect();
+    assert!(
+        parts.contains(&"comparison by reach") && parts.contains(&"trends"),
+        "{parts:?}"
+    );
+    for (part, command, ids) in &rows {
+        assert!(command.starts_with("tally "), "{part}: {command}");
+        let mut words: Vec<&str> = command.split_whitespace().skip(1).collect();
+        if words == ["summary"] {
+            continue;
+        }
+        words.extend(["--format", "json"]);
+        if !ids.is_empty() {
+            words.push("--no-store");
+        }
+        let (code, rerun, err) = env.run(&words);
+        assert_eq!(code, 0, "{part}: {command}: {err}");
+        let rerun: Value = serde_json::from_str(&rerun).unwrap();
+        let ids: Vec<&str> = ids.split(", ").filter(|s| !s.is_empty()).collect();
+        if ids.is_empty() {
+            // The ordination stores no run: its axis shares are on the page.
+            let share = rerun["axes"][0]["share"].as_f64().unwrap();
+            let shown = format!("Axis 1 ({:.1}% ", 100.0 * share);
+            assert!(html.contains(&shown), "{part}: {shown} not on the page");
+            continue;
+        }
+        let groups = rerun.get("groups").and_then(Value::as_array);
+        for (i, id) in ids.iter().enumerate() {
+            let stored: Value =
+                serde_json::from_str(&env.stdout(["runs", "show", id, "--format", "json"]))
+                    .unwrap();
+            // A split trend prints one group per stored run, in order.
+            let this = match (part.as_str(), groups) {
+                ("trends", Some(g)) => &g[i],
+                _ => &rerun,
+            };
+            same_numbers(&stored["result"], this, &format!("{part} (run {id})"));
+        }
+    }
+}
