@@ -129,3 +129,102 @@ fn runs_stored_without_a_typed_spec_are_not_replayable() {
         "{err}"
     );
 }
+
+mod replay_property {
+    use proptest::prelude::*;
+    use serde_json::Value;
+
+    use crate::util::TestEnv;
+
+    /// The commands that store a run, with the flags each needs beyond the selection.
+    const COMMANDS: [&[&str]; 8] = [
+        &["permanova", "--by", "reach"],
+        &["dispersion", "--by", "habitat"],
+        &["compare", "--by", "reach"],
+        &["partition"],
+        &["trend"],
+        &[
+            "impact",
+            "--by",
+            "reach",
+            "--impact",
+            "lower",
+            "--before",
+            "2008..2015",
+            "--after",
+            "2016..2025",
+        ],
+        &["ordinate", "--method", "cca", "--constraint", "reach"],
+        &[
+            "compare",
+            "--by",
+            "period",
+            "--periods",
+            "2008..2015,2016..2025",
+            "--size-model",
+            "geometric",
+        ],
+    ];
+
+    /// Selections: protocol, unit, effort and a site or year filter.
+    const SELECTIONS: [&[&str]; 4] = [
+        &["--protocol", "kick", "--unit", "site-year", "--per-effort"],
+        &[
+            "--protocol",
+            "kick",
+            "--unit",
+            "site-year",
+            "--years",
+            "2010..2022",
+        ],
+        &["--protocol", "kick", "--unit", "event", "--per-effort"],
+        &[
+            "--protocol",
+            "kick",
+            "--unit",
+            "site-year",
+            "--site-where",
+            "habitat=riffle",
+        ],
+    ];
+
+    proptest! {
+        // Each case runs two commands end to end: a handful of cases keeps
+        // `cargo test` fast while covering every command and selection over time.
+        #![proptest_config(ProptestConfig::with_cases(6))]
+        #[test]
+        fn a_stored_run_verifies_identical_straight_away(
+            c in 0usize..COMMANDS.len(),
+            s in 0usize..SELECTIONS.len(),
+            seed in 0u64..1_000_000,
+        ) {
+            let env = TestEnv::with_demo_data();
+            let seed = seed.to_string();
+            let mut args: Vec<&str> = COMMANDS[c].to_vec();
+            args.extend(SELECTIONS[s]);
+            args.extend(["--permutations", "19", "--seed", seed.as_str(), "--format", "json"]);
+            let (code, out, err) = env.run(&args);
+            // A selection a command cannot analyse is refused (exit 1, stored nothing).
+            prop_assume!(code == 0 || !err.is_empty());
+            if code != 0 {
+                let list = env.stdout(["runs", "list", "--format", "json"]);
+                prop_assert_eq!(list.trim(), "[]", "{:?}: {}", args, err);
+                return Ok(());
+            }
+            let v: Value = serde_json::from_str(&out).unwrap();
+            let ids: Vec<String> = match v.get("groups").and_then(Value::as_array) {
+                Some(g) if v.get("split_by").is_some() => {
+                    g.iter().map(|x| x["run_id"].to_string()).collect()
+                }
+                _ => vec![v["run_id"].to_string()],
+            };
+            for id in ids {
+                let rep: Value = serde_json::from_str(
+                    &env.stdout(["runs", "verify", id.as_str(), "--format", "json"]),
+                )
+                .unwrap();
+                prop_assert_eq!(&rep["identical"], &Value::Bool(true), "{:?}: {}", args, rep);
+            }
+        }
+    }
+}
