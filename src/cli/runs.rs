@@ -149,7 +149,14 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         }
         Action::Show { id, format } => {
             let r = store.run(id)?;
-            print(out, format, &r, || serde_json::to_value(&r))
+            print(out, format, &r, || {
+                let mut v = serde_json::to_value(&r)?;
+                if let Ok((command, note)) = runs::command_of(&r) {
+                    v["command"] = serde_json::json!(command);
+                    v["command_note"] = serde_json::json!(note);
+                }
+                Ok(v)
+            })
         }
         Action::Verify { id, format } => super::verify::run(id, format, store, out),
         Action::Series {

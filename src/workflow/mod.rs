@@ -15,6 +15,7 @@ use std::fmt::Debug;
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
+pub mod command;
 pub mod compare;
 pub mod design;
 pub mod dispersion;

@@ -197,6 +197,18 @@ pub fn stored_spec(id: i64, kind: &str, parameters: &Value) -> Result<AnalysisSp
     })
 }
 
+/// The equivalent command line of a stored run ([`super::command::command_line`])
+/// and the note on what it cannot express, from its stored spec and selection.
+///
+/// # Errors
+/// [`WorkflowError::NotReplayable`] for a run without a typed spec; a stored
+/// selection that does not deserialise.
+pub fn command_of(r: &RunRecord) -> Result<(String, Option<String>)> {
+    let spec = stored_spec(r.id, &r.kind, &r.parameters)?;
+    let sel: Selection = serde_json::from_value(r.selection.clone())?;
+    Ok(super::command::command_line(&spec, &sel))
+}
+
 /// Verify run `id` against the store as it is now: reassemble its selection,
 /// compare the fingerprint, replay its spec in-process and compare every stored
 /// number and headline value.

@@ -399,6 +399,17 @@ fn every_run_the_demo_and_a_report_store_verifies() {
         let rep: Value =
             serde_json::from_str(&env.stdout(["runs", "verify", id, "--format", "json"])).unwrap();
         assert_eq!(rep["identical"], true, "run {id}: {rep}");
+        // The command `runs show` prints recomputes the same numbers.
+        let shown: Value =
+            serde_json::from_str(&env.stdout(["runs", "show", id, "--format", "json"])).unwrap();
+        let command = shown["command"].as_str().expect("a command line");
+        assert!(shown["command_note"].is_null(), "run {id}: {shown}");
+        let mut words: Vec<&str> = command.split_whitespace().skip(1).collect();
+        words.extend(["--format", "json", "--no-store"]);
+        let (code, rerun, err) = env.run(&words);
+        assert_eq!(code, 0, "run {id}: {command}: {err}");
+        let rerun: Value = serde_json::from_str(&rerun).unwrap();
+        same_numbers(&shown["result"], &rerun, &format!("run {id}: {command}"));
     }
     // The report names the seed and permutations of each stored part.
     let html = std::fs::read_to_string(&out).unwrap();

@@ -90,6 +90,15 @@ impl Render for RunRecord {
         )?;
         writeln!(out, "selection:  {}", self.selection)?;
         writeln!(out, "parameters: {}", self.parameters)?;
+        match crate::workflow::runs::command_of(self) {
+            Ok((command, note)) => {
+                writeln!(out, "command:    {command}")?;
+                if let Some(n) = note {
+                    writeln!(out, "            ({n})")?;
+                }
+            }
+            Err(e) => writeln!(out, "command:    none ({e})")?,
+        }
         writeln!(
             out,
             "seed:       {}",
