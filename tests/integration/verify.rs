@@ -228,3 +228,54 @@ mod replay_property {
         }
     }
 }
+
+#[test]
+fn a_saved_selection_gives_what_its_flags_give_in_every_analysis() {
+    // A selection stores only the flags given; every analysis command applies its
+    // own defaults to it, so `--selection NAME` and the flags give one result.
+    let env = crate::util::TestEnv::with_demo_data();
+    let flags = [
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--years",
+        "2009..2024",
+        "--site-where",
+        "habitat=riffle",
+    ];
+    let mut save = vec!["selections", "save", "riffles"];
+    save.extend(flags);
+    env.stdout(&save);
+    let commands: [&[&str]; 7] = [
+        &["permanova", "--by", "reach"],
+        &["dispersion", "--by", "reach"],
+        &["compare", "--by", "reach"],
+        &["partition"],
+        &["trend"],
+        &[
+            "impact", "--by", "reach", "--impact", "lower", "--before", "2009..2015", "--after",
+            "2016..2024",
+        ],
+        &["ordinate", "--method", "cca", "--constraint", "reach"],
+    ];
+    let tail = [
+        "--permutations",
+        "19",
+        "--seed",
+        "3",
+        "--format",
+        "json",
+        "--no-store",
+    ];
+    for c in commands {
+        let mut by_name: Vec<&str> = c.to_vec();
+        by_name.extend(["--selection", "riffles"]);
+        by_name.extend(tail);
+        let mut by_flags: Vec<&str> = c.to_vec();
+        by_flags.extend(flags);
+        by_flags.extend(tail);
+        let a = json_of(&env.stdout(&by_name));
+        let b = json_of(&env.stdout(&by_flags));
+        assert_eq!(a, b, "{c:?}");
+    }
+}
