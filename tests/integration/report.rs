@@ -360,14 +360,10 @@ fn demo_recovers_the_stories_and_writes_its_report() {
     }
 }
 
-#[test]
-fn every_run_the_demo_and_a_report_store_verifies() {
-    // `tally demo` stores its composition tests, comparisons, partition and
-    // trends; a report with --by and --split-by stores its comparison,
-    // partition and one trend per group. `runs verify` replays each from its
-    // stored spec and selection and must reproduce every stored number.
-    let env = demo_env();
-    let out = env.path("r.html");
+/// `tally report --by reach --split-by reach` on the demo selection, written to
+/// `name` in the test's directory, with its runs stored.
+fn full_report(env: &TestEnv, name: &str, permutations: &str, seed: &str) -> PathBuf {
+    let out = env.path(name);
     let out_s = out.to_string_lossy().to_string();
     env.stdout(args(
         "report",
@@ -379,11 +375,22 @@ fn every_run_the_demo_and_a_report_store_verifies() {
             "--out",
             &out_s,
             "--permutations",
-            "99",
+            permutations,
             "--seed",
-            "7",
+            seed,
         ],
     ));
+    out
+}
+
+#[test]
+fn every_run_the_demo_and_a_report_store_verifies() {
+    // `tally demo` stores its composition tests, comparisons, partition and
+    // trends; a report with --by and --split-by stores its comparison,
+    // partition and one trend per group. `runs verify` replays each from its
+    // stored spec and selection and must reproduce every stored number.
+    let env = demo_env();
+    let out = full_report(&env, "r.html", "99", "7");
     let list: Value =
         serde_json::from_str(&env.stdout(["runs", "list", "--format", "json"])).unwrap();
     let ids: Vec<String> = list
@@ -615,23 +622,7 @@ fn the_commands_the_report_prints_reproduce_its_numbers() {
     // --format json, gives the numbers of the part's stored run (which the HTML
     // renders), and the ordination's axis shares as the page shows them.
     let env = demo_env();
-    let out = env.path("cmd.html");
-    let out_s = out.to_string_lossy().to_string();
-    env.stdout(args(
-        "report",
-        &[
-            "--by",
-            "reach",
-            "--split-by",
-            "reach",
-            "--out",
-            &out_s,
-            "--permutations",
-            "49",
-            "--seed",
-            "5",
-        ],
-    ));
+    let out = full_report(&env, "cmd.html", "49", "5");
     let html = std::fs::read_to_string(&out).unwrap();
     let mut rows = Vec::new();
     for chunk in html.split("<tr><td>").skip(1) {
