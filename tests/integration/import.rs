@@ -426,7 +426,7 @@ fn check_passes_and_backup_copies_the_content() {
     assert_eq!(copied, env.dump());
     let (code, _, err) = env.run(["backup", copy.to_str().unwrap()]);
     assert_eq!(code, 1);
-    assert!(err.contains("already exists"), "{err}");
+    assert!(err.contains("exists") && err.contains("--force"), "{err}");
 }
 
 #[test]
