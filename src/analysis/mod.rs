@@ -12,6 +12,7 @@ pub mod cca_test;
 pub mod count_model;
 pub mod dispersion;
 pub mod dissimilarity;
+pub mod diversity;
 pub mod ellipse;
 pub mod error;
 pub mod gower;
