@@ -1267,15 +1267,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
             ""
         }
     );
-    // Equally spaced years: the reversed relabelling gives the same linear-trend
-    // statistic, so an exact p is at least 2/k!.
-    let mirrored =
-        (0..k).all(|j| (yearv[j] + yearv[k - 1 - j] - (yearv[0] + yearv[k - 1])).abs() < 1e-9);
-    let smallest_possible_p = if exact {
-        (if mirrored { 2.0 } else { 1.0 }) / perms.len() as f64
-    } else {
-        1.0 / (perms.len() + 1) as f64
-    };
+    let smallest_possible_p = smallest_p(&yearv, perms.len(), exact);
     Ok(TrendResult {
         n: size_n,
         years,
@@ -1295,6 +1287,139 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
         scheme,
         smallest_possible_p,
         notes,
+    })
+}
+
+/// The smallest p-value of a linear-trend test over `evaluated` year
+/// relabellings: `1/(P + 1)` for random ones; under exact enumeration `1/k!`, or
+/// `2/k!` for equally spaced years, whose reversed relabelling gives the same
+/// linear-trend statistic.
+fn smallest_p(yearv: &[f64], evaluated: usize, exact: bool) -> f64 {
+    let k = yearv.len();
+    let mirrored =
+        (0..k).all(|j| (yearv[j] + yearv[k - 1 - j] - (yearv[0] + yearv[k - 1])).abs() < 1e-9);
+    if exact {
+        (if mirrored { 2.0 } else { 1.0 }) / evaluated as f64
+    } else {
+        1.0 / (evaluated + 1) as f64
+    }
+}
+
+// ------------------------------------------------------------------ one value per row
+
+/// The trend of one strictly positive value per row (a diversity index, say) on
+/// the log scale: the geometric size side of [`trend`] applied to the value.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LogTrend {
+    /// Rows used.
+    pub n: usize,
+    /// Distinct years.
+    pub years: Vec<i32>,
+    /// Distinct sites.
+    pub sites: usize,
+    /// OLS slope of ln(value) on year given site (and season).
+    pub slope_log: f64,
+    /// The slope as % change per year.
+    pub pct_per_year: f64,
+    /// The fitted change from the first year to the last, in %.
+    pub change_pct: f64,
+    /// 95 % interval of the % per year (slopes refitted to full-model residuals
+    /// under the same year relabellings).
+    pub ci_low: f64,
+    /// Upper end.
+    pub ci_high: f64,
+    /// Partial pseudo-F of year given site (and season).
+    pub pseudo_f: f64,
+    /// Permutation p-value of whole-year relabellings.
+    pub p_value: f64,
+    /// Residual degrees of freedom.
+    pub df_resid: usize,
+    /// Relabellings evaluated.
+    pub permutations: usize,
+    /// True when every arrangement of the years was enumerated.
+    pub exact: bool,
+    /// Smallest p-value the test can give.
+    pub smallest_possible_p: f64,
+}
+
+/// The log-linear trend of `values` (one per row, all > 0) across years, with a
+/// site effect (and a season effect), tested by relabelling whole years across
+/// all sites at once as [`trend`] does (docs/methods.md, "Trends across years
+/// (`tally trend`)"). The year relabellings depend only on the number of years,
+/// `permutations` and `seed`, so several values of the same rows are tested
+/// under the same relabellings.
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`]; [`AnalysisError::NonFinite`] or
+/// [`AnalysisError::InvalidArgument`] for a value that is not finite and
+/// positive; [`AnalysisError::TooFewGroups`] for fewer than 3 years;
+/// [`AnalysisError::Saturated`]; year confounded with site.
+pub fn log_trend(
+    values: &[f64],
+    year: &[i32],
+    site: &[usize],
+    season: Option<&[usize]>,
+    permutations: usize,
+    seed: u64,
+) -> Result<LogTrend, AnalysisError> {
+    let n = values.len();
+    for len in [year.len(), site.len(), season.map_or(n, <[usize]>::len)] {
+        if len != n {
+            return Err(AnalysisError::DimensionMismatch {
+                expected: n,
+                found: len,
+            });
+        }
+    }
+    if let Some(i) = values.iter().position(|v| !v.is_finite()) {
+        return Err(AnalysisError::NonFinite { row: i, col: 0 });
+    }
+    if let Some(i) = values.iter().position(|v| prec::not_positive(*v)) {
+        return Err(AnalysisError::InvalidArgument {
+            name: "values",
+            reason: format!("row {i} holds {}: its logarithm is undefined", values[i]),
+        });
+    }
+    let labels = YearLabels::new(year);
+    let years = labels.years().to_vec();
+    let k = years.len();
+    if k < 3 {
+        return Err(AnalysisError::TooFewGroups { found: k, min: 3 });
+    }
+    let site = recode(site);
+    let season = season.map(recode);
+    let reduced = reduced_basis(&site, season.as_deref())?;
+    let yearv: Vec<f64> = years.iter().map(|&y| f64::from(y - years[0])).collect();
+    let logs: Vec<f64> = values.iter().map(|v| v.ln()).collect();
+    let side = SizeSide::geometric(&logs, &reduced, labels.codes(), k, &yearv)?;
+    let (perms, exact) = year_permutations(k, permutations, seed)?;
+    let mut stats = Vec::with_capacity(perms.len());
+    let mut slopes = Vec::with_capacity(perms.len());
+    for perm in &perms {
+        let v: Vec<f64> = perm.iter().map(|&j| yearv[j]).collect();
+        stats.push(side.statistic(&v));
+        slopes.push(side.refitted_slope(&v));
+    }
+    let observed = side.statistic(&yearv);
+    slopes.sort_by(f64::total_cmp);
+    let (lo, hi) = (quantile(&slopes, 0.025), quantile(&slopes, 0.975));
+    let (slope, _, _, df_resid) = side.estimate();
+    let sites = site.iter().max().map_or(0, |m| m + 1);
+    Ok(LogTrend {
+        n,
+        sites,
+        slope_log: slope,
+        pct_per_year: pct(slope),
+        change_pct: pct(slope * yearv[k - 1]),
+        ci_low: pct(slope - hi),
+        ci_high: pct(slope - lo),
+        pseudo_f: observed,
+        p_value: p_value(observed, &stats, exact),
+        df_resid,
+        permutations: perms.len(),
+        exact,
+        smallest_possible_p: smallest_p(&yearv, perms.len(), exact),
+        years,
     })
 }
 
@@ -1619,6 +1744,56 @@ mod tests {
         assert!((s.pseudo_f - f).abs() < 1e-8 * f);
         // Same matrix for shape: same F.
         assert!((r.shape_trend.pseudo_f - f).abs() < 1e-8 * f);
+    }
+
+    #[test]
+    fn the_log_trend_of_one_value_matches_statsmodels_ols_and_the_size_trend() {
+        let fx = fixture();
+        let o = &fx["ols"];
+        let num = |k: &str| -> Vec<f64> {
+            o[k].as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_f64().unwrap())
+                .collect()
+        };
+        let y = num("y");
+        let year: Vec<i32> = num("year").iter().map(|v| *v as i32).collect();
+        let site_labels: Vec<String> = o["site"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_str().unwrap().to_string())
+            .collect();
+        let site = Grouping::from_labels(&site_labels).codes().to_vec();
+        let values: Vec<f64> = y.iter().map(|v| v.exp()).collect();
+        let t = log_trend(&values, &year, &site, None, 99, 1).unwrap();
+        // statsmodels OLS y ~ C(site) + year and anova_lm F (make_trend_fixtures.py)
+        assert!((t.slope_log - o["slope"].as_f64().unwrap()).abs() < 1e-10);
+        let f = o["f_year_given_site"].as_f64().unwrap();
+        assert!((t.pseudo_f - f).abs() < 1e-8 * f);
+        assert_eq!(t.df_resid as u64, o["df_resid"].as_u64().unwrap());
+        // The same rows through the whole trend give the same p and interval.
+        let d = univariate(&y);
+        let data = TrendData {
+            log_abundance: &y,
+            shape: &d,
+            combined: &d,
+            year: &year,
+            season: None,
+            site: &site,
+            counts: None,
+        };
+        let r = trend(&data, &opts(99, 1)).unwrap();
+        assert_eq!(t.p_value, r.size_trend.p_value);
+        assert_eq!(
+            (t.ci_low, t.ci_high),
+            (r.size_trend.ci_low, r.size_trend.ci_high)
+        );
+        assert_eq!(t.smallest_possible_p, r.smallest_possible_p);
+        let span = f64::from(t.years[t.years.len() - 1] - t.years[0]);
+        assert!((t.change_pct - 100.0 * ((t.slope_log * span).exp() - 1.0)).abs() < 1e-9);
+        assert!(log_trend(&[1.0, 0.0, 2.0], &[1, 2, 3], &[0, 0, 0], None, 9, 1).is_err());
     }
 
     fn random_data(
