@@ -13,6 +13,8 @@
 //! any n, and it reaches zero exactly where the coefficient does.
 
 use super::AnalysisError;
+use super::permutation::{block_rng, bounded};
+use super::prec::quantile;
 
 /// 97.5 % point of the standard normal, 1.959963984540054 (value from memory;
 /// the fixture recomputes the interval with SciPy's quantile).
@@ -362,40 +364,34 @@ impl Sample {
 
     /// Richness at sample coverage `target` (0 < target ≤ 1), with the sample
     /// size that reaches it: on the rarefaction curve when the sample's own
-    /// coverage is at least `target` (linear between the integer sizes that
-    /// bracket it), on the extrapolation curve up to twice the sample size
+    /// coverage is at least `target` (the first size that reaches it, linear
+    /// between that integer size and the one before), on the extrapolation curve up to twice the sample size
     /// (Chao & Jost 2012; Chao et al. 2014).
     pub fn at_coverage(&self, target: f64) -> AtCoverage {
         let Some(cn) = self.coverage() else {
             return AtCoverage::TooFew;
         };
         if target <= cn {
+            // The first size that reaches the target: C(lo) < target <= C(hi).
             let (mut lo, mut hi) = (0u64, self.n);
-            if target == cn {
-                lo = self.n;
-            }
-            while hi - lo > 1 && lo < self.n {
+            while hi - lo > 1 {
                 let mid = lo + (hi - lo) / 2;
-                if self.coverage_of(mid) <= target {
-                    lo = mid;
-                } else {
+                if self.coverage_of(mid) >= target {
                     hi = mid;
+                } else {
+                    lo = mid;
                 }
             }
-            if lo == self.n {
+            let a = self.rarefied(lo, false).expect("invariant: lo < n");
+            let b = self.rarefied(hi, false).expect("invariant: hi <= n");
+            if target == b.coverage {
                 return AtCoverage::Reached {
-                    size: self.n as f64,
-                    richness: self.s as f64,
+                    size: hi as f64,
+                    richness: b.richness,
                     extrapolated: false,
                 };
             }
-            let a = self.rarefied(lo, false).expect("invariant: lo < n");
-            let b = self.rarefied(hi, false).expect("invariant: hi ≤ n");
-            let frac = if b.coverage > a.coverage {
-                (target - a.coverage) / (b.coverage - a.coverage)
-            } else {
-                0.0
-            };
+            let frac = (target - a.coverage) / (b.coverage - a.coverage);
             return AtCoverage::Reached {
                 size: lo as f64 + frac,
                 richness: a.richness + frac * (b.richness - a.richness),
@@ -406,9 +402,11 @@ impl Sample {
         let reach = self.reach().expect("invariant: n ≥ 2");
         let decay = self.decay();
         let m_star = ((1.0 - target) * n / self.f1()).ln() / decay.ln() - 1.0;
-        if !(m_star.is_finite() && m_star <= n) || target > reach {
+        if target > reach || !m_star.is_finite() {
             return AtCoverage::Beyond { reach };
         }
+        // At the reach itself the inverted logarithm may land a rounding above 2n.
+        let m_star = m_star.min(n);
         let (richness, _) = self.extrapolated(m_star).expect("invariant: n ≥ 2");
         AtCoverage::Reached {
             size: n + m_star,
@@ -431,6 +429,40 @@ pub fn common_coverage<'a>(samples: impl IntoIterator<Item = &'a Sample>) -> Opt
         .min_by(|a, b| a.0.total_cmp(&b.0))
 }
 
+/// Mean of some values with a seeded percentile-bootstrap 95 % interval: the
+/// values are resampled with replacement `resamples` times from generator
+/// stream `stream` of `seed` (Efron & Tibshirani 1993, An Introduction to the
+/// Bootstrap, ch. 13). No interval below two values or without resamples.
+pub fn mean_interval(
+    values: &[f64],
+    resamples: usize,
+    seed: u64,
+    stream: u64,
+) -> (Option<f64>, Option<(f64, f64)>) {
+    let n = values.len();
+    if n == 0 {
+        return (None, None);
+    }
+    let mean = values.iter().sum::<f64>() / n as f64;
+    if n < 2 || resamples == 0 {
+        return (Some(mean), None);
+    }
+    let mut rng = block_rng(seed, stream);
+    let mut means: Vec<f64> = (0..resamples)
+        .map(|_| {
+            (0..n)
+                .map(|_| values[bounded(&mut rng, n as u64) as usize])
+                .sum::<f64>()
+                / n as f64
+        })
+        .collect();
+    means.sort_by(f64::total_cmp);
+    (
+        Some(mean),
+        Some((quantile(&means, 0.025), quantile(&means, 0.975))),
+    )
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -439,6 +471,151 @@ mod tests {
 
     fn sample(c: &[u64]) -> Sample {
         Sample::from_counts(c)
+    }
+
+    const FIXTURE: &str = include_str!("../../tests/reference/diversity.json");
+
+    /// `a` equals the fixture value `b` (or both are missing) within a relative
+    /// `rel` of `b`, with an absolute floor `abs` for values that are zero.
+    fn close(what: &str, a: Option<f64>, b: &serde_json::Value, rel: f64, abs: f64) {
+        match (a, b.as_f64()) {
+            (None, None) => {}
+            (Some(a), Some(b)) => assert!(
+                (a - b).abs() <= rel * b.abs() + abs,
+                "{what}: tally {a}, fixture {b}"
+            ),
+            (a, _) => panic!("{what}: tally {a:?}, fixture {b}"),
+        }
+    }
+
+    #[test]
+    fn every_estimator_matches_the_numpy_fixture() {
+        // tests/reference/make_diversity_fixtures.py: the published formulas
+        // (Hill 1973; Chao & Jost 2012; Chao 1987; Hurlbert 1971; Heck, van Belle &
+        // Simberloff 1975; Chao et al. 2014) in exact integer arithmetic.
+        let fx: serde_json::Value = serde_json::from_str(FIXTURE).unwrap();
+        for case in fx["samples"].as_array().unwrap() {
+            let name = case["name"].as_str().unwrap();
+            let counts: Vec<f64> = case["counts"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_f64().unwrap())
+                .collect();
+            let s = Sample::new(&counts).unwrap();
+            let at = |k: &str| format!("{name}.{k}");
+            assert_eq!(s.individuals(), case["individuals"].as_u64().unwrap());
+            assert_eq!(s.richness(), case["richness"].as_u64().unwrap());
+            assert_eq!(s.taxa_with(1), case["singletons"].as_u64().unwrap());
+            assert_eq!(s.taxa_with(2), case["doubletons"].as_u64().unwrap());
+            let tol = 1e-12;
+            close(&at("hill_q1"), s.hill_q1(), &case["hill_q1"], tol, 0.0);
+            close(&at("hill_q2"), s.hill_q2(), &case["hill_q2"], tol, 0.0);
+            close(&at("coverage"), s.coverage(), &case["coverage"], tol, 0.0);
+            let chao = s.chao1();
+            close(
+                &at("chao1"),
+                chao.map(|c| c.estimate),
+                &case["chao1"],
+                tol,
+                0.0,
+            );
+            close(
+                &at("chao1_var"),
+                chao.and_then(|c| c.variance),
+                &case["chao1_var"],
+                1e-10,
+                0.0,
+            );
+            let ci = chao.and_then(|c| c.interval);
+            close(
+                &at("chao1_lo"),
+                ci.map(|c| c.0),
+                &case["chao1_ci"][0],
+                1e-10,
+                0.0,
+            );
+            close(
+                &at("chao1_hi"),
+                ci.map(|c| c.1),
+                &case["chao1_ci"][1],
+                1e-10,
+                0.0,
+            );
+            for r in case["rarefied"].as_array().unwrap() {
+                let m = r["m"].as_u64().unwrap();
+                let got = s.rarefied(m, true).unwrap();
+                let w = |k: &str| format!("{name}.rarefied[{m}].{k}");
+                close(
+                    &w("richness"),
+                    Some(got.richness),
+                    &r["richness"],
+                    1e-11,
+                    1e-12,
+                );
+                close(
+                    &w("coverage"),
+                    Some(got.coverage),
+                    &r["coverage"],
+                    1e-11,
+                    1e-12,
+                );
+                // A variance that is exactly 0 comes out as rounding: compare the
+                // sd with an absolute floor of 1e-6 (sqrt of 1e-12).
+                close(&w("sd"), got.sd, &r["sd"], 1e-8, 1e-6);
+            }
+            for e in case["extrapolated"].as_array().unwrap() {
+                let m = e["m_star"].as_f64().unwrap();
+                let got = s.extrapolated(m);
+                let w = |k: &str| format!("{name}.extrapolated[{m}].{k}");
+                close(&w("richness"), got.map(|g| g.0), &e["richness"], 1e-11, 0.0);
+                close(&w("coverage"), got.map(|g| g.1), &e["coverage"], 1e-11, 0.0);
+            }
+            for t in case["at_coverage"].as_array().unwrap() {
+                let target = t["target"].as_f64().unwrap();
+                let (size, rich) = match s.at_coverage(target) {
+                    AtCoverage::Reached { size, richness, .. } => (Some(size), Some(richness)),
+                    _ => (None, None),
+                };
+                let w = |k: &str| format!("{name}.at_coverage[{target}].{k}");
+                close(&w("size"), size, &t["size"], 1e-9, 1e-12);
+                close(&w("richness"), rich, &t["richness"], 1e-9, 1e-12);
+            }
+        }
+        let auto = &fx["auto_coverage"];
+        let names: Vec<&str> = auto["samples"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_str().unwrap())
+            .collect();
+        let samples: Vec<Sample> = names
+            .iter()
+            .map(|n| {
+                let case = fx["samples"]
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .find(|c| c["name"] == *n)
+                    .unwrap();
+                let counts: Vec<u64> = case["counts"]
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_u64().unwrap())
+                    .collect();
+                Sample::from_counts(&counts)
+            })
+            .collect();
+        let (level, _) = common_coverage(&samples).unwrap();
+        close("auto level", Some(level), &auto["level"], 1e-12, 0.0);
+        for (s, p) in samples.iter().zip(auto["per_sample"].as_array().unwrap()) {
+            let AtCoverage::Reached { size, richness, .. } = s.at_coverage(level) else {
+                panic!("{} does not reach the common coverage", p["name"]);
+            };
+            close("auto size", Some(size), &p["size"], 1e-9, 0.0);
+            close("auto richness", Some(richness), &p["richness"], 1e-9, 0.0);
+        }
     }
 
     #[test]

@@ -177,6 +177,24 @@ pub fn command_line(spec: &AnalysisSpec, selection: &Selection) -> (String, Opti
             l.flag("axes", s.axes).distance(&s.distance);
             (l.run(s.permutations, s.seed), None)
         }
+        AnalysisSpec::Diversity(s) => {
+            let mut l = Line::new("diversity", selection);
+            l.opt("rarefy-to", s.rarefy_to).flag(
+                "coverage",
+                match s.coverage {
+                    None => "none".to_string(),
+                    Some(super::diversity::CoverageTarget::Auto) => "auto".to_string(),
+                    Some(super::diversity::CoverageTarget::Level(c)) => c.to_string(),
+                },
+            );
+            l.opt("every", s.every.map(|e| e.name()))
+                .opt("by", s.by.as_deref())
+                .flag("permute", s.scheme.as_str())
+                .opt("strata", s.strata.as_deref())
+                .flag("alpha", s.alpha)
+                .flag("bootstrap", s.bootstrap);
+            (l.run(s.permutations, Some(s.seed)), None)
+        }
         AnalysisSpec::Impact(s) => {
             let mut l = Line::new("impact", selection);
             l.flag("by", &s.by)

@@ -19,6 +19,7 @@ pub mod command;
 pub mod compare;
 pub mod design;
 pub mod dispersion;
+pub mod diversity;
 pub mod error;
 pub mod impact;
 pub mod ordinate;
@@ -168,6 +169,7 @@ analyses! {
     Partition => partition,
     Compare => compare,
     Impact => impact,
+    Diversity => diversity,
 }
 
 #[cfg(test)]

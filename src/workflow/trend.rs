@@ -462,6 +462,34 @@ impl Split {
     }
 }
 
+/// The season of every row of `m` and its code, seasons numbered in calendar
+/// order within the season year (spring, summer, autumn, winter, then other
+/// windows by name), for `--every season`.
+///
+/// # Errors
+/// [`WorkflowError::Field`] when a row pools several seasons.
+pub fn seasons(m: &crate::matrix::CountMatrix) -> Result<(Vec<String>, Vec<usize>)> {
+    let names = m
+        .field_values("season")
+        .map_err(|cause| WorkflowError::Field {
+            option: "--every",
+            field: "season".into(),
+            cause,
+        })?;
+    let mut distinct: Vec<(usize, String)> = names.iter().map(|s| season_rank(s)).collect();
+    distinct.sort();
+    distinct.dedup();
+    let codes = names
+        .iter()
+        .map(|s| {
+            distinct
+                .binary_search(&season_rank(s))
+                .expect("invariant: s is a distinct season")
+        })
+        .collect();
+    Ok((names, codes))
+}
+
 /// Chronological rank of a season name within its season year.
 fn season_rank(name: &str) -> (usize, String) {
     let r = match name {
@@ -526,32 +554,13 @@ impl Analysis for Spec {
             }
             year.push(s.year);
         }
-        let season_names: Option<Vec<String>> = match self.every {
-            Every::Year => None,
+        let (season_names, season) = match self.every {
+            Every::Year => (None, None),
             Every::Season => {
-                Some(
-                    m.field_values("season")
-                        .map_err(|cause| WorkflowError::Field {
-                            option: "--every",
-                            field: "season".into(),
-                            cause,
-                        })?,
-                )
+                let (names, codes) = seasons(m)?;
+                (Some(names), Some(codes))
             }
         };
-        let season: Option<Vec<usize>> = season_names.as_ref().map(|names| {
-            let mut distinct: Vec<(usize, String)> = names.iter().map(|s| season_rank(s)).collect();
-            distinct.sort();
-            distinct.dedup();
-            names
-                .iter()
-                .map(|s| {
-                    distinct
-                        .binary_search(&season_rank(s))
-                        .expect("invariant: s is a distinct season")
-                })
-                .collect()
-        });
         let sites: Vec<&str> = m.samples.iter().map(|s| s.site.as_str()).collect();
         let site = Grouping::from_labels(&sites).codes().to_vec();
         // A row that caught nothing has no composition: it counts in the size trend
