@@ -416,6 +416,57 @@ impl Sample {
     }
 }
 
+/// One point of a sample's rarefaction and extrapolation curve.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct CurvePoint {
+    /// Individuals (m up to n, then n + m*).
+    pub size: f64,
+    /// Expected richness there.
+    pub richness: f64,
+    /// Estimated coverage there.
+    pub coverage: f64,
+    /// True beyond the sample's own individuals.
+    pub extrapolated: bool,
+}
+
+impl Sample {
+    /// The sample's rarefaction curve from 1 to n individuals and its
+    /// extrapolation on to 2n, at about `points` sizes on each side (integer sizes
+    /// up to n; the observed sample is always a point). Empty below two individuals.
+    pub fn curve(&self, points: usize) -> Vec<CurvePoint> {
+        if self.n < 2 || points == 0 {
+            return Vec::new();
+        }
+        let n = self.n;
+        let mut sizes: Vec<u64> = (1..=points as u64)
+            .map(|k| (k * n).div_ceil(points as u64))
+            .collect();
+        sizes.dedup();
+        let mut out: Vec<CurvePoint> = sizes
+            .into_iter()
+            .filter_map(|m| self.rarefied(m, false))
+            .map(|r| CurvePoint {
+                size: r.m as f64,
+                richness: r.richness,
+                coverage: r.coverage,
+                extrapolated: false,
+            })
+            .collect();
+        for k in 1..=points {
+            let m_star = (n as f64) * k as f64 / points as f64;
+            if let Some((richness, coverage)) = self.extrapolated(m_star) {
+                out.push(CurvePoint {
+                    size: n as f64 + m_star,
+                    richness,
+                    coverage,
+                    extrapolated: true,
+                });
+            }
+        }
+        out
+    }
+}
+
 /// The common coverage of a set of samples (Chao et al. 2014, Ecol. Monogr.
 /// 84:45–67): the lowest coverage that every sample reaches by interpolation or
 /// by extrapolation to at most twice its size, with the index of the sample that
@@ -713,6 +764,23 @@ mod tests {
             (sd - expected_sd).abs() < 0.06 * expected_sd,
             "{sd} vs {expected_sd}"
         );
+    }
+
+    #[test]
+    fn the_curve_runs_through_the_sample_to_twice_its_size() {
+        let s = sample(&[1, 1, 2, 3, 5, 8, 13]);
+        let c = s.curve(10);
+        let observed = c
+            .iter()
+            .find(|p| p.size == 33.0 && !p.extrapolated)
+            .unwrap();
+        assert_eq!(observed.richness, 7.0);
+        assert_eq!(c.last().unwrap().size, 66.0);
+        assert!(
+            c.windows(2)
+                .all(|w| w[1].size > w[0].size && w[1].richness >= w[0].richness)
+        );
+        assert!(sample(&[1]).curve(10).is_empty());
     }
 
     #[test]

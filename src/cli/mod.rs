@@ -19,6 +19,7 @@ pub mod compare;
 pub mod demo;
 pub mod dispersion;
 pub mod distances;
+pub mod diversity;
 pub mod impact;
 pub mod import;
 pub mod init;
@@ -112,6 +113,8 @@ pub enum Command {
     Dispersion(dispersion::Args),
     /// Trends across years: fewer animals, different animals, or both, and since when.
     Trend(trend::Args),
+    /// Richness and Hill numbers, raw and at equal sample coverage, per row, period or group.
+    Diversity(diversity::Args),
 }
 
 /// Run a parsed command line.
@@ -143,6 +146,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Permanova(args) => permanova::run(args, &mut open_store(&db)?, &mut out),
         Command::Dispersion(args) => dispersion::run(args, &mut open_store(&db)?, &mut out),
         Command::Trend(args) => trend::run(args, &mut open_store(&db)?, &mut out),
+        Command::Diversity(args) => diversity::run(args, &mut open_store(&db)?, &mut out),
     };
     result?;
     out.flush()?;

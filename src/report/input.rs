@@ -105,3 +105,70 @@ pub fn report_input(r: &Report, run_ids: &[i64]) -> ReportInput {
         cautions: Vec::new(),
     }
 }
+
+/// The plot of a diversity outcome: its curves, the common coverage and, with
+/// periods, the means per period.
+pub fn diversity_plot(
+    o: &crate::workflow::diversity::Outcome,
+    title: &str,
+) -> super::svg::DiversityPlot {
+    use super::svg::{DiversityCurve, DiversityPeriod};
+    let curves = o
+        .curves
+        .iter()
+        .filter(|c| !c.points.is_empty())
+        .map(|c| {
+            let observed = c
+                .points
+                .iter()
+                .find(|p| !p.extrapolated && p.size == c.individuals as f64)
+                .map_or((c.individuals as f64, c.richness as f64, 1.0), |p| {
+                    (p.size, p.richness, p.coverage)
+                });
+            DiversityCurve {
+                label: c.name.clone(),
+                points: c
+                    .points
+                    .iter()
+                    .map(|p| (p.size, p.richness, p.coverage, p.extrapolated))
+                    .collect(),
+                observed,
+            }
+        })
+        .collect();
+    let triple = |s: &crate::workflow::diversity::Summary| -> Option<(f64, f64, f64)> {
+        let m = s.mean?;
+        Some((m, s.ci_low.unwrap_or(m), s.ci_high.unwrap_or(m)))
+    };
+    // Seasons of one year sit side by side within the year.
+    let periods = o
+        .periods
+        .iter()
+        .flatten()
+        .filter_map(|b| {
+            let year = f64::from(b.year?);
+            Some(DiversityPeriod {
+                period: year,
+                raw: triple(&b.richness)?,
+                at_coverage: triple(&b.coverage_richness),
+            })
+        })
+        .collect::<Vec<_>>();
+    let seasonal = o.periods.iter().flatten().any(|b| b.season.is_some());
+    super::svg::DiversityPlot {
+        title: title.to_string(),
+        subtitle: format!(
+            "{} {} rows{}",
+            o.n,
+            o.unit.as_str(),
+            o.coverage.as_ref().map_or(String::new(), |c| format!(
+                ", common coverage {:.1} %",
+                100.0 * c.level
+            ))
+        ),
+        curves,
+        level: o.coverage.as_ref().map(|c| c.level),
+        // One point per year: a seasonal series is drawn in the curves only.
+        periods: if seasonal { Vec::new() } else { periods },
+    }
+}

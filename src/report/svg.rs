@@ -1058,6 +1058,299 @@ pub fn trend_svg(plot: &TrendPlot) -> Result<String, SvgError> {
     wrap_markers(out, &marks)
 }
 
+// ------------------------------------------------------------------ diversity
+
+/// One rarefaction and extrapolation curve of [`DiversityPlot`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiversityCurve {
+    /// Period, group or row.
+    pub label: String,
+    /// `(individuals, richness, coverage, extrapolated)`, by increasing size.
+    pub points: Vec<(f64, f64, f64, bool)>,
+    /// The observed sample: `(individuals, richness, coverage)`.
+    pub observed: (f64, f64, f64),
+}
+
+/// One period of the bottom panel of [`DiversityPlot`]: mean and interval of
+/// raw richness and of richness at the common coverage.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiversityPeriod {
+    /// Position on the time axis.
+    pub period: f64,
+    /// Mean raw richness per row and its interval.
+    pub raw: (f64, f64, f64),
+    /// Mean richness at the common coverage and its interval.
+    pub at_coverage: Option<(f64, f64, f64)>,
+}
+
+/// Input of [`diversity_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiversityPlot {
+    /// Plot title.
+    pub title: String,
+    /// The selection, in words.
+    pub subtitle: String,
+    /// Curves, one per period, group or row.
+    pub curves: Vec<DiversityCurve>,
+    /// The common coverage (a vertical line in the coverage panel).
+    pub level: Option<f64>,
+    /// Periods of the time panel (empty: no time panel).
+    pub periods: Vec<DiversityPeriod>,
+}
+
+/// Richness against individuals (left) and against sample coverage (right),
+/// rarefaction solid and extrapolation dashed, the observed sample marked; with
+/// periods, a bottom panel of mean richness per row through time, raw and at
+/// the common coverage, with their intervals.
+///
+/// # Errors
+/// [`SvgError::Empty`] without curves, [`SvgError::NonFinite`],
+/// [`SvgError::Draw`].
+pub fn diversity_svg(plot: &DiversityPlot) -> Result<String, SvgError> {
+    if plot.curves.iter().all(|c| c.points.is_empty()) {
+        return Err(SvgError::Empty(
+            "no curve: every row holds fewer than two individuals",
+        ));
+    }
+    check_finite(
+        plot.curves
+            .iter()
+            .flat_map(|c| c.points.iter().flat_map(|p| [p.0, p.1, p.2]))
+            .chain(plot.periods.iter().flat_map(|p| {
+                let c = p.at_coverage.unwrap_or(p.raw);
+                [p.period, p.raw.0, p.raw.1, p.raw.2, c.0, c.1, c.2]
+            })),
+        "diversity values",
+    )?;
+    let xmax = plot
+        .curves
+        .iter()
+        .flat_map(|c| c.points.iter().map(|p| p.0))
+        .fold(1.0_f64, f64::max);
+    let ymax = plot
+        .curves
+        .iter()
+        .flat_map(|c| c.points.iter().map(|p| p.1))
+        .fold(1.0_f64, f64::max)
+        * 1.08;
+    let cmin = plot
+        .curves
+        .iter()
+        .flat_map(|c| c.points.iter().map(|p| p.2))
+        .fold(1.0_f64, f64::min)
+        .min(plot.level.unwrap_or(1.0));
+    let c0 = (cmin - 0.05).max(0.0);
+    let with_time = !plot.periods.is_empty();
+    let height = if with_time { HEIGHT + 260 } else { HEIGHT };
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, height)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let body_h = height - 58 - 36;
+        let (main, foot) = body.split_vertically(body_h);
+        let (curves_area, time_area) = if with_time {
+            let (a, b) = main.split_vertically(body_h - 250);
+            (a, Some(b))
+        } else {
+            (main, None)
+        };
+        let (curves_area, legend_area) = curves_area.split_vertically(
+            curves_area.dim_in_pixel().1 - 20 * plot.curves.len().div_ceil(4).min(4) as u32 - 6,
+        );
+        let (left, right) = curves_area.split_horizontally(WIDTH / 2);
+        for (k, area) in [left, right].iter().enumerate() {
+            let (x0, x1, desc) = if k == 0 {
+                (0.0, xmax * 1.02, "Individuals")
+            } else {
+                (c0, 1.0, "Sample coverage")
+            };
+            let mut chart = ChartBuilder::on(area)
+                .margin(10)
+                .x_label_area_size(34)
+                .y_label_area_size(50)
+                .build_cartesian_2d(x0..x1, 0.0..ymax)
+                .map_err(draw_err)?;
+            chart
+                .configure_mesh()
+                .light_line_style(WHITE)
+                .bold_line_style(MIST.mix(0.6))
+                .x_label_formatter(&|v| {
+                    if k == 1 {
+                        format!("{:.0} %", v * 100.0)
+                    } else {
+                        short_number(*v)
+                    }
+                })
+                .y_desc("Taxa")
+                .x_desc(desc)
+                .axis_desc_style((FONT, 14))
+                .label_style((FONT, 12))
+                .draw()
+                .map_err(draw_err)?;
+            if k == 1
+                && let Some(level) = plot.level
+            {
+                marks.open(&root, "coverage-level", &format!("{level}"))?;
+                chart
+                    .draw_series(DashedLineSeries::new(
+                        vec![(level, 0.0), (level, ymax)],
+                        4,
+                        4,
+                        INK.stroke_width(1),
+                    ))
+                    .map_err(draw_err)?;
+                marks.close(&root)?;
+            }
+            for (i, c) in plot.curves.iter().enumerate() {
+                let colour = group_colour(i);
+                let x = |p: &(f64, f64, f64, bool)| if k == 0 { p.0 } else { p.2 };
+                let inner: Vec<(f64, f64)> = c
+                    .points
+                    .iter()
+                    .filter(|p| !p.3)
+                    .map(|p| (x(p), p.1))
+                    .collect();
+                let outer: Vec<(f64, f64)> = c
+                    .points
+                    .iter()
+                    .filter(|p| p.3)
+                    .map(|p| (x(p), p.1))
+                    .collect();
+                let obs = if k == 0 {
+                    (c.observed.0, c.observed.1)
+                } else {
+                    (c.observed.2, c.observed.1)
+                };
+                marks.open(&root, "curve", &c.label)?;
+                chart
+                    .draw_series(LineSeries::new(inner, colour.stroke_width(2)))
+                    .map_err(draw_err)?;
+                let mut ext = vec![obs];
+                ext.extend(outer);
+                chart
+                    .draw_series(DashedLineSeries::new(ext, 5, 4, colour.stroke_width(2)))
+                    .map_err(draw_err)?;
+                let px = chart.backend_coord(&obs);
+                marker_at(&root, px, i, colour)?;
+                marks.close(&root)?;
+            }
+        }
+        let entries: Vec<LegendEntry> = plot
+            .curves
+            .iter()
+            .enumerate()
+            .take(16)
+            .map(|(i, c)| LegendEntry {
+                label: c.label.clone(),
+                colour: group_colour(i),
+                marker: Some(i),
+            })
+            .collect();
+        for (row, chunk) in entries.chunks(4).enumerate() {
+            for (col, e) in chunk.iter().enumerate() {
+                legend(
+                    &legend_area,
+                    (60 + 170 * col as i32, 20 * row as i32),
+                    std::slice::from_ref(e),
+                )?;
+            }
+        }
+        if let Some(area) = time_area {
+            let t0 = plot
+                .periods
+                .iter()
+                .map(|p| p.period)
+                .fold(f64::INFINITY, f64::min);
+            let t1 = plot
+                .periods
+                .iter()
+                .map(|p| p.period)
+                .fold(f64::NEG_INFINITY, f64::max);
+            let (t0, t1) = padded(t0, t1, 0.04);
+            let top = plot
+                .periods
+                .iter()
+                .flat_map(|p| [p.raw.2, p.at_coverage.map_or(0.0, |c| c.2)])
+                .fold(1.0_f64, f64::max)
+                * 1.08;
+            let mut chart = ChartBuilder::on(&area)
+                .margin(10)
+                .x_label_area_size(34)
+                .y_label_area_size(50)
+                .build_cartesian_2d(t0..t1, 0.0..top)
+                .map_err(draw_err)?;
+            chart
+                .configure_mesh()
+                .light_line_style(WHITE)
+                .bold_line_style(MIST.mix(0.6))
+                .x_label_formatter(&|v| format!("{v:.0}"))
+                .y_desc("Mean taxa per row")
+                .x_desc("Period")
+                .axis_desc_style((FONT, 14))
+                .label_style((FONT, 12))
+                .draw()
+                .map_err(draw_err)?;
+            // (class, palette index, (period, mean, low, high))
+            type Series<'a> = (&'a str, usize, Vec<(f64, f64, f64, f64)>);
+            let series: [Series; 2] = [
+                (
+                    "raw",
+                    0,
+                    plot.periods
+                        .iter()
+                        .map(|p| (p.period, p.raw.0, p.raw.1, p.raw.2))
+                        .collect(),
+                ),
+                (
+                    "at-coverage",
+                    4,
+                    plot.periods
+                        .iter()
+                        .filter_map(|p| p.at_coverage.map(|c| (p.period, c.0, c.1, c.2)))
+                        .collect(),
+                ),
+            ];
+            for (class, colour_at, pts) in series {
+                let colour = PALETTE[colour_at];
+                let shift = if colour_at == 0 { -0.08 } else { 0.08 };
+                marks.open(&root, "diversity-time", class)?;
+                chart
+                    .draw_series(pts.iter().map(|p| {
+                        PathElement::new(
+                            vec![(p.0 + shift, p.2), (p.0 + shift, p.3)],
+                            colour.stroke_width(1),
+                        )
+                    }))
+                    .map_err(draw_err)?;
+                chart
+                    .draw_series(LineSeries::new(
+                        pts.iter().map(|p| (p.0 + shift, p.1)),
+                        colour.stroke_width(2),
+                    ))
+                    .map_err(draw_err)?;
+                for p in &pts {
+                    let px = chart.backend_coord(&(p.0 + shift, p.1));
+                    marker_at(&root, px, if colour_at == 0 { 0 } else { 2 }, colour)?;
+                }
+                marks.close(&root)?;
+            }
+        }
+        let mut notes = vec![
+            "Solid: rarefaction (fewer individuals than caught). Dashed: extrapolation, up to twice the individuals. Marker: the sample as caught.".to_string(),
+        ];
+        if with_time {
+            notes.push(format!(
+                "Bottom: mean taxa per row, raw (circles) and at {} coverage (squares), with 95% bootstrap intervals.",
+                plot.level.map_or("the common".to_string(), |l| format!("{:.1} %", 100.0 * l))
+            ));
+        }
+        footnotes(&foot, &notes)?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

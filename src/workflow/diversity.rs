@@ -15,7 +15,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::analysis::diversity::{AtCoverage, Sample, common_coverage, mean_interval};
+use crate::analysis::diversity::{AtCoverage, CurvePoint, Sample, common_coverage, mean_interval};
 use crate::analysis::linear_model::Grouping;
 use crate::analysis::size_test::{SizeGroup, SizeTestOptions, size_test};
 use crate::analysis::trend::{LogTrend, log_trend};
@@ -299,6 +299,25 @@ pub struct MeasureTest {
     pub smallest_possible_p: f64,
 }
 
+/// Points of a curve per side (rarefaction, extrapolation).
+const CURVE_POINTS: usize = 24;
+/// Rows drawn one curve each when there are no periods or groups; more are pooled.
+const CURVE_ROWS: usize = 12;
+
+/// The rarefaction and extrapolation curve of the pooled rows of one period or
+/// group (or of one row).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Curve {
+    /// The period, group or row.
+    pub name: String,
+    /// Individuals of the pooled rows.
+    pub individuals: u64,
+    /// Taxa seen.
+    pub richness: u64,
+    /// Points from 1 individual to twice the individuals.
+    pub points: Vec<CurvePoint>,
+}
+
 /// How the two readings of richness compare.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "kebab-case")]
@@ -312,6 +331,8 @@ pub enum Reading {
     HiddenBySize,
     /// Neither reading changed.
     NoChange,
+    /// The design's smallest possible p-value is above alpha: no reading.
+    CannotReachAlpha,
 }
 
 /// What was computed.
@@ -347,6 +368,9 @@ pub struct Outcome {
     pub tests: Option<Vec<MeasureTest>>,
     /// The scheme the groups were tested under.
     pub design: Vec<design::TermScheme>,
+    /// Rarefaction and extrapolation curves of pooled rows: one per period or
+    /// group, else one per row (rows pooled into one curve beyond 12).
+    pub curves: Vec<Curve>,
     /// Raw richness against richness at equal coverage.
     pub reading: Option<Reading>,
     /// p-values of raw richness and of richness at equal coverage behind the reading.
@@ -598,6 +622,64 @@ impl Spec {
     }
 }
 
+/// The curves of an outcome: of each period or group's pooled rows, else of
+/// each row (or of all rows pooled, when there are many).
+fn curves(prepared: &Prepared, out: &Outcome) -> Vec<Curve> {
+    let v = &prepared.matrix.values;
+    let pooled = |name: String, idx: &[usize]| -> Curve {
+        // Whole counts: every row was checked when its sample was built.
+        let counts: Vec<u64> = (0..v.ncols())
+            .map(|j| idx.iter().map(|&i| v[(i, j)] as u64).sum())
+            .collect();
+        let s = Sample::from_counts(&counts);
+        Curve {
+            name,
+            individuals: s.individuals(),
+            richness: s.richness(),
+            points: s.curve(CURVE_POINTS),
+        }
+    };
+    let all: Vec<usize> = (0..out.n).collect();
+    if let Some(periods) = &out.periods {
+        return periods
+            .iter()
+            .map(|b| {
+                let idx: Vec<usize> = all
+                    .iter()
+                    .copied()
+                    .filter(|&i| {
+                        let m = &out.rows[i].meta;
+                        Some(m.year) == b.year && m.season == b.season
+                    })
+                    .collect();
+                pooled(b.name.clone(), &idx)
+            })
+            .collect();
+    }
+    if let (Some(groups), Some(by)) = (&out.groups, &out.by)
+        && let Ok(labels) = prepared.matrix.field_values(by)
+    {
+        return groups
+            .iter()
+            .map(|b| {
+                let idx: Vec<usize> = all
+                    .iter()
+                    .copied()
+                    .filter(|&i| labels[i] == b.name)
+                    .collect();
+                pooled(b.name.clone(), &idx)
+            })
+            .collect();
+    }
+    if out.n <= CURVE_ROWS {
+        all.iter()
+            .map(|&i| pooled(out.rows[i].meta.label.clone(), &[i]))
+            .collect()
+    } else {
+        vec![pooled(format!("all {} rows pooled", out.n), &all)]
+    }
+}
+
 /// Taxa with at least one individual in the rows `idx` of `prepared`.
 fn taxa_seen(prepared: &Prepared, idx: &[usize]) -> u64 {
     let v = &prepared.matrix.values;
@@ -606,8 +688,12 @@ fn taxa_seen(prepared: &Prepared, idx: &[usize]) -> u64 {
         .count() as u64
 }
 
-/// The reading of raw richness (p `raw`) against richness at equal coverage (p `cov`).
-fn reading(raw: f64, cov: f64, alpha: f64) -> Reading {
+/// The reading of raw richness (p `raw`) against richness at equal coverage (p
+/// `cov`), tested by a design whose smallest possible p-value is `smallest`.
+fn reading(raw: f64, cov: f64, alpha: f64, smallest: f64) -> Reading {
+    if smallest > alpha {
+        return Reading::CannotReachAlpha;
+    }
     match (raw <= alpha, cov <= alpha) {
         (true, false) => Reading::SizeOnly,
         (_, true) if raw <= alpha => Reading::BeyondSize,
@@ -647,6 +733,7 @@ impl Analysis for Spec {
             groups: None,
             tests: None,
             design: Vec::new(),
+            curves: Vec::new(),
             reading: None,
             reading_p: None,
             alpha: self.alpha,
@@ -662,6 +749,7 @@ impl Analysis for Spec {
         if let Some(by) = &self.by {
             self.groups(prepared, by, &mut out, &mut notes)?;
         }
+        out.curves = curves(prepared, &out);
         progress.finish();
         out.notes = notes;
         Ok(out)
@@ -762,7 +850,11 @@ impl Spec {
                 .map(|t| t.trend.p_value)
         };
         if let (Some(raw), Some(cov)) = (p_of(Measure::Richness), p_of(Measure::CoverageRichness)) {
-            out.reading = Some(reading(raw, cov, self.alpha));
+            let smallest = trends
+                .iter()
+                .map(|t| t.trend.smallest_possible_p)
+                .fold(0.0, f64::max);
+            out.reading = Some(reading(raw, cov, self.alpha, smallest));
             out.reading_p = Some((raw, cov));
         }
         out.trend_scheme = Some(format!(
@@ -846,7 +938,11 @@ impl Spec {
         }
         let p_of = |ms: Measure| tests.iter().find(|t| t.measure == ms).map(|t| t.p_value);
         if let (Some(raw), Some(cov)) = (p_of(Measure::Richness), p_of(Measure::CoverageRichness)) {
-            out.reading = Some(reading(raw, cov, self.alpha));
+            let smallest = tests
+                .iter()
+                .map(|t| t.smallest_possible_p)
+                .fold(0.0, f64::max);
+            out.reading = Some(reading(raw, cov, self.alpha, smallest));
             out.reading_p = Some((raw, cov));
         }
         out.design = vec![chosen];
@@ -922,10 +1018,11 @@ mod tests {
 
     #[test]
     fn the_reading_keeps_the_two_richnesses_apart() {
-        assert_eq!(reading(0.01, 0.4, 0.05), Reading::SizeOnly);
-        assert_eq!(reading(0.01, 0.02, 0.05), Reading::BeyondSize);
-        assert_eq!(reading(0.3, 0.02, 0.05), Reading::HiddenBySize);
-        assert_eq!(reading(0.3, 0.2, 0.05), Reading::NoChange);
+        assert_eq!(reading(0.01, 0.4, 0.05, 0.001), Reading::SizeOnly);
+        assert_eq!(reading(0.01, 0.02, 0.05, 0.001), Reading::BeyondSize);
+        assert_eq!(reading(0.3, 0.02, 0.05, 0.001), Reading::HiddenBySize);
+        assert_eq!(reading(0.3, 0.2, 0.05, 0.001), Reading::NoChange);
+        assert_eq!(reading(0.1, 0.7, 0.05, 0.1), Reading::CannotReachAlpha);
     }
 
     #[test]

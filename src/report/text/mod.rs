@@ -7,6 +7,7 @@ use std::io::{self, Write};
 pub mod compare;
 pub mod dispersion;
 pub mod distances;
+pub mod diversity;
 pub mod impact;
 pub mod matrix;
 pub mod ordinate;
