@@ -40,8 +40,9 @@ fn coverage_parser(s: &str) -> Result<CoverageChoice, String> {
 /// `tally diversity` flags.
 #[derive(Debug, Clone, clap::Args)]
 pub struct Args {
-    /// Compare rows at this sample coverage: auto (the largest every row reaches
-    /// within twice its individuals), a fraction (0.9) or percentage (90%), or none.
+    /// Compare rows at this sample coverage: auto (the lowest coverage among the
+    /// rows, reached by rarefaction), a fraction (0.9) or percentage (90%;
+    /// extrapolated up to twice a row's individuals where needed), or none.
     #[arg(long, value_name = "auto|C|none", default_value = "auto", value_parser = coverage_parser)]
     pub coverage: CoverageChoice,
     /// Also give each row's expected richness in a random subsample of M individuals.

@@ -1256,6 +1256,18 @@ pub fn diversity_svg(plot: &DiversityPlot) -> Result<String, SvgError> {
                 )?;
             }
         }
+        if plot.curves.len() > entries.len() {
+            legend_area
+                .draw(&Text::new(
+                    format!(
+                        "and {} more (colours repeat)",
+                        plot.curves.len() - entries.len()
+                    ),
+                    (60 + 170 * 3, 20 * 3 + 20),
+                    (FONT, 12).into_font().color(&INK),
+                ))
+                .map_err(draw_err)?;
+        }
         if let Some(area) = time_area {
             let t0 = plot
                 .periods
@@ -1448,6 +1460,65 @@ mod tests {
         assert!(has_text(&doc, "Axis 1 (41.2% of inertia)"));
         assert!(has_text(&doc, "No ellipse (fewer than 3 samples): upper."));
         assert!(!svg.contains("TALLYMARK"));
+    }
+
+    #[test]
+    fn diversity_svg_draws_each_curve_both_ways_and_the_periods() {
+        use crate::analysis::diversity::Sample;
+        let curve = |label: &str, counts: &[u64]| {
+            let s = Sample::from_counts(counts);
+            let points: Vec<(f64, f64, f64, bool)> = s
+                .curve(8)
+                .iter()
+                .map(|p| (p.size, p.richness, p.coverage, p.extrapolated))
+                .collect();
+            DiversityCurve {
+                label: label.into(),
+                observed: (
+                    s.individuals() as f64,
+                    s.richness() as f64,
+                    s.coverage().unwrap_or(1.0),
+                ),
+                points,
+            }
+        };
+        let plot = DiversityPlot {
+            title: "Richness".into(),
+            subtitle: "two <years>".into(),
+            curves: vec![
+                curve("2016", &[1, 1, 2, 5, 9, 20]),
+                curve("2017", &[1, 3, 3, 4]),
+            ],
+            level: Some(0.8),
+            periods: vec![
+                DiversityPeriod {
+                    period: 2016.0,
+                    raw: (5.0, 4.0, 6.0),
+                    at_coverage: Some((4.5, 4.0, 5.0)),
+                },
+                DiversityPeriod {
+                    period: 2017.0,
+                    raw: (4.0, 3.0, 5.0),
+                    at_coverage: None,
+                },
+            ],
+        };
+        let svg = diversity_svg(&plot).unwrap();
+        let doc = parse(&svg);
+        // Each curve in both panels.
+        let curves = groups_of(&doc, "curve");
+        assert_eq!(curves.len(), 4);
+        assert_eq!(curves[0].attribute("data-label"), Some("2016"));
+        assert_eq!(groups_of(&doc, "coverage-level").len(), 1);
+        assert_eq!(groups_of(&doc, "diversity-time").len(), 2);
+        assert!(has_text(&doc, "two <years>"));
+        assert!(!svg.contains("TALLYMARK"));
+        let empty = DiversityPlot {
+            curves: vec![curve("one", &[1])],
+            periods: Vec::new(),
+            ..plot
+        };
+        assert!(diversity_svg(&empty).is_err());
     }
 
     #[test]

@@ -44,7 +44,8 @@ const BOOTSTRAP_STREAMS: u64 = 1 << 40;
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum CoverageTarget {
-    /// The largest coverage every row reaches within twice its individuals.
+    /// The lowest sample coverage among the rows: every row is compared on its
+    /// own rarefaction curve.
     Auto,
     /// A stated coverage, 0 < C ≤ 1.
     Level(f64),
@@ -208,7 +209,7 @@ pub struct Row {
 pub struct CoverageLevel {
     /// The coverage (0–1).
     pub level: f64,
-    /// `asked` or `auto` (the largest coverage every row reaches within twice its size).
+    /// `asked` or `auto` (the lowest sample coverage among the rows).
     pub rule: &'static str,
     /// The row that sets an `auto` level.
     pub set_by: Option<String>,

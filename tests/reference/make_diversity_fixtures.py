@@ -35,8 +35,9 @@ Contents:
                    "extrapolated" (m_star, richness, coverage) at m* in
                    {0, 1, n//2, n, 10**6}; "at_coverage" (target, size,
                    richness) at a few coverage targets, null beyond 2n.
-  auto_coverage    the smallest C(2n) over five of the samples, and the size
-                   and richness of each of them at that coverage.
+  auto_coverage    the smallest sample coverage C_n over five of the samples
+                   (every one of them reaches it by rarefaction), and the
+                   size and richness of each of them at that coverage.
 
 Sources:
   Hill (1973), Ecology 54:427-432; Jost (2006), Oikos 113:363-375  (Hill numbers)
@@ -359,10 +360,10 @@ def describe(name, s):
 
 
 def auto_coverage(fitted):
-    # One coverage for several samples: the smallest coverage at twice the
-    # sample size, so that no listed sample is extrapolated beyond 2n.
+    # One coverage for several samples: the smallest sample coverage C_n, so
+    # that every listed sample is compared on its rarefaction curve.
     names = ["typical", "no_doubletons", "no_singletons", "large", "even"]
-    level = min(fitted[k].coverage_ext(fitted[k].n) for k in names)
+    level = min(fitted[k].coverage_ext(0) for k in names)
     per_sample = []
     for k in names:
         size, richness = fitted[k].at_coverage(level)

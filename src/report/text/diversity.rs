@@ -167,9 +167,9 @@ impl Render for Outcome {
         )?;
         if let Some(c) = &self.coverage {
             let rule = match (c.rule, &c.set_by) {
-                ("auto", Some(row)) => format!(
-                    "auto: the largest coverage every row reaches within twice its individuals, set by {row}"
-                ),
+                ("auto", Some(row)) => {
+                    format!("auto: the lowest sample coverage among the rows, that of {row}")
+                }
                 _ => "as asked".to_string(),
             };
             writeln!(
