@@ -1344,8 +1344,8 @@ pub struct LogTrend {
 
 /// The log-linear trend of `values` (one per row, all > 0) across years, with a
 /// site effect (and a season effect), tested by relabelling whole years across
-/// all sites at once as [`trend`] does (docs/methods.md, "Trends across years
-/// (`tally trend`)"). The year relabellings depend only on the number of years,
+/// all sites at once as [`trend`] does:
+/// docs/methods.md, "Trends across years (`tally trend`)". The year relabellings depend only on the number of years,
 /// `permutations` and `seed`, so several values of the same rows are tested
 /// under the same relabellings.
 ///

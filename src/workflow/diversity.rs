@@ -1,7 +1,9 @@
-//! Diversity without the size illusion (docs/methods.md, "Diversity at equal
-//! coverage"): per row, the observed richness and Hill numbers, sample
-//! coverage, Chao1, richness rarefied to a stated number of individuals and
-//! richness at a common sample coverage; with `--every`, the rows' values per
+//! Diversity without the size illusion. Methods and sources:
+//! docs/methods.md, "Diversity at equal coverage".
+//!
+//! Per row: the observed richness and Hill numbers, sample coverage, Chao1,
+//! richness rarefied to a stated number of individuals and richness at a
+//! common sample coverage; with `--every`, the rows' values per
 //! period with bootstrap intervals and their log-linear trends across years
 //! (whole years relabelled, as in `trend`); with `--by`, the groups compared
 //! at equal coverage (the one-way test of log values of `compare`'s size test,

@@ -5,6 +5,7 @@ mod compare;
 mod demo_data;
 mod designs_cli;
 mod distance_properties;
+mod diversity;
 mod engine_cli;
 mod import;
 mod matrix_cli;

@@ -137,8 +137,9 @@ mod replay_property {
     use crate::util::TestEnv;
 
     /// The commands that store a run, with the flags each needs beyond the selection.
-    const COMMANDS: [&[&str]; 8] = [
+    const COMMANDS: [&[&str]; 9] = [
         &["permanova", "--by", "reach"],
+        &["diversity", "--every", "year"],
         &["dispersion", "--by", "habitat"],
         &["compare", "--by", "reach"],
         &["partition"],
