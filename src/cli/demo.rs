@@ -224,6 +224,18 @@ pub fn run(args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::R
     writeln!(out)?;
     writeln!(
         out,
+        "Diversity across the years, raw and at equal sample coverage (tally diversity):"
+    )?;
+    for r in &a.reaches {
+        let reading = r
+            .diversity
+            .strip_prefix("reading: ")
+            .unwrap_or(&r.diversity);
+        writeln!(out, "  {} reach: {reading}", r.reach)?;
+    }
+    writeln!(out)?;
+    writeln!(
+        out,
         "These are permutation tests on invented data; read docs/methods.md before drawing conclusions from real data."
     )?;
     writeln!(out, "report: {}", rp.display())?;

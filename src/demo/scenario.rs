@@ -13,11 +13,12 @@ use crate::report::svg::{TotalsGroup, TotalsMeasure, TotalsPlot};
 use crate::store::{Selection, Store};
 use crate::workflow::design::{DistanceSpec, Periods};
 use crate::workflow::ordinate::{self, Method};
-use crate::workflow::report::{Trends, periods_flag};
+use crate::workflow::report::{Diversities, Trends, periods_flag};
 use crate::workflow::runs::ToSave;
 use crate::workflow::summary::{self, Summary};
 use crate::workflow::{
-    Analysis, Prepared, Result, Silent, WorkflowError, compare, partition, prepare, resolve, trend,
+    Analysis, Prepared, Result, Silent, WorkflowError, compare, diversity, partition, prepare,
+    resolve, trend,
 };
 
 use super::generate::{FIRST_YEAR, LAST_YEAR, LOWER_DECLINE_FROM};
@@ -89,6 +90,9 @@ pub struct Scenario {
     pub partition: (Selection, partition::Spec),
     /// The trends of every kick sample, split by [`SPLIT_BY`].
     pub trends: (Selection, trend::Spec),
+    /// Diversity through the years of the kick samples (raw counts), split by
+    /// [`SPLIT_BY`].
+    pub diversity: (Selection, diversity::Spec),
 }
 
 /// The demo's analyses, from the generator's constants.
@@ -135,6 +139,17 @@ pub fn scenario() -> Scenario {
             partition::Spec::compared(PERMUTATIONS, SEED),
         ),
         trends: (kick_site_years(), t),
+        diversity: (
+            Selection {
+                per_effort: false,
+                ..kick_site_years()
+            },
+            {
+                let mut d = diversity::Spec::new(PERMUTATIONS, SEED);
+                d.every = Some(trend::Every::Year);
+                d
+            },
+        ),
     }
 }
 
@@ -164,6 +179,8 @@ pub struct Ran {
     pub partition: (Prepared, partition::Spec, partition::Outcome),
     /// The trends, one per reach.
     pub trends: Trends,
+    /// Diversity through the years, one per reach.
+    pub diversity: Diversities,
 }
 
 /// Prepare and run the demo's analyses on a demo store (nothing is stored).
@@ -200,11 +217,14 @@ pub fn run(store: &Store) -> Result<Ran> {
         parts,
         split,
     };
+    let (sel, d) = s.diversity;
+    let diversity = Diversities::run(store, None, &sel, SPLIT_BY, d, &Silent)?;
     Ok(Ran {
         summary: summary::summary(store)?,
         reaches,
         partition: (prepared, spec, outcome),
         trends,
+        diversity,
     })
 }
 
@@ -225,6 +245,8 @@ pub struct ReachFinding {
     pub compare_run_id: Option<i64>,
     /// The diagnosis of `tally trend` for the reach (abundance, composition, both, none).
     pub diagnosis: String,
+    /// The reading of `tally diversity --every year` for the reach, in words.
+    pub diversity: String,
 }
 
 /// The demo's analyses: the report input and the findings per reach.
@@ -243,7 +265,7 @@ fn geometric_mean(v: &[f64]) -> f64 {
 impl Ran {
     /// Every run of the demo, in the order [`Ran::analysis`] reads their ids:
     /// the composition test of each reach, the comparison of each reach, the
-    /// partition, the trend of each reach.
+    /// partition, the trend of each reach, the diversity of each reach.
     ///
     /// # Errors
     /// Serialisation errors.
@@ -259,6 +281,7 @@ impl Ran {
         v.push(ToSave::new(prepared, spec, outcome)?);
         let t = &self.trends;
         v.extend(t.split.to_save(&t.spec, &t.parts)?);
+        v.extend(self.diversity.to_save()?);
         Ok(v)
     }
 
@@ -337,6 +360,14 @@ impl Ran {
                     .find(|g| g.group == r.analyses.reach)
                     .map(|g| g.outcome.diagnosis.name().to_string())
                     .unwrap_or_default(),
+                diversity: self
+                    .diversity
+                    .parts
+                    .iter()
+                    .zip(&self.diversity.outcomes)
+                    .find(|((g, _), _)| *g == r.analyses.reach)
+                    .and_then(|(_, o)| crate::report::text::diversity::reading_line(o))
+                    .unwrap_or_default(),
             });
         }
         let (prepared, _, outcome) = &self.partition;
@@ -354,6 +385,19 @@ impl Ran {
         for k in 0..self.trends.parts.len() {
             if let Some(id) = id(2 * n + 1 + k) {
                 run_ids.push(("trends".to_string(), id));
+            }
+        }
+        let first_diversity = 2 * n + 1 + self.trends.parts.len();
+        for (k, (label, command)) in self
+            .diversity
+            .labels()
+            .into_iter()
+            .zip(&self.diversity.commands)
+            .enumerate()
+        {
+            parameters.push((label.clone(), command.clone()));
+            if let Some(id) = id(first_diversity + k) {
+                run_ids.push((label, id));
             }
         }
         let ((a, _), (c, _)) = (PERIODS[0], PERIODS[1]);
@@ -377,6 +421,7 @@ impl Ran {
                     groups: boxes,
                 }),
                 trends: Part::Done(split.groups.clone()),
+                diversity: Part::Done(crate::report::input::diversity_groups(&self.diversity)),
                 run_ids,
                 parameters,
                 cautions: vec!["All data in this report is invented (the Wren Valley demo); it illustrates the tool and says nothing about any real river.".into()],

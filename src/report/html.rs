@@ -84,6 +84,9 @@ pub struct ReportInput {
     /// `tally trend` outcomes: one per group of `--split-by` (or one with an
     /// empty group name for a single trend).
     pub trends: Part<Vec<trend::Group>>,
+    /// `tally diversity --every year` outcomes: (group, outcome), one per group
+    /// of `--split-by`.
+    pub diversity: Part<Vec<(String, crate::workflow::diversity::Outcome)>>,
     /// Which stored run produced which part: (part, run id).
     pub run_ids: Vec<(String, i64)>,
     /// How each part was obtained: (part, parameters or command line).
@@ -202,7 +205,7 @@ footer{margin-top:2.5rem;border-top:1px solid var(--line);padding-top:.6rem;colo
 @media print{nav.toc{display:none}main{max-width:none;padding:0}section{break-inside:avoid-page}figure,table,.card{break-inside:avoid}svg.plot{max-width:100%;border:none}a{color:inherit;text-decoration:none}body{font-size:10.5pt}}
 "#;
 
-const SECTIONS: [(&str, &str); 9] = [
+const SECTIONS: [(&str, &str); 10] = [
     ("glance", "At a glance"),
     ("store", "What the store holds"),
     ("compare", "Abundance and composition compared"),
@@ -213,6 +216,7 @@ const SECTIONS: [(&str, &str); 9] = [
     ("ordination", "Where the samples sit"),
     ("totals", "Totals per group"),
     ("trends", "Change across the years"),
+    ("diversity", "Diversity beyond the numbers caught"),
     ("provenance", "How each part was obtained"),
     ("cautions", "Before drawing conclusions"),
 ];
@@ -853,6 +857,73 @@ fn trends_part(out: &mut String, input: &ReportInput) {
     out.push_str("</section>\n");
 }
 
+fn diversity_part(out: &mut String, input: &ReportInput) {
+    use crate::report::text::diversity::{measure_label, reading_line};
+    open_section(out, "diversity");
+    if !not_shown(out, &input.diversity, "diversity through the years") {
+        out.push_str("<p>Raw richness (taxa seen) falls when fewer individuals are caught, even when the community is unchanged. Each row is therefore also read at a common sample coverage, the lowest among the rows: at equal completeness of the samples, a change in richness is a change in taxa, not in numbers. Hill numbers of order 1 and 2 weigh the common taxa; a fall in them is a fall in evenness.</p>\n");
+        for (group, o) in input.diversity.done().into_iter().flatten() {
+            if !group.is_empty() {
+                out.push_str(&format!("<h3>{}</h3>\n", esc(group)));
+            }
+            if let Some(line) = reading_line(o) {
+                let line = line.strip_prefix("reading: ").unwrap_or(&line);
+                out.push_str(&format!(
+                    "<p>Reading: <span class=\"tag diag\">{}</span> — {}.</p>\n",
+                    esc(&serde_json::to_value(o.reading)
+                        .ok()
+                        .and_then(|v| v.as_str().map(str::to_string))
+                        .unwrap_or_default()),
+                    esc(line)
+                ));
+            }
+            let rows: Vec<Vec<String>> = o
+                .trends
+                .iter()
+                .flatten()
+                .map(|t| {
+                    vec![
+                        esc(&measure_label(t.measure, o)),
+                        fnum(Some(t.trend.pct_per_year), 2),
+                        format!(
+                            "{} to {}",
+                            fnum(Some(t.trend.ci_low), 2),
+                            fnum(Some(t.trend.ci_high), 2)
+                        ),
+                        fnum(Some(t.trend.change_pct), 1),
+                        fmt_p(t.trend.p_value, t.trend.permutations),
+                    ]
+                })
+                .collect();
+            out.push_str(&table(
+                &[
+                    "Measure",
+                    "% per year",
+                    "95% interval",
+                    "Change first to last year %",
+                    "p-value",
+                ],
+                &rows,
+                &[false, true, true, true, true],
+            ));
+            let plot = crate::report::input::diversity_plot(
+                o,
+                &if group.is_empty() {
+                    "Richness by individuals and by coverage".to_string()
+                } else {
+                    format!("{group}: richness by individuals and by coverage")
+                },
+            );
+            out.push_str(&figure(
+                svg::diversity_svg(&plot),
+                &plot.title,
+                "Top: taxa against individuals and against sample coverage, each year's rows pooled; solid by rarefaction, dashed by extrapolation to twice the individuals; the dashed vertical line is the common coverage. Bottom: mean taxa per row each year, raw (circles) and at the common coverage (squares), with 95% bootstrap intervals.",
+            ));
+        }
+    }
+    out.push_str("</section>\n");
+}
+
 /// Render the report.
 pub fn render(input: &ReportInput) -> String {
     let mut out = String::new();
@@ -889,6 +960,7 @@ pub fn render(input: &ReportInput) -> String {
     }
     out.push_str("</section>\n");
     trends_part(&mut out, input);
+    diversity_part(&mut out, input);
     open_section(&mut out, "provenance");
     let mut rows: Vec<Vec<String>> = input
         .parameters
@@ -1257,6 +1329,7 @@ mod tests {
             ordination: Part::NotRequested,
             totals: Part::Unavailable("every total is zero".into()),
             trends: Part::Done(trend_groups()),
+            diversity: Part::NotRequested,
             run_ids: vec![("compare lower reach".into(), 3)],
             parameters: vec![(
                 "compare lower reach".into(),

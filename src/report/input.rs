@@ -87,6 +87,10 @@ pub fn report_input(r: &Report, run_ids: &[i64]) -> ReportInput {
         Some(t) => Part::Done(t.split.groups.clone()),
         None => Part::NotRequested,
     };
+    let diversity = match &r.diversity {
+        Some(d) => Part::Done(diversity_groups(d)),
+        None => Part::NotRequested,
+    };
     html::ReportInput {
         title: "Community change report".to_string(),
         selection_text: o.selection_text.clone(),
@@ -96,6 +100,7 @@ pub fn report_input(r: &Report, run_ids: &[i64]) -> ReportInput {
         ordination,
         totals: totals_part(o, &format!("Sample totals by {field}")),
         trends,
+        diversity,
         run_ids: r
             .stored_parts()
             .into_iter()
@@ -104,6 +109,17 @@ pub fn report_input(r: &Report, run_ids: &[i64]) -> ReportInput {
         parameters: r.commands(),
         cautions: Vec::new(),
     }
+}
+
+/// The groups of a report's diversity part: (group, outcome).
+pub fn diversity_groups(
+    d: &crate::workflow::report::Diversities,
+) -> Vec<(String, crate::workflow::diversity::Outcome)> {
+    d.parts
+        .iter()
+        .map(|(g, _)| g.clone())
+        .zip(d.outcomes.iter().cloned())
+        .collect()
 }
 
 /// The plot of a diversity outcome: its curves, the common coverage and, with

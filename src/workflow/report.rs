@@ -1,7 +1,8 @@
 //! The analyses of `tally report`, as one workflow: the selection is prepared
 //! once, then the correspondence analysis ([`ordinate`]), the size and shape
 //! comparison ([`compare`]) and the five-way partition ([`partition`]) with
-//! `by`, and the trends ([`trend::split`]) with `split_by`. Each part keeps its
+//! `by`, and the trends ([`trend::split`]) and diversity through the years
+//! ([`Diversities`]) with `split_by`. Each part keeps its
 //! prepared data, its spec, its outcome and the command line that computes the
 //! same numbers on its own (`--seed` and `--permutations` included), so the
 //! report can show where every number comes from and `runs verify` can replay
@@ -14,7 +15,10 @@ use super::design::{DistanceSpec, Periods, PermuteDesign};
 use super::ordinate::{self, Method};
 use super::runs::ToSave;
 use super::summary::{self, Summary};
-use super::{Analysis, Prepared, Progress, Result, WorkflowError, compare, partition, prepare};
+use super::{
+    Analysis, AnalysisSpec, Prepared, Progress, Result, WorkflowError, command, compare, diversity,
+    partition, prepare,
+};
 use super::{resolve, trend};
 
 /// What the report is of.
@@ -69,6 +73,80 @@ pub struct Trends {
     pub command: String,
 }
 
+/// Diversity through the years of each group of `field`: `tally diversity
+/// --every year` on each group's own selection (raw counts: a `--per-effort`
+/// selection is taken without it, since diversity counts individuals).
+#[derive(Debug, Clone)]
+pub struct Diversities {
+    /// The field split by.
+    pub field: String,
+    /// The spec shared by every group.
+    pub spec: diversity::Spec,
+    /// The prepared data of each group, in order.
+    pub parts: Vec<(String, Prepared)>,
+    /// The outcome of each group, in the same order.
+    pub outcomes: Vec<diversity::Outcome>,
+    /// The equivalent command line of each group.
+    pub commands: Vec<String>,
+}
+
+impl Diversities {
+    /// Run `spec` on each group of `field` of the selection `selection` (over the
+    /// saved selection `saved`).
+    ///
+    /// # Errors
+    /// Selection, field and analysis errors.
+    pub fn run(
+        store: &Store,
+        saved: Option<&str>,
+        selection: &Selection,
+        field: &str,
+        spec: diversity::Spec,
+        progress: &dyn Progress,
+    ) -> Result<Diversities> {
+        let mut raw = selection.clone();
+        raw.per_effort = false;
+        let mut base = diversity::resolve(store, saved, &raw, &spec)?;
+        base.per_effort = false;
+        let parts = trend::split(store, &base, field)?;
+        let mut outcomes = Vec::with_capacity(parts.len());
+        let mut commands = Vec::with_capacity(parts.len());
+        for (_, p) in &parts {
+            outcomes.push(spec.run(p, progress)?);
+            commands.push(
+                command::command_line(&AnalysisSpec::Diversity(spec.clone()), &p.selection).0,
+            );
+        }
+        Ok(Diversities {
+            field: field.to_string(),
+            spec,
+            parts,
+            outcomes,
+            commands,
+        })
+    }
+
+    /// The runs to store, one per group.
+    ///
+    /// # Errors
+    /// Serialisation errors.
+    pub fn to_save(&self) -> Result<Vec<ToSave<'_>>> {
+        self.parts
+            .iter()
+            .zip(&self.outcomes)
+            .map(|((_, p), o)| ToSave::new(p, &self.spec, o))
+            .collect()
+    }
+
+    /// The provenance label of each group's part.
+    pub fn labels(&self) -> Vec<String> {
+        self.parts
+            .iter()
+            .map(|(g, _)| label::diversity(&self.field, g))
+            .collect()
+    }
+}
+
 /// Everything the report computed.
 #[derive(Debug, Clone)]
 pub struct Report {
@@ -91,6 +169,8 @@ pub struct Report {
     pub partition: Option<Done<partition::Spec>>,
     /// The trends by `split_by`.
     pub trends: Option<Trends>,
+    /// Diversity through the years by `split_by`.
+    pub diversity: Option<Diversities>,
 }
 
 /// Labels of the report's parts, shared by its provenance rows and run ids.
@@ -107,6 +187,11 @@ pub mod label {
     /// The comparison by `by`.
     pub fn comparison(by: &str) -> String {
         format!("comparison by {by}")
+    }
+
+    /// The diversity of the group `group` of `field`.
+    pub fn diversity(field: &str, group: &str) -> String {
+        format!("diversity: {field} = {group}")
     }
 }
 
@@ -142,6 +227,9 @@ impl Report {
         if let Some(t) = &self.trends {
             v.extend(t.split.to_save(&t.spec, &t.parts)?);
         }
+        if let Some(d) = &self.diversity {
+            v.extend(d.to_save()?);
+        }
         Ok(v)
     }
 
@@ -156,6 +244,9 @@ impl Report {
         }
         if let Some(t) = &self.trends {
             v.extend(t.parts.iter().map(|_| label::TRENDS.to_string()));
+        }
+        if let Some(d) = &self.diversity {
+            v.extend(d.labels());
         }
         v
     }
@@ -177,6 +268,9 @@ impl Report {
         }
         if let Some(t) = &self.trends {
             v.push((label::TRENDS.to_string(), t.command.clone()));
+        }
+        if let Some(d) = &self.diversity {
+            v.extend(d.labels().into_iter().zip(d.commands.iter().cloned()));
         }
         v
     }
@@ -263,6 +357,21 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
         Some(split_by) => Some(trends(store, spec, split_by, progress)?),
         None => None,
     };
+    let diversity = match &spec.split_by {
+        Some(split_by) => {
+            let mut d = diversity::Spec::new(spec.permutations, spec.seed);
+            d.every = Some(trend::Every::Year);
+            Some(Diversities::run(
+                store,
+                spec.saved.as_deref(),
+                &spec.selection,
+                split_by,
+                d,
+                progress,
+            )?)
+        }
+        None => None,
+    };
     Ok(Report {
         spec: spec.clone(),
         field,
@@ -273,6 +382,7 @@ pub fn run(store: &Store, spec: &Spec, progress: &dyn Progress) -> Result<Report
         compare_prepared,
         partition,
         trends,
+        diversity,
     })
 }
 

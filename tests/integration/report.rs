@@ -385,9 +385,9 @@ fn full_report(env: &TestEnv, name: &str, permutations: &str, seed: &str) -> Pat
 
 #[test]
 fn every_run_the_demo_and_a_report_store_verifies() {
-    // `tally demo` stores its composition tests, comparisons, partition and
-    // trends; a report with --by and --split-by stores its comparison,
-    // partition and one trend per group. `runs verify` replays each from its
+    // `tally demo` stores its composition tests, comparisons, partition,
+    // trends and diversities; a report with --by and --split-by stores its
+    // comparison, partition and one trend and one diversity per group. `runs verify` replays each from its
     // stored spec and selection and must reproduce every stored number.
     let env = demo_env();
     let out = full_report(&env, "r.html", "99", "7");
@@ -399,9 +399,9 @@ fn every_run_the_demo_and_a_report_store_verifies() {
         .iter()
         .map(|r| r["id"].as_i64().unwrap().to_string())
         .collect();
-    // Demo: 3 composition tests, 3 comparisons, 1 partition, 3 trends;
-    // report: 1 comparison, 1 partition, 3 trends.
-    assert_eq!(ids.len(), 15, "{list}");
+    // Demo: 3 composition tests, 3 comparisons, 1 partition, 3 trends, 3
+    // diversities; report: 1 comparison, 1 partition, 3 trends, 3 diversities.
+    assert_eq!(ids.len(), 21, "{list}");
     for id in &ids {
         let rep: Value =
             serde_json::from_str(&env.stdout(["runs", "verify", id, "--format", "json"])).unwrap();

@@ -120,7 +120,33 @@ pub fn reading_line(o: &Outcome) -> Option<String> {
     } else {
         "does not differ"
     };
-    Some(match reading {
+    // Evenness: the Hill numbers of order 1 and 2, when they changed.
+    let evenness = o
+        .trends
+        .iter()
+        .flatten()
+        .filter(|t| matches!(t.measure, Measure::HillQ1 | Measure::HillQ2))
+        .filter(|t| t.trend.p_value <= o.alpha && t.trend.smallest_possible_p <= o.alpha)
+        .map(|t| {
+            format!(
+                "Hill q = {} {} {} % (p = {})",
+                if t.measure == Measure::HillQ1 { 1 } else { 2 },
+                if t.trend.change_pct < 0.0 {
+                    "fell"
+                } else {
+                    "rose"
+                },
+                fmt_num(t.trend.change_pct.abs()),
+                p(t.trend.p_value)
+            )
+        })
+        .collect::<Vec<_>>();
+    let evenness = if evenness.is_empty() {
+        String::new()
+    } else {
+        format!("; evenness changed: {}", evenness.join(", "))
+    };
+    let line = match reading {
         Reading::SizeOnly => format!(
             "reading: raw richness {} (p = {}), but richness at {level} coverage {unchanged} (p = {}): the {} comes from the number of individuals caught (size), not from taxa gained or lost",
             moved(Measure::Richness),
@@ -154,7 +180,8 @@ pub fn reading_line(o: &Outcome) -> Option<String> {
             p(raw),
             p(cov)
         ),
-    })
+    };
+    Some(format!("{line}{evenness}"))
 }
 
 impl Render for Outcome {
