@@ -4,6 +4,8 @@
 //! last figures: benches/README.md, "Dissimilarity matrix".
 //!
 //! Run: `cargo bench --bench distances` (release profile).
+#[path = "cpu.rs"]
+mod cpu;
 
 use std::time::Instant;
 
@@ -13,26 +15,6 @@ use tally::analysis::Distance;
 
 const N: usize = 5000;
 const P: usize = 200;
-
-/// CPU seconds (user + system) of this process so far, from `/proc/self/stat`
-/// (Linux, 100 ticks per second); NaN elsewhere. Printed beside the wall time
-/// because the wall time is meaningless on a machine shared with other jobs.
-fn cpu_seconds() -> f64 {
-    let Ok(stat) = std::fs::read_to_string("/proc/self/stat") else {
-        return f64::NAN;
-    };
-    // Fields after the parenthesised command name; utime and stime are fields 14, 15.
-    let Some(rest) = stat.rsplit_once(')').map(|(_, r)| r) else {
-        return f64::NAN;
-    };
-    let f: Vec<&str> = rest.split_whitespace().collect();
-    let ticks = |k: usize| {
-        f.get(k)
-            .and_then(|v| v.parse::<f64>().ok())
-            .unwrap_or(f64::NAN)
-    };
-    (ticks(11) + ticks(12)) / 100.0
-}
 
 fn main() {
     // Sparse counts: about 70 % zeros, the rest 1..=50; every row non-empty and
@@ -58,13 +40,13 @@ fn main() {
         let mut best_cpu = f64::INFINITY;
         let mut check = 0.0;
         for _ in 0..3 {
-            let c = cpu_seconds();
+            let c = cpu::cpu_seconds();
             let t = Instant::now();
             let d = dist
                 .compute(&y)
                 .expect("benchmark data are valid for every coefficient");
             best = best.min(t.elapsed().as_secs_f64());
-            best_cpu = best_cpu.min(cpu_seconds() - c);
+            best_cpu = best_cpu.min(cpu::cpu_seconds() - c);
             check = d.condensed().iter().sum::<f64>();
         }
         println!(

@@ -6,6 +6,8 @@
 //! totals of 20–2000 individuals. `TALLY_BENCH_ROWS` changes the number of rows.
 //!
 //! Run: cargo bench --bench diversity
+#[path = "cpu.rs"]
+mod cpu;
 use std::collections::BTreeMap;
 use std::time::Instant;
 
@@ -87,13 +89,13 @@ fn main() {
         let mut cpu = 0.0;
         let mut level = 0.0;
         for _ in 0..3 {
-            let c0 = cpu_seconds();
+            let c0 = cpu::cpu_seconds();
             let t = Instant::now();
             let o = spec.run(&prepared, &Silent).expect("diversity");
             let s = t.elapsed().as_secs_f64();
             if s < best {
                 best = s;
-                cpu = cpu_seconds() - c0;
+                cpu = cpu::cpu_seconds() - c0;
             }
             level = o.coverage.as_ref().map_or(0.0, |c| c.level);
         }
@@ -102,16 +104,4 @@ fn main() {
             rayon::current_num_threads()
         );
     }
-}
-
-/// User + system CPU seconds of this process (Linux /proc; 0 elsewhere).
-fn cpu_seconds() -> f64 {
-    let Ok(s) = std::fs::read_to_string("/proc/self/stat") else {
-        return 0.0;
-    };
-    let rest = s.rsplit_once(')').map_or("", |x| x.1);
-    let f: Vec<&str> = rest.split_whitespace().collect();
-    let ticks: f64 = f.get(11).and_then(|v| v.parse().ok()).unwrap_or(0.0)
-        + f.get(12).and_then(|v| v.parse().ok()).unwrap_or(0.0);
-    ticks / 100.0
 }

@@ -2,6 +2,8 @@
 //! counts, Bray-Curtis, 9999 permutations. Target, reference and last figures:
 //! benches/README.md, "PERMANOVA". Run with `cargo bench --bench permanova`; prints seconds.
 //! The NumPy comparison is `benches/reference/permanova.py` (same sizes).
+#[path = "cpu.rs"]
+mod cpu;
 
 use std::time::Instant;
 
@@ -63,13 +65,13 @@ fn main() {
     let mut cpu = 0.0;
     let mut r = None;
     for _ in 0..3 {
-        let c0 = cpu_seconds();
+        let c0 = cpu::cpu_seconds();
         let t1 = Instant::now();
         r = Some(permanova_oneway(&d, &g, &opts, None).expect("permanova"));
         let t = t1.elapsed().as_secs_f64();
         if t < t_perm {
             t_perm = t;
-            cpu = cpu_seconds() - c0;
+            cpu = cpu::cpu_seconds() - c0;
         }
     }
     let r = r.expect("three runs");
@@ -82,17 +84,4 @@ fn main() {
         "permanova: {t_perm:.3} s wall, {cpu:.3} s cpu  (F = {:.6}, p = {:.4})",
         r.terms[0].pseudo_f, r.terms[0].p_value
     );
-}
-
-/// User + system CPU seconds of this process (Linux /proc; 0 elsewhere).
-fn cpu_seconds() -> f64 {
-    let Ok(s) = std::fs::read_to_string("/proc/self/stat") else {
-        return 0.0;
-    };
-    // Fields after the parenthesised command name; utime and stime are fields 14 and 15.
-    let rest = s.rsplit_once(')').map_or("", |x| x.1);
-    let f: Vec<&str> = rest.split_whitespace().collect();
-    let ticks: f64 = f.get(11).and_then(|v| v.parse().ok()).unwrap_or(0.0)
-        + f.get(12).and_then(|v| v.parse().ok()).unwrap_or(0.0);
-    ticks / 100.0
 }

@@ -1700,10 +1700,8 @@ mod tests {
         );
     }
 
-    #[test]
-    fn size_slope_matches_statsmodels_ols() {
-        let fx = fixture();
-        let o = &fx["ols"];
+    /// The `ols` panel of the fixture: y, year and site codes.
+    fn ols_panel(o: &Value) -> (Vec<f64>, Vec<i32>, Vec<usize>) {
         let y: Vec<f64> = o["y"]
             .as_array()
             .unwrap()
@@ -1723,6 +1721,14 @@ mod tests {
             .map(|v| v.as_str().unwrap().to_string())
             .collect();
         let site = Grouping::from_labels(&site_labels).codes().to_vec();
+        (y, year, site)
+    }
+
+    #[test]
+    fn size_slope_matches_statsmodels_ols() {
+        let fx = fixture();
+        let o = &fx["ols"];
+        let (y, year, site) = ols_panel(o);
         let d = univariate(&y);
         let data = TrendData {
             log_abundance: &y,
@@ -1750,22 +1756,7 @@ mod tests {
     fn the_log_trend_of_one_value_matches_statsmodels_ols_and_the_size_trend() {
         let fx = fixture();
         let o = &fx["ols"];
-        let num = |k: &str| -> Vec<f64> {
-            o[k].as_array()
-                .unwrap()
-                .iter()
-                .map(|v| v.as_f64().unwrap())
-                .collect()
-        };
-        let y = num("y");
-        let year: Vec<i32> = num("year").iter().map(|v| *v as i32).collect();
-        let site_labels: Vec<String> = o["site"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|v| v.as_str().unwrap().to_string())
-            .collect();
-        let site = Grouping::from_labels(&site_labels).codes().to_vec();
+        let (y, year, site) = ols_panel(o);
         let values: Vec<f64> = y.iter().map(|v| v.exp()).collect();
         let t = log_trend(&values, &year, &site, None, 99, 1).unwrap();
         // statsmodels OLS y ~ C(site) + year and anova_lm F (make_trend_fixtures.py)

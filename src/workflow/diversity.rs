@@ -388,9 +388,6 @@ pub struct Outcome {
     pub fingerprint: String,
     /// Notes for the user: the assembly's, then the analysis's own.
     pub notes: Vec<String>,
-    /// How many of `notes` came from the assembly.
-    #[serde(skip)]
-    pub assembly_notes: usize,
 }
 
 /// The effective selection of a diversity run: without a `--unit`, `--every`
@@ -743,7 +740,6 @@ impl Analysis for Spec {
             bootstrap: self.bootstrap,
             seed: self.seed,
             fingerprint: prepared.fingerprint(),
-            assembly_notes: prepared.notes.len(),
             notes: Vec::new(),
         };
         if let Some(every) = self.every {

@@ -59,15 +59,12 @@ fn design_store() -> TestEnv {
             }
         }
     }
-    for (kind, text) in [
+    env.import_all(&[
         ("sites", sites.as_str()),
         ("protocols", protocols),
         ("taxa", taxa.as_str()),
         ("records", records.as_str()),
-    ] {
-        let p = env.write(&format!("{kind}.csv"), text);
-        env.stdout(["import", kind, p.to_str().unwrap()]);
-    }
+    ]);
     env
 }
 

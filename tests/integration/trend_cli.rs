@@ -297,15 +297,12 @@ fn zero_catch_store() -> TestEnv {
             ));
         }
     }
-    for (kind, text) in [
+    env.import_all(&[
         ("sites", sites.as_str()),
         ("protocols", protocols),
         ("taxa", taxa),
         ("records", records.as_str()),
-    ] {
-        let p = env.write(&format!("{kind}.csv"), text);
-        env.stdout(["import", kind, p.to_str().unwrap()]);
-    }
+    ]);
     env
 }
 

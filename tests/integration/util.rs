@@ -182,6 +182,15 @@ impl TestEnv {
     pub fn path(&self, name: &str) -> PathBuf {
         self.dir.path().join(name)
     }
+
+    /// Write each `(kind, text)` as `KIND.csv` and import it with
+    /// `tally import KIND`, in order (sites, protocols, taxa, records…).
+    pub fn import_all(&self, files: &[(&str, &str)]) {
+        for (kind, text) in files {
+            let p = self.write(&format!("{kind}.csv"), text);
+            self.stdout(["import", kind, p.to_str().unwrap()]);
+        }
+    }
 }
 
 /// The repository root.

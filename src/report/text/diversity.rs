@@ -385,9 +385,7 @@ impl Render for Outcome {
         if self.periods.is_some() || self.groups.is_some() {
             writeln!(out, "per-row values: --format csv or --format json")?;
         }
-        for n in &self.notes[self.assembly_notes.min(self.notes.len())..] {
-            writeln!(out, "note: {n}")?;
-        }
+        // Notes go to stderr (the command prints them), as for `trend`.
         Ok(())
     }
 
