@@ -3,7 +3,7 @@
 //! same with `--rarefy-to 50`. Target and last figures:
 //! benches/README.md, "Diversity". Counts are generated from a fixed seed: geometric-series
 //! relative abundances (ratio 0.97) drawn as Poisson-like counts around row
-//! totals of 20–2000 individuals. `TALLY_BENCH_ROWS` changes the number of rows.
+//! totals of 200–2000 individuals. `TALLY_BENCH_ROWS` changes the number of rows.
 //!
 //! Run: cargo bench --bench diversity
 #[path = "cpu.rs"]
@@ -27,7 +27,7 @@ fn matrix(rows: usize) -> CountMatrix {
     let total: f64 = p.iter().sum();
     let mut values = DMatrix::zeros(rows, TAXA);
     for i in 0..rows {
-        let n = 20.0 + 1980.0 * rng.random::<f64>();
+        let n = 200.0 + 1800.0 * rng.random::<f64>();
         for j in 0..TAXA {
             let mu = n * p[j] / total;
             // A count near mu: floor(mu + u) keeps the mean and gives zeros for rare taxa.

@@ -35,6 +35,8 @@ pub const KIND: &str = "diversity";
 pub const DEFAULT_BOOTSTRAP: usize = 999;
 /// Significance level of the reading unless given.
 pub const DEFAULT_ALPHA: f64 = 0.05;
+/// An automatic common coverage below this is noted as too low to compare much.
+const LOW_COVERAGE: f64 = 0.5;
 /// Interval coverage of the group ratios.
 const CONFIDENCE: f64 = 0.95;
 /// First generator stream of the period and group bootstraps (stream
@@ -504,6 +506,17 @@ impl Spec {
                             .into(),
                     )
                 })?;
+                if c < LOW_COVERAGE {
+                    notes.push(format!(
+                        "the common coverage is {:.1} %, set by row {} ({} individuals): at so \
+                         low a coverage every row is compared on a very incomplete sample; pool \
+                         rows into larger units (--unit site-year) or state a level with \
+                         --coverage (rows that cannot reach it are left out, by name)",
+                        100.0 * c,
+                        m.samples[at].label,
+                        samples[at].individuals()
+                    ));
+                }
                 Some((c, "auto", Some(m.samples[at].label.clone())))
             }
         };

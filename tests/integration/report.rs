@@ -243,6 +243,7 @@ fn sections_present(html: &str) {
         "ordination",
         "totals",
         "trends",
+        "diversity",
         "provenance",
         "cautions",
     ] {
@@ -349,6 +350,22 @@ fn demo_recovers_the_stories_and_writes_its_report() {
     assert_eq!(by["lower"].diagnosis, "abundance");
     assert_eq!(by["middle"].diagnosis, "composition");
     assert_eq!(by["upper"].diagnosis, "none");
+    // demo-data/README.md: the lower reach's fall in taxa seen is a fall in
+    // numbers (richness at equal coverage holds); the middle reach loses evenness.
+    assert!(
+        by["lower"].diversity.contains("(size)"),
+        "{}",
+        by["lower"].diversity
+    );
+    assert!(
+        by["middle"].diversity.contains("evenness changed"),
+        "{}",
+        by["middle"].diversity
+    );
+    assert!(
+        html.contains("diversity-time"),
+        "the diversity plots are in the report"
+    );
     assert!(by.values().all(|r| r.compare_run_id.is_some()));
     // The account printed by the demo says the same.
     for line in [
