@@ -387,6 +387,23 @@ pub fn all_zero_levels(y: &[f64], codes: &[usize], n_levels: usize) -> Vec<usize
         .collect()
 }
 
+/// Pooled rate `r = Σy / Σe` of some rows and the variance of `ln r`: the ratio
+/// estimator's variance `n Σ (y_i − r e_i)² / ((n − 1)(Σe)²)` (Cochran 1977,
+/// *Sampling Techniques*, 3rd ed., section 6.4; from memory) over `r²` (delta
+/// method). The variance is `None` for fewer than two rows or a rate of zero.
+pub fn rate_log_variance(y: &[f64], e: &[f64]) -> (f64, Option<f64>) {
+    let n = y.len();
+    let sy: f64 = y.iter().sum();
+    let se: f64 = e.iter().sum();
+    let r = sy / se;
+    if n < 2 || super::prec::not_positive(r) {
+        return (r, None);
+    }
+    let ss: f64 = y.iter().zip(e).map(|(a, b)| (a - r * b).powi(2)).sum();
+    let var = n as f64 / (n as f64 - 1.0) * ss / (se * se);
+    (r, Some(var / (r * r)))
+}
+
 /// Pooled rate of each group: Σ y / Σ effort over its rows (the fitted rate of a one-factor
 /// Poisson model with log-effort offset).
 ///

@@ -25,6 +25,7 @@ pub mod permutation;
 pub mod prec;
 pub mod rarefy;
 pub mod size_test;
+pub mod taxa;
 pub mod transform;
 pub mod trend;
 

@@ -35,7 +35,9 @@ use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
 use super::DistanceMatrix;
-use super::count_model::{GroupedScore, PoissonFit, ScoreTest, all_zero_levels, poisson_glm};
+use super::count_model::{
+    GroupedScore, PoissonFit, ScoreTest, all_zero_levels, poisson_glm, rate_log_variance,
+};
 use super::gower::gower_centre;
 use super::linear_model::{Basis, Grouping};
 use super::permutation::{BLOCK, Permuter, Scheme, at_least, block_rng};
@@ -597,21 +599,15 @@ fn pct(b: f64) -> f64 {
 }
 
 /// Pooled rate `Σy / Σe` of some rows and its 95 % interval: the ratio
-/// estimator's variance `n Σ (y_i − r e_i)² / ((n − 1)(Σe)²)` (Cochran 1977,
-/// *Sampling Techniques*, 3rd ed., section 6.4; from memory), carried to the log
-/// scale by the delta method with a t quantile on n − 1 df, so the interval stays
-/// positive. No interval for fewer than two rows or a rate of zero.
+/// estimator's variance of [`rate_log_variance`] on the log scale, with a t
+/// quantile on n − 1 df, so the interval stays positive. No interval for fewer
+/// than two rows or a rate of zero.
 fn rate_interval(y: &[f64], e: &[f64]) -> Result<(f64, Option<(f64, f64)>), AnalysisError> {
-    let n = y.len();
-    let sy: f64 = y.iter().sum();
-    let se: f64 = e.iter().sum();
-    let r = sy / se;
-    if n < 2 || prec::not_positive(r) {
+    let (r, var_log) = rate_log_variance(y, e);
+    let Some(v) = var_log else {
         return Ok((r, None));
-    }
-    let ss: f64 = y.iter().zip(e).map(|(a, b)| (a - r * b).powi(2)).sum();
-    let var = n as f64 / (n as f64 - 1.0) * ss / (se * se);
-    let half = t_quantile(0.975, (n - 1) as f64)? * var.sqrt() / r;
+    };
+    let half = t_quantile(0.975, (y.len() - 1) as f64)? * v.sqrt();
     Ok((r, Some((r * (-half).exp(), r * half.exp()))))
 }
 
