@@ -28,6 +28,10 @@ pub struct Args {
     /// How rows are exchanged.
     #[command(flatten)]
     pub design: DesignArgs,
+    /// Taxa shown per comparison in the table, largest shares of the composition
+    /// shift first (JSON and CSV list every taxon).
+    #[arg(long, value_name = "N", default_value_t = crate::workflow::compare::TAXA_SHOWN)]
+    pub taxa: usize,
     /// How size is summarised: rate (pooled rate Σ count ÷ Σ effort of a log-linear
     /// count model; samples that caught nothing count) or geometric (geometric mean
     /// of the totals; strictly positive totals only).
@@ -107,7 +111,8 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     for n in &prepared.notes {
         note(n);
     }
-    let outcome = spec.run(&prepared, &Progress::new("compare"))?;
+    let mut outcome = spec.run(&prepared, &Progress::new("compare"))?;
+    outcome.taxa_shown = args.taxa;
     for n in outcome.own_notes() {
         note(n);
     }

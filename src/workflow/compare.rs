@@ -22,6 +22,7 @@ use crate::analysis::rarefy::{mean_rarefied_distance, min_total};
 use crate::analysis::size_test::{
     SizeModel, SizeTestOptions, SizeTestResult, rate_test, size_test,
 };
+use crate::analysis::taxa::{TaxonChange, contrast};
 use crate::analysis::transform::Transform;
 use crate::matrix::CountMatrix;
 use crate::store::Selection;
@@ -376,9 +377,63 @@ pub struct Comparison {
     pub dispersion_differs: bool,
     /// The verdict in words.
     pub verdict: String,
+    /// The taxa behind the contrast, in column order (taxa absent from both groups
+    /// left out): docs/methods.md, "Taxa behind the change".
+    pub taxa: Vec<Taxon>,
 }
 
+/// One taxon of a comparison.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Taxon {
+    /// Accepted name at the analysed rank.
+    pub taxon: String,
+    /// Its rates, ratio, shares, contributions and test.
+    #[serde(flatten)]
+    pub change: TaxonChange,
+}
+
+/// At most this many taxa are named in a verdict.
+const NAMED_TAXA: usize = 2;
+
 impl Comparison {
+    /// The taxa that carry the composition difference in words: the largest
+    /// shares of the shift among taxa whose own change is clear (BH-adjusted p at
+    /// most `alpha`), e.g. "mostly through a rise of Baetis (48 % of the shift)".
+    fn drivers(&self, alpha: f64) -> String {
+        let mut clear: Vec<&Taxon> = self
+            .taxa
+            .iter()
+            .filter(|t| t.change.p_adjusted.is_some_and(|p| p <= alpha))
+            .filter(|t| t.change.shape_contribution.is_some())
+            .collect();
+        clear.sort_by(|a, b| {
+            b.change
+                .shape_contribution
+                .unwrap_or(0.0)
+                .total_cmp(&a.change.shape_contribution.unwrap_or(0.0))
+        });
+        if clear.is_empty() {
+            return ", though no single taxon's own change is clear".to_string();
+        }
+        let named: Vec<String> = clear
+            .iter()
+            .take(NAMED_TAXA)
+            .map(|t| {
+                format!(
+                    "a {} of {} ({:.0} % of the shift)",
+                    if t.change.share_change_pp >= 0.0 {
+                        "rise"
+                    } else {
+                        "fall"
+                    },
+                    t.taxon,
+                    100.0 * t.change.shape_contribution.unwrap_or(0.0)
+                )
+            })
+            .collect();
+        format!(", mostly through {}", named.join(" and "))
+    }
+
     /// Whether the p-values are Holm-adjusted.
     pub fn adjusted(&self) -> bool {
         self.size.p_adjusted.is_some()
@@ -422,6 +477,9 @@ impl Comparison {
             if co { "different" } else { "not different" },
             fmt_p(pc, self.shape.permutations),
         );
+        if co && !self.taxa.is_empty() {
+            text.push_str(&self.drivers(alpha));
+        }
         if di {
             text.push_str(&format!(
                 "; the spread of composition differs too (dispersion {label} = {}), so a composition \
@@ -488,7 +546,14 @@ pub struct Outcome {
     /// How many of `notes` came from the assembly.
     #[serde(skip)]
     pub assembly_notes: usize,
+    /// How many taxa the table shows per comparison (`--taxa`; every taxon is in
+    /// JSON and CSV).
+    #[serde(skip)]
+    pub taxa_shown: usize,
 }
+
+/// Taxa shown per comparison in the table unless `--taxa` says otherwise.
+pub const TAXA_SHOWN: usize = 10;
 
 impl Outcome {
     /// The notes of the analysis itself (the assembly's left out).
@@ -538,9 +603,56 @@ struct Ctx<'a> {
     shape: ShapeD,
     scheme: Scheme,
     spec: &'a Spec,
+    /// The matrix holds values per unit effort.
+    per_effort: bool,
 }
 
 impl Ctx<'_> {
+    /// The taxa behind `group` against `reference` on the matrix rows `rows`:
+    /// counts (per-effort values times effort) with their effort, each taxon's
+    /// rate tested under the comparison's scheme and seed.
+    fn taxa(&self, group: &str, rows: &[usize], what: &str) -> Result<Vec<Taxon>> {
+        let m = self.m;
+        let p = m.values.ncols();
+        let scale: Vec<f64> = rows
+            .iter()
+            .map(|&i| {
+                if self.per_effort {
+                    m.samples[i].effort
+                } else {
+                    1.0
+                }
+            })
+            .collect();
+        let y = nalgebra::DMatrix::from_fn(rows.len(), p, |k, j| m.values[(rows[k], j)] * scale[k]);
+        let effort: Vec<f64> = rows.iter().map(|&i| self.effort[i]).collect();
+        let side: Vec<usize> = rows
+            .iter()
+            .map(|&i| usize::from(self.labels[i] == group))
+            .collect();
+        let opts = SizeTestOptions {
+            permutations: self.spec.permutations,
+            seed: self.spec.seed,
+            scheme: self.scheme.subset(rows),
+            bootstrap: 0,
+            reference: 0,
+            confidence: CONFIDENCE,
+            clusters: self
+                .clusters
+                .as_ref()
+                .map(|c| rows.iter().map(|&i| c[i]).collect()),
+        };
+        let c = contrast(&y, &effort, &side, Some(&opts))
+            .map_err(|e| kernel_on(format!("{what}per-taxon tests"), e, m, rows))?;
+        Ok(c.taxa
+            .into_iter()
+            .map(|t| Taxon {
+                taxon: m.taxa[t.column].name.clone(),
+                change: t,
+            })
+            .collect())
+    }
+
     /// Size, shape and dispersion tests of the matrix rows `rows` against `reference`.
     fn tests(&self, reference: &str, rows: &[usize], what: &str) -> Result<Tests> {
         let p = self.spec;
@@ -657,6 +769,7 @@ fn comparison_of(t: &Tests, group: &str, reference: &str, distance: Distance) ->
         composition_differs: false,
         dispersion_differs: false,
         verdict: String::new(),
+        taxa: Vec::new(),
     }
 }
 
@@ -819,6 +932,7 @@ impl Analysis for Spec {
             shape,
             scheme,
             spec: self,
+            per_effort,
         };
 
         // (a), (b): global tests over all groups.
@@ -889,7 +1003,9 @@ impl Analysis for Spec {
                 .iter()
                 .find(|l| **l != reference)
                 .expect("invariant: two levels");
-            comparisons.push(comparison_of(&global, other, &reference, shape_distance));
+            let mut c = comparison_of(&global, other, &reference, shape_distance);
+            c.taxa = ctx.taxa(other, &all, "")?;
+            comparisons.push(c);
         } else {
             let mut pairs: Vec<(String, String)> = levels
                 .iter()
@@ -907,8 +1023,11 @@ impl Analysis for Spec {
                 let rows: Vec<usize> = (0..n)
                     .filter(|&i| ctx.labels[i] == *g || ctx.labels[i] == *r)
                     .collect();
-                let t = ctx.tests(r, &rows, &format!("comparing {g} with {r}: "))?;
-                comparisons.push(comparison_of(&t, g, r, shape_distance));
+                let what = format!("comparing {g} with {r}: ");
+                let t = ctx.tests(r, &rows, &what)?;
+                let mut c = comparison_of(&t, g, r, shape_distance);
+                c.taxa = ctx.taxa(g, &rows, &what)?;
+                comparisons.push(c);
             }
             let hs = holm(
                 &comparisons
@@ -1036,6 +1155,7 @@ impl Analysis for Spec {
             design: vec![chosen],
             permutations: self.permutations,
             assembly_notes: prepared.notes.len(),
+            taxa_shown: TAXA_SHOWN,
             notes,
             caution: CAUTION,
         })

@@ -261,6 +261,54 @@ fn demo_stories_are_recovered_and_verified() {
     let middle = compare_demo(&env, "middle", "2008..2018,2019..2025");
     assert_eq!(middle["abundance_differs"], false, "{}", middle["verdict"]);
     assert_eq!(middle["composition_differs"], true, "{}", middle["verdict"]);
+    // The taxa behind the middle reach's shift (docs/methods.md, "Taxa behind
+    // the change"): the verdict names drivers whose own change is clear, and the
+    // shape contributions add to 1.
+    let verdict = middle["verdict"].as_str().unwrap();
+    assert!(verdict.contains("mostly through a "), "{verdict}");
+    let taxa = middle["comparisons"][0]["taxa"].as_array().unwrap();
+    assert!(taxa.len() >= 20);
+    let sum: f64 = taxa
+        .iter()
+        .map(|t| t["shape_contribution"].as_f64().unwrap())
+        .sum();
+    assert!((sum - 1.0).abs() < 1e-9, "shape contributions add to {sum}");
+    let top = taxa
+        .iter()
+        .max_by(|a, b| {
+            a["shape_contribution"]
+                .as_f64()
+                .unwrap()
+                .total_cmp(&b["shape_contribution"].as_f64().unwrap())
+        })
+        .unwrap();
+    assert!(
+        verdict.contains(top["taxon"].as_str().unwrap()),
+        "{verdict}"
+    );
+    for t in taxa {
+        for k in [
+            "taxon",
+            "rate_reference",
+            "rate_group",
+            "share_change_pp",
+            "p_value",
+            "p_adjusted",
+        ] {
+            assert!(!t[k].is_null(), "taxa[].{k}");
+        }
+    }
+    // The lower reach lost animals of every kind: nearly every taxon's rate fell.
+    let lower_taxa = lower["comparisons"][0]["taxa"].as_array().unwrap();
+    let fell = lower_taxa
+        .iter()
+        .filter(|t| t["ratio"].as_f64().is_some_and(|r| r < 1.0))
+        .count();
+    assert!(
+        fell * 10 >= lower_taxa.len() * 9,
+        "{fell} of {} fell",
+        lower_taxa.len()
+    );
     let upper = compare_demo(&env, "upper", "2008..2015,2016..2025");
     assert_eq!(upper["abundance_differs"], false, "{}", upper["verdict"]);
     assert_eq!(upper["composition_differs"], false, "{}", upper["verdict"]);

@@ -5,7 +5,7 @@ use std::io::{self, Write};
 use super::{Render, design_lines};
 use crate::analysis::size_test::SizeModel;
 use crate::report::format::{MISSING, csv_num, fmt_p, new_table, write_table};
-use crate::workflow::compare::Outcome;
+use crate::workflow::compare::{Comparison, Outcome};
 
 /// A ratio or statistic with `decimals` decimals, [`MISSING`] when not computed.
 fn fixed(v: f64, decimals: usize) -> String {
@@ -22,6 +22,65 @@ fn pct(v: f64) -> String {
     } else {
         MISSING.to_string()
     }
+}
+
+/// The taxa behind one comparison: the `shown` largest shares of the
+/// composition shift, with rates, ratio, share change and adjusted p.
+fn taxa_table(c: &Comparison, shown: usize, out: &mut dyn Write) -> io::Result<()> {
+    if c.taxa.is_empty() || shown == 0 {
+        return Ok(());
+    }
+    let mut order: Vec<_> = c.taxa.iter().collect();
+    order.sort_by(|a, b| {
+        b.change
+            .shape_contribution
+            .unwrap_or(0.0)
+            .total_cmp(&a.change.shape_contribution.unwrap_or(0.0))
+    });
+    writeln!(
+        out,
+        "Taxa behind {} against {} (largest shares of the composition shift first):",
+        c.group, c.reference
+    )?;
+    let mut t = new_table(&[
+        "taxon",
+        "rate reference",
+        "rate group",
+        "ratio (95% CI)",
+        "share change (points)",
+        "share of shift",
+        "share of size change",
+        "p (BH)",
+    ]);
+    for x in order.iter().take(shown) {
+        let ch = &x.change;
+        t.add_row(vec![
+            x.taxon.clone(),
+            fixed(ch.rate_reference, 3),
+            fixed(ch.rate_group, 3),
+            match (ch.ratio, ch.ratio_ci_low, ch.ratio_ci_high) {
+                (Some(r), Some(a), Some(b)) => {
+                    format!("×{} ({}–{})", fixed(r, 2), fixed(a, 2), fixed(b, 2))
+                }
+                (Some(r), _, _) => format!("×{}", fixed(r, 2)),
+                (None, _, _) => "absent from reference".to_string(),
+            },
+            format!("{:+.1}", ch.share_change_pp),
+            ch.shape_contribution.map_or(MISSING.to_string(), pct),
+            ch.size_contribution.map_or(MISSING.to_string(), pct),
+            ch.p_adjusted
+                .map_or(MISSING.to_string(), |p| fmt_p(p, c.size.permutations)),
+        ]);
+    }
+    write_table(out, &t)?;
+    if c.taxa.len() > shown {
+        writeln!(
+            out,
+            "{} more taxa: --taxa N shows more, --format csv or json lists all.",
+            c.taxa.len() - shown
+        )?;
+    }
+    Ok(())
 }
 
 impl Render for Outcome {
@@ -157,6 +216,9 @@ impl Render for Outcome {
         ) {
             writeln!(out, "{line}")?;
         }
+        for c in &self.comparisons {
+            taxa_table(c, self.taxa_shown, out)?;
+        }
         writeln!(out, "{}", self.caution)
     }
 
@@ -177,25 +239,68 @@ impl Render for Outcome {
             "p_shape_adjusted",
             "abundance_differs",
             "composition_differs",
+            "taxon",
+            "rate_reference",
+            "rate_group",
+            "taxon_ratio",
+            "taxon_ratio_ci_low",
+            "taxon_ratio_ci_high",
+            "share_reference",
+            "share_group",
+            "share_change_pp",
+            "shape_contribution",
+            "size_contribution",
+            "taxon_p_value",
+            "taxon_p_adjusted",
         ])?;
         let opt = |v: Option<f64>| v.map(csv_num).unwrap_or_default();
+        // One line per comparison and taxon: the comparison's columns repeated.
         for c in &self.comparisons {
-            w.write_record([
-                c.group.clone(),
-                c.reference.clone(),
-                c.n.group.to_string(),
-                c.n.reference.to_string(),
-                csv_num(c.size.ratio),
-                csv_num(c.size.ci_low),
-                csv_num(c.size.ci_high),
-                csv_num(c.size.p_value),
-                csv_num(c.shape.p_value),
-                csv_num(c.shape.dispersion_p_value),
-                opt(c.size.p_adjusted),
-                opt(c.shape.p_adjusted),
-                c.abundance_differs.to_string(),
-                c.composition_differs.to_string(),
-            ])?;
+            let rows: Vec<Option<&crate::workflow::compare::Taxon>> = if c.taxa.is_empty() {
+                vec![None]
+            } else {
+                c.taxa.iter().map(Some).collect()
+            };
+            for x in rows {
+                let mut record = vec![
+                    c.group.clone(),
+                    c.reference.clone(),
+                    c.n.group.to_string(),
+                    c.n.reference.to_string(),
+                    csv_num(c.size.ratio),
+                    csv_num(c.size.ci_low),
+                    csv_num(c.size.ci_high),
+                    csv_num(c.size.p_value),
+                    csv_num(c.shape.p_value),
+                    csv_num(c.shape.dispersion_p_value),
+                    opt(c.size.p_adjusted),
+                    opt(c.shape.p_adjusted),
+                    c.abundance_differs.to_string(),
+                    c.composition_differs.to_string(),
+                ];
+                match x {
+                    Some(x) => {
+                        let ch = &x.change;
+                        record.extend([
+                            x.taxon.clone(),
+                            csv_num(ch.rate_reference),
+                            csv_num(ch.rate_group),
+                            opt(ch.ratio),
+                            opt(ch.ratio_ci_low),
+                            opt(ch.ratio_ci_high),
+                            csv_num(ch.share_reference),
+                            csv_num(ch.share_group),
+                            csv_num(ch.share_change_pp),
+                            opt(ch.shape_contribution),
+                            opt(ch.size_contribution),
+                            opt(ch.p_value),
+                            opt(ch.p_adjusted),
+                        ]);
+                    }
+                    None => record.extend(std::iter::repeat_n(String::new(), 13)),
+                }
+                w.write_record(&record)?;
+            }
         }
         w.flush()
     }
