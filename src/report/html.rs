@@ -1097,6 +1097,7 @@ mod tests {
                 composition_differs: comp,
                 dispersion_differs: false,
                 verdict: "abundance lower".into(),
+                taxa: Vec::new(),
             }],
             verdict: "abundance lower <x0.61>; composition not different".into(),
             seed: 3,
@@ -1107,6 +1108,7 @@ mod tests {
             caution: "",
             differs: None,
             assembly_notes: 0,
+            taxa_shown: 10,
         }
     }
 
