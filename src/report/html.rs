@@ -613,10 +613,97 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
                     &rows,
                     &[],
                 ));
+                for x in &v.comparisons {
+                    taxa_behind(out, x, v.alpha);
+                }
             }
         }
     }
     out.push_str("</section>\n");
+}
+
+/// Taxa shown per comparison in the report.
+const REPORT_TAXA: usize = 12;
+
+/// "Taxa behind the change" of one comparison: a diverging bar chart of the
+/// largest shares of the composition shift and a table of their rates, ratios
+/// and adjusted p-values (docs/methods.md, "Taxa behind the change").
+fn taxa_behind(out: &mut String, x: &compare::Comparison, alpha: f64) {
+    if x.taxa.is_empty() {
+        return;
+    }
+    let mut order: Vec<&compare::Taxon> = x.taxa.iter().collect();
+    order.sort_by(|a, b| {
+        b.change
+            .shape_contribution
+            .unwrap_or(0.0)
+            .total_cmp(&a.change.shape_contribution.unwrap_or(0.0))
+    });
+    order.truncate(REPORT_TAXA);
+    out.push_str(&format!(
+        "<h4>Taxa behind the change: {} against {}</h4>\n",
+        esc(&x.group),
+        esc(&x.reference)
+    ));
+    let plot = svg::TaxaPlot {
+        title: format!("Taxa behind {} against {}", x.group, x.reference),
+        subtitle: format!(
+            "the {} largest shares of the composition shift (Hellinger centroids)",
+            order.len()
+        ),
+        bars: order
+            .iter()
+            .map(|t| svg::TaxonBar {
+                taxon: t.taxon.clone(),
+                contribution: t.change.shape_contribution.unwrap_or(0.0),
+                gained: t.change.share_change_pp >= 0.0,
+                clear: t.change.p_adjusted.is_some_and(|p| p <= alpha),
+            })
+            .collect(),
+    };
+    out.push_str(&figure(
+        svg::taxa_svg(&plot),
+        &plot.title,
+        "Each bar is a taxon's share of the squared Hellinger distance between the two groups' centroids (the shares of all taxa add to 100 %): right when its share of the total rose, left when it fell. A long pale bar is a taxon that moves the centroid without a clear change of its own.",
+    ));
+    let rows: Vec<Vec<String>> = order
+        .iter()
+        .map(|t| {
+            let c = &t.change;
+            vec![
+                esc(&t.taxon),
+                fnum(Some(c.rate_reference), 3),
+                fnum(Some(c.rate_group), 3),
+                match (c.ratio, c.ratio_ci_low, c.ratio_ci_high) {
+                    (Some(r), Some(a), Some(b)) => format!(
+                        "{} ({}–{})",
+                        fnum(Some(r), 2),
+                        fnum(Some(a), 2),
+                        fnum(Some(b), 2)
+                    ),
+                    (Some(r), _, _) => fnum(Some(r), 2),
+                    (None, _, _) => "absent before".to_string(),
+                },
+                format!("{:+.1}", c.share_change_pp),
+                fnum(c.shape_contribution.map(|v| 100.0 * v), 1),
+                c.p_adjusted
+                    .map_or("—".to_string(), |p| fmt_p(p, x.size.permutations)),
+            ]
+        })
+        .collect();
+    out.push_str(&table(
+        &[
+            "Taxon",
+            "Rate, reference",
+            "Rate, group",
+            "Ratio (95% CI)",
+            "Share change (points)",
+            "Share of shift %",
+            "Adjusted p",
+        ],
+        &rows,
+        &[false, true, true, true, true, true, true],
+    ));
 }
 
 fn partition_part(out: &mut String, input: &ReportInput) {

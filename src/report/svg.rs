@@ -1058,6 +1058,123 @@ pub fn trend_svg(plot: &TrendPlot) -> Result<String, SvgError> {
     wrap_markers(out, &marks)
 }
 
+// ------------------------------------------------------------------ taxa
+
+/// One bar of [`taxa_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxonBar {
+    /// Taxon name.
+    pub taxon: String,
+    /// Share of the composition shift, 0–1.
+    pub contribution: f64,
+    /// True when the taxon's share of the total rose.
+    pub gained: bool,
+    /// True when its own change is clear (adjusted p at most alpha).
+    pub clear: bool,
+}
+
+/// Input of [`taxa_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxaPlot {
+    /// Plot title.
+    pub title: String,
+    /// The contrast, in words.
+    pub subtitle: String,
+    /// Bars, largest first.
+    pub bars: Vec<TaxonBar>,
+}
+
+/// A diverging bar chart of the taxa behind a composition shift: each taxon's
+/// share of the shift, to the right when its share of the total rose and to the
+/// left when it fell; full colour when its own change is clear, pale otherwise.
+///
+/// # Errors
+/// [`SvgError::Empty`] without bars, [`SvgError::NonFinite`], [`SvgError::Draw`].
+pub fn taxa_svg(plot: &TaxaPlot) -> Result<String, SvgError> {
+    if plot.bars.is_empty() {
+        return Err(SvgError::Empty("no taxa"));
+    }
+    check_finite(
+        plot.bars.iter().map(|b| b.contribution),
+        "taxon contributions",
+    )?;
+    let k = plot.bars.len();
+    let height = 58 + 40 + 26 * k as u32 + 60;
+    let top = plot
+        .bars
+        .iter()
+        .map(|b| b.contribution)
+        .fold(0.0_f64, f64::max)
+        .max(1e-9)
+        * 100.0
+        * 1.1;
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, height)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let (main, foot) = body.split_vertically(height - 58 - 40);
+        let mut chart = ChartBuilder::on(&main)
+            .margin(10)
+            .x_label_area_size(34)
+            .y_label_area_size(150)
+            .build_cartesian_2d(-top..top, 0.0..k as f64)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .light_line_style(WHITE)
+            .bold_line_style(MIST.mix(0.6))
+            .y_labels(0)
+            .x_label_formatter(&|v| format!("{:.0} %", v.abs()))
+            .x_desc("Share of the composition shift (left: share fell, right: share rose)")
+            .axis_desc_style((FONT, 14))
+            .label_style((FONT, 12))
+            .draw()
+            .map_err(draw_err)?;
+        for (i, b) in plot.bars.iter().enumerate() {
+            let y = (k - 1 - i) as f64;
+            let x = 100.0 * b.contribution * if b.gained { 1.0 } else { -1.0 };
+            let colour = if b.gained { PALETTE[4] } else { PALETTE[0] };
+            let style = if b.clear {
+                colour.filled()
+            } else {
+                colour.mix(0.35).filled()
+            };
+            marks.open(
+                &root,
+                if b.clear { "taxon clear" } else { "taxon" },
+                &b.taxon,
+            )?;
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(0.0, y + 0.15), (x, y + 0.85)],
+                    style,
+                )))
+                .map_err(draw_err)?;
+            marks.close(&root)?;
+            let at = chart.backend_coord(&(-top, y + 0.5));
+            root.draw(&Text::new(
+                b.taxon.clone(),
+                (at.0 - 144, at.1 - 7),
+                (FONT, 12).into_font().color(&INK),
+            ))
+            .map_err(draw_err)?;
+        }
+        chart
+            .draw_series(std::iter::once(PathElement::new(
+                vec![(0.0, 0.0), (0.0, k as f64)],
+                INK.stroke_width(1),
+            )))
+            .map_err(draw_err)?;
+        footnotes(
+            &foot,
+            &["Full colour: the taxon's own change is clear (Benjamini–Hochberg adjusted p at most alpha); pale: it is not.".to_string()],
+        )?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
 // ------------------------------------------------------------------ diversity
 
 /// One rarefaction and extrapolation curve of [`DiversityPlot`].
@@ -1460,6 +1577,39 @@ mod tests {
         assert!(has_text(&doc, "Axis 1 (41.2% of inertia)"));
         assert!(has_text(&doc, "No ellipse (fewer than 3 samples): upper."));
         assert!(!svg.contains("TALLYMARK"));
+    }
+
+    #[test]
+    fn taxa_svg_marks_clear_taxa_and_names_every_bar() {
+        let bar = |t: &str, c: f64, gained: bool, clear: bool| TaxonBar {
+            taxon: t.into(),
+            contribution: c,
+            gained,
+            clear,
+        };
+        let plot = TaxaPlot {
+            title: "Taxa".into(),
+            subtitle: "a <b> & c".into(),
+            bars: vec![
+                bar("Baetis", 0.4, false, true),
+                bar("Naididae", 0.3, true, true),
+                bar("Leuctra", 0.1, false, false),
+            ],
+        };
+        let svg = taxa_svg(&plot).unwrap();
+        let doc = parse(&svg);
+        assert_eq!(groups_of(&doc, "taxon clear").len(), 2);
+        assert_eq!(groups_of(&doc, "taxon").len(), 1);
+        for t in ["Baetis", "Naididae", "Leuctra", "a <b> & c"] {
+            assert!(has_text(&doc, t), "{t}");
+        }
+        assert!(
+            taxa_svg(&TaxaPlot {
+                bars: Vec::new(),
+                ..plot
+            })
+            .is_err()
+        );
     }
 
     #[test]

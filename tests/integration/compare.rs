@@ -261,9 +261,9 @@ fn demo_stories_are_recovered_and_verified() {
     let middle = compare_demo(&env, "middle", "2008..2018,2019..2025");
     assert_eq!(middle["abundance_differs"], false, "{}", middle["verdict"]);
     assert_eq!(middle["composition_differs"], true, "{}", middle["verdict"]);
-    // The taxa behind the middle reach's shift (docs/methods.md, "Taxa behind
-    // the change"): the verdict names drivers whose own change is clear, and the
-    // shape contributions add to 1.
+    // The taxa behind the middle reach's shift, as in
+    // docs/methods.md, "Taxa behind the change": the verdict names drivers whose
+    // own change is clear, and the shape contributions add to 1.
     let verdict = middle["verdict"].as_str().unwrap();
     assert!(verdict.contains("mostly through a "), "{verdict}");
     let taxa = middle["comparisons"][0]["taxa"].as_array().unwrap();
