@@ -1382,6 +1382,7 @@ mod tests {
             unit: crate::matrix::Unit::SiteYear,
             per_effort: true,
             fingerprint: "ab".repeat(32),
+            taxa: Vec::new(),
             notes: Vec::new(),
         }
     }

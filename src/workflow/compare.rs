@@ -608,24 +608,9 @@ struct Ctx<'a> {
 }
 
 impl Ctx<'_> {
-    /// The taxa behind `group` against `reference` on the matrix rows `rows`:
-    /// counts (per-effort values times effort) with their effort, each taxon's
-    /// rate tested under the comparison's scheme and seed.
+    /// The taxa behind `group` against the other group on the matrix rows
+    /// `rows`, each taxon's rate tested under the comparison's scheme and seed.
     fn taxa(&self, group: &str, rows: &[usize], what: &str) -> Result<Vec<Taxon>> {
-        let m = self.m;
-        let p = m.values.ncols();
-        let scale: Vec<f64> = rows
-            .iter()
-            .map(|&i| {
-                if self.per_effort {
-                    m.samples[i].effort
-                } else {
-                    1.0
-                }
-            })
-            .collect();
-        let y = nalgebra::DMatrix::from_fn(rows.len(), p, |k, j| m.values[(rows[k], j)] * scale[k]);
-        let effort: Vec<f64> = rows.iter().map(|&i| self.effort[i]).collect();
         let side: Vec<usize> = rows
             .iter()
             .map(|&i| usize::from(self.labels[i] == group))
@@ -642,15 +627,8 @@ impl Ctx<'_> {
                 .as_ref()
                 .map(|c| rows.iter().map(|&i| c[i]).collect()),
         };
-        let c = contrast(&y, &effort, &side, Some(&opts))
-            .map_err(|e| kernel_on(format!("{what}per-taxon tests"), e, m, rows))?;
-        Ok(c.taxa
-            .into_iter()
-            .map(|t| Taxon {
-                taxon: m.taxa[t.column].name.clone(),
-                change: t,
-            })
-            .collect())
+        taxa_of(self.m, self.per_effort, rows, &side, &opts)
+            .map_err(|e| kernel_on(format!("{what}per-taxon tests"), e, self.m, rows))
     }
 
     /// Size, shape and dispersion tests of the matrix rows `rows` against `reference`.
@@ -734,6 +712,37 @@ impl Ctx<'_> {
         .map_err(|e| kernel_on(format!("{what}dispersion test"), e, self.m, &srows))?;
         Ok(Tests { size, shape, disp })
     }
+}
+
+/// The taxa behind a two-sided contrast of the rows `rows` of `m` (`side` 0 the
+/// reference, 1 the group): counts (per-effort values times effort, with
+/// `per_effort`) with their effort, each taxon tested by `opts` (its scheme on
+/// these rows): docs/methods.md, "Taxa behind the change".
+///
+/// # Errors
+/// The kernel's, on these rows.
+pub fn taxa_of(
+    m: &CountMatrix,
+    per_effort: bool,
+    rows: &[usize],
+    side: &[usize],
+    opts: &SizeTestOptions,
+) -> std::result::Result<Vec<Taxon>, AnalysisError> {
+    let effort: Vec<f64> = rows
+        .iter()
+        .map(|&i| if per_effort { m.samples[i].effort } else { 1.0 })
+        .collect();
+    let y = nalgebra::DMatrix::from_fn(rows.len(), m.values.ncols(), |k, j| {
+        m.values[(rows[k], j)] * if per_effort { effort[k] } else { 1.0 }
+    });
+    let c = contrast(&y, &effort, side, Some(opts))?;
+    Ok(c.taxa
+        .into_iter()
+        .map(|t| Taxon {
+            taxon: m.taxa[t.column].name.clone(),
+            change: t,
+        })
+        .collect())
 }
 
 /// The comparison of `group` with `reference` in the tests `t` (unadjusted, unworded).

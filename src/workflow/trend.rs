@@ -415,6 +415,10 @@ pub struct Outcome {
     pub per_effort: bool,
     /// Fingerprint of the matrix analysed.
     pub fingerprint: String,
+    /// The taxa behind the change from the baseline years to the later years:
+    /// pooled rates of each side and each taxon's change tested by relabelling
+    /// whole years (docs/methods.md, "Taxa behind the change").
+    pub taxa: Vec<super::compare::Taxon>,
     /// Notes for the user (assembly notes first).
     pub notes: Vec<String>,
 }
@@ -660,6 +664,32 @@ impl Analysis for Spec {
         let s = &r.size_trend;
         let rate = s.model == SizeModel::Rate;
         notes.extend(r.notes.iter().cloned());
+        // The baseline against the later years, taxon by taxon, under the trend's
+        // own design: whole years relabelled across all sites at once.
+        let all: Vec<usize> = (0..n).collect();
+        let side: Vec<usize> = year
+            .iter()
+            .map(|y| usize::from(!r.baseline_years.contains(y)))
+            .collect();
+        let year_codes = crate::analysis::trend::YearLabels::new(&year)
+            .codes()
+            .to_vec();
+        let taxa = super::compare::taxa_of(
+            m,
+            prepared.selection.per_effort,
+            &all,
+            &side,
+            &crate::analysis::size_test::SizeTestOptions {
+                permutations: self.permutations,
+                seed: self.seed,
+                scheme: crate::analysis::permutation::Scheme::WholeSites(year_codes),
+                bootstrap: 0,
+                reference: 0,
+                confidence: 0.95,
+                clusters: None,
+            },
+        )
+        .map_err(|e| WorkflowError::kernel("per-taxon tests of the baseline contrast", e, m))?;
         Ok(Outcome {
             diagnosis: r.diagnosis,
             alpha: r.alpha,
@@ -721,6 +751,7 @@ impl Analysis for Spec {
             unit: prepared.unit(),
             per_effort: prepared.selection.per_effort,
             fingerprint: prepared.fingerprint(),
+            taxa,
             notes,
         })
     }

@@ -64,6 +64,22 @@ fn demo_reaches_tell_their_stories() {
     // The planted step is ×0.6 (−40 %); the step estimate is near it.
     let step = lower["breakpoints"]["size"]["change_pct"].as_f64().unwrap();
     assert!((-50.0..-30.0).contains(&step), "lower step {step} %");
+    // The taxa behind the change since the baseline, tested by whole years
+    // (docs/methods.md, "Taxa behind the change"): every taxon listed once,
+    // shape contributions adding to 1, p-values in (0, 1].
+    for g in [lower, middle, upper] {
+        let taxa = g["taxa"].as_array().unwrap();
+        assert!(taxa.len() >= 20);
+        let sum: f64 = taxa
+            .iter()
+            .map(|t| t["shape_contribution"].as_f64().unwrap())
+            .sum();
+        assert!((sum - 1.0).abs() < 1e-9, "{sum}");
+        for t in taxa {
+            let p = t["p_value"].as_f64().unwrap();
+            assert!(p > 0.0 && p <= 1.0);
+        }
+    }
     // Keys and shapes of the JSON.
     for g in [lower, middle, upper] {
         for k in ["slope_pct_per_year", "p_value", "ci_low", "ci_high"] {

@@ -5,7 +5,7 @@ use std::io::{self, Write};
 use super::{Render, design_lines};
 use crate::analysis::size_test::SizeModel;
 use crate::report::format::{MISSING, csv_num, fmt_p, new_table, write_table};
-use crate::workflow::compare::{Comparison, Outcome};
+use crate::workflow::compare::{Outcome, Taxon};
 
 /// A ratio or statistic with `decimals` decimals, [`MISSING`] when not computed.
 fn fixed(v: f64, decimals: usize) -> String {
@@ -24,13 +24,22 @@ fn pct(v: f64) -> String {
     }
 }
 
-/// The taxa behind one comparison: the `shown` largest shares of the
-/// composition shift, with rates, ratio, share change and adjusted p.
-fn taxa_table(c: &Comparison, shown: usize, out: &mut dyn Write) -> io::Result<()> {
-    if c.taxa.is_empty() || shown == 0 {
+/// The taxa behind a contrast (`heading` says which): the `shown` largest
+/// shares of the composition shift, with rates, ratio, share change and
+/// adjusted p (to the resolution of `permutations`); `more` says where the
+/// rest are.
+pub fn taxa_table(
+    taxa: &[Taxon],
+    heading: &str,
+    permutations: usize,
+    shown: usize,
+    more: &str,
+    out: &mut dyn Write,
+) -> io::Result<()> {
+    if taxa.is_empty() || shown == 0 {
         return Ok(());
     }
-    let mut order: Vec<_> = c.taxa.iter().collect();
+    let mut order: Vec<_> = taxa.iter().collect();
     order.sort_by(|a, b| {
         b.change
             .shape_contribution
@@ -39,8 +48,7 @@ fn taxa_table(c: &Comparison, shown: usize, out: &mut dyn Write) -> io::Result<(
     });
     writeln!(
         out,
-        "Taxa behind {} against {} (largest shares of the composition shift first):",
-        c.group, c.reference
+        "Taxa behind {heading} (largest shares of the composition shift first):"
     )?;
     let mut t = new_table(&[
         "taxon",
@@ -69,16 +77,12 @@ fn taxa_table(c: &Comparison, shown: usize, out: &mut dyn Write) -> io::Result<(
             ch.shape_contribution.map_or(MISSING.to_string(), pct),
             ch.size_contribution.map_or(MISSING.to_string(), pct),
             ch.p_adjusted
-                .map_or(MISSING.to_string(), |p| fmt_p(p, c.size.permutations)),
+                .map_or(MISSING.to_string(), |p| fmt_p(p, permutations)),
         ]);
     }
     write_table(out, &t)?;
-    if c.taxa.len() > shown {
-        writeln!(
-            out,
-            "{} more taxa: --taxa N shows more, --format csv or json lists all.",
-            c.taxa.len() - shown
-        )?;
+    if taxa.len() > shown {
+        writeln!(out, "{} more taxa: {more}.", taxa.len() - shown)?;
     }
     Ok(())
 }
@@ -217,7 +221,14 @@ impl Render for Outcome {
             writeln!(out, "{line}")?;
         }
         for c in &self.comparisons {
-            taxa_table(c, self.taxa_shown, out)?;
+            taxa_table(
+                &c.taxa,
+                &format!("{} against {}", c.group, c.reference),
+                c.size.permutations,
+                self.taxa_shown,
+                "--taxa N shows more, --format csv or json lists all",
+                out,
+            )?;
         }
         writeln!(out, "{}", self.caution)
     }

@@ -169,9 +169,37 @@ fn csv_rows<W: Write>(w: &mut csv::Writer<W>, group: &str, o: &Outcome) -> io::R
     Ok(())
 }
 
+/// The taxa behind the change from the baseline years (top 10).
+fn taxa_since_baseline(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
+    let span = |v: &[i32]| match (v.first(), v.last()) {
+        (Some(a), Some(b)) if a != b => format!("{a}–{b}"),
+        (Some(a), _) => a.to_string(),
+        _ => String::new(),
+    };
+    let later: Vec<i32> = o
+        .years
+        .iter()
+        .copied()
+        .filter(|y| !o.baseline_years.contains(y))
+        .collect();
+    super::compare::taxa_table(
+        &o.taxa,
+        &format!(
+            "{} against the baseline {}, whole years relabelled,",
+            span(&later),
+            span(&o.baseline_years)
+        ),
+        o.permutations,
+        crate::workflow::compare::TAXA_SHOWN,
+        "--format json lists all",
+        out,
+    )
+}
+
 impl Render for Outcome {
     fn table(&self, out: &mut dyn Write) -> io::Result<()> {
         periods_table(self, out)?;
+        taxa_since_baseline(self, out)?;
         writeln!(out)?;
         footer(self, out)
     }
@@ -189,6 +217,7 @@ impl Render for Split {
         for g in &self.groups {
             writeln!(out, "{} = {}", self.split_by, g.group)?;
             periods_table(&g.outcome, out)?;
+            taxa_since_baseline(&g.outcome, out)?;
             writeln!(out)?;
         }
         let mut t = new_table(&[
