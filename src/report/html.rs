@@ -614,7 +614,13 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
                     &[],
                 ));
                 for x in &v.comparisons {
-                    taxa_behind(out, x, v.alpha);
+                    taxa_behind(
+                        out,
+                        &x.taxa,
+                        &format!("{} against {}", x.group, x.reference),
+                        x.size.permutations,
+                        v.alpha,
+                    );
                 }
             }
         }
@@ -625,14 +631,21 @@ fn compare_part(out: &mut String, part: &Part<Vec<Labelled>>) {
 /// Taxa shown per comparison in the report.
 const REPORT_TAXA: usize = 12;
 
-/// "Taxa behind the change" of one comparison: a diverging bar chart of the
-/// largest shares of the composition shift and a table of their rates, ratios
-/// and adjusted p-values (docs/methods.md, "Taxa behind the change").
-fn taxa_behind(out: &mut String, x: &compare::Comparison, alpha: f64) {
-    if x.taxa.is_empty() {
+/// "Taxa behind the change" of one contrast (`what`, e.g. `2016–2025 against
+/// 2008–2015`): a diverging bar chart of the largest shares of the composition
+/// shift and a table of their rates, ratios and adjusted p-values (to the
+/// resolution of `permutations`): docs/methods.md, "Taxa behind the change".
+fn taxa_behind(
+    out: &mut String,
+    taxa: &[compare::Taxon],
+    what: &str,
+    permutations: usize,
+    alpha: f64,
+) {
+    if taxa.is_empty() {
         return;
     }
-    let mut order: Vec<&compare::Taxon> = x.taxa.iter().collect();
+    let mut order: Vec<&compare::Taxon> = taxa.iter().collect();
     order.sort_by(|a, b| {
         b.change
             .shape_contribution
@@ -640,13 +653,9 @@ fn taxa_behind(out: &mut String, x: &compare::Comparison, alpha: f64) {
             .total_cmp(&a.change.shape_contribution.unwrap_or(0.0))
     });
     order.truncate(REPORT_TAXA);
-    out.push_str(&format!(
-        "<h4>Taxa behind the change: {} against {}</h4>\n",
-        esc(&x.group),
-        esc(&x.reference)
-    ));
+    out.push_str(&format!("<h4>Taxa behind the change: {}</h4>\n", esc(what)));
     let plot = svg::TaxaPlot {
-        title: format!("Taxa behind {} against {}", x.group, x.reference),
+        title: format!("Taxa behind {what}"),
         subtitle: format!(
             "the {} largest shares of the composition shift (Hellinger centroids)",
             order.len()
@@ -687,7 +696,7 @@ fn taxa_behind(out: &mut String, x: &compare::Comparison, alpha: f64) {
                 format!("{:+.1}", c.share_change_pp),
                 fnum(c.shape_contribution.map(|v| 100.0 * v), 1),
                 c.p_adjusted
-                    .map_or("—".to_string(), |p| fmt_p(p, x.size.permutations)),
+                    .map_or("—".to_string(), |p| fmt_p(p, permutations)),
             ]
         })
         .collect();
@@ -939,6 +948,28 @@ fn trends_part(out: &mut String, input: &ReportInput) {
                 &rows,
                 &[false, true, true, true, true, true, true],
             ));
+            let later: Vec<i32> = t
+                .years
+                .iter()
+                .copied()
+                .filter(|y| !t.baseline_years.contains(y))
+                .collect();
+            let span = |v: &[i32]| match (v.first(), v.last()) {
+                (Some(a), Some(b)) if a != b => format!("{a}–{b}"),
+                (Some(a), _) => a.to_string(),
+                _ => String::new(),
+            };
+            taxa_behind(
+                out,
+                &t.taxa,
+                &format!(
+                    "{} against the baseline {} (whole years relabelled)",
+                    span(&later),
+                    span(&t.baseline_years)
+                ),
+                t.permutations,
+                t.alpha,
+            );
         }
     }
     out.push_str("</section>\n");
