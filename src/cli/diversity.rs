@@ -6,28 +6,16 @@ use std::io::Write;
 use std::path::PathBuf;
 
 use anyhow::Context;
-use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 
 use super::common::{DesignArgs, Progress, RunArgs, finish, refuse_existing, write_new_file};
 use super::selection::SelectionArgs;
+use super::trend::every_parser;
 use crate::store::Store;
 use crate::workflow::diversity::{
     self, CoverageTarget, DEFAULT_ALPHA, DEFAULT_BOOTSTRAP, Spec, parse_coverage,
 };
 use crate::workflow::trend::Every;
 use crate::workflow::{self, Analysis, Outcome};
-
-/// clap's parser of `--every`: the names of [`Every::ALL`].
-fn every_parser() -> impl TypedValueParser<Value = Every> {
-    PossibleValuesParser::new(Every::ALL.map(|e| PossibleValue::new(e.name()).help(e.help()))).map(
-        |s| {
-            Every::ALL
-                .into_iter()
-                .find(|e| e.name() == s)
-                .expect("invariant: every possible value is a period name")
-        },
-    )
-}
 
 /// The `--coverage` choice (`none` is a value, so clap holds it in a newtype).
 #[derive(Debug, Clone, Copy, PartialEq)]

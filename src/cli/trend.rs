@@ -24,8 +24,8 @@ use crate::workflow::design::{DistanceSpec, PermuteDesign, ShapeDistance, parse_
 use crate::workflow::trend::{self, DEFAULT_ALPHA, DEFAULT_MIN_SAMPLES, Every, Spec};
 use crate::workflow::{self, Analysis, Outcome, runs};
 
-/// clap's parser of `--every`: the names of [`Every::ALL`].
-fn every_parser() -> impl TypedValueParser<Value = Every> {
+/// clap's parser of `--every`: the names of [`Every::ALL`] (also `diversity`'s).
+pub fn every_parser() -> impl TypedValueParser<Value = Every> {
     PossibleValuesParser::new(Every::ALL.map(|e| PossibleValue::new(e.name()).help(e.help()))).map(
         |s| {
             Every::ALL

@@ -405,20 +405,7 @@ pub fn resolve(
     explicit: &Selection,
     spec: &Spec,
 ) -> Result<Selection> {
-    let mut e = explicit.clone();
-    e.keep_empty = true;
-    if let Some(every) = spec.every
-        && e.unit.is_none()
-    {
-        let saved_unit = match saved {
-            Some(name) => store.selection(name)?.unit,
-            None => None,
-        };
-        if saved_unit.is_none() {
-            e.unit = Some(every.unit());
-        }
-    }
-    super::resolve(store, saved, &e)
+    super::trend::resolve_periods(store, saved, explicit, spec.every)
 }
 
 /// Labels of some rows, at most five, for notes.
@@ -605,7 +592,14 @@ impl Spec {
     }
 
     /// Summaries of the rows `idx`.
-    fn block(&self, name: String, rows: &[Row], idx: &[usize], stream: u64) -> Block {
+    fn block(
+        &self,
+        prepared: &Prepared,
+        name: String,
+        rows: &[Row],
+        idx: &[usize],
+        stream: u64,
+    ) -> Block {
         let mut sites: Vec<&str> = idx.iter().map(|&i| rows[i].meta.site.as_str()).collect();
         sites.sort_unstable();
         sites.dedup();
@@ -626,7 +620,7 @@ impl Spec {
             rows: idx.len(),
             sites: sites.len(),
             individuals: idx.iter().map(|&i| rows[i].individuals).sum(),
-            taxa_seen: 0,
+            taxa_seen: taxa_seen(prepared, idx),
             richness: summary(0, Measure::Richness),
             coverage_richness: summary(1, Measure::CoverageRichness),
             hill_q1: summary(2, Measure::HillQ1),
@@ -814,10 +808,15 @@ impl Spec {
                 Some(sn) => format!("{y}-{sn}"),
                 None => y.to_string(),
             };
-            let mut block = self.block(name, &out.rows, &idx, BOOTSTRAP_STREAMS + b as u64);
+            let mut block = self.block(
+                prepared,
+                name,
+                &out.rows,
+                &idx,
+                BOOTSTRAP_STREAMS + b as u64,
+            );
             block.year = Some(y);
             block.season = season_name;
-            block.taxa_seen = taxa_seen(prepared, &idx);
             periods.push(block);
         }
         let mut trends = Vec::new();
@@ -896,8 +895,13 @@ impl Spec {
         let mut blocks = Vec::new();
         for (g, name) in groups.levels().iter().enumerate() {
             let idx: Vec<usize> = (0..out.n).filter(|&i| groups.codes()[i] == g).collect();
-            let mut block = self.block(name.clone(), &out.rows, &idx, BOOTSTRAP_STREAMS + g as u64);
-            block.taxa_seen = taxa_seen(prepared, &idx);
+            let block = self.block(
+                prepared,
+                name.clone(),
+                &out.rows,
+                &idx,
+                BOOTSTRAP_STREAMS + g as u64,
+            );
             blocks.push(block);
         }
         let mut tests = Vec::new();

@@ -829,10 +829,27 @@ pub fn resolve(
     explicit: &Selection,
     spec: &Spec,
 ) -> Result<Selection> {
-    let every = spec.every;
+    resolve_periods(store, saved, explicit, Some(spec.every))
+}
+
+/// The one rule of the analyses that read periods (`trend`, `diversity
+/// --every`): as [`super::resolve`], with the rows that caught nothing kept and,
+/// when `every` is given and neither the flags nor the saved selection name a
+/// unit, rows pooled per site and period ([`Every::unit`]).
+///
+/// # Errors
+/// As [`super::resolve`].
+pub fn resolve_periods(
+    store: &Store,
+    saved: Option<&str>,
+    explicit: &Selection,
+    every: Option<Every>,
+) -> Result<Selection> {
     let mut e = explicit.clone();
     e.keep_empty = true;
-    if e.unit.is_none() {
+    if let Some(every) = every
+        && e.unit.is_none()
+    {
         let saved_unit = match saved {
             Some(name) => store.selection(name)?.unit,
             None => None,
