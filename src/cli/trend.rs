@@ -10,8 +10,8 @@ use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 
 use super::FormatArg;
 use super::common::{
-    Progress, RunArgs, distance_parser, finish, parse_permute, parse_size_model,
-    shape_distance_parser, transform_parser,
+    Progress, RunArgs, distance_parser, finish, parse_permute, parse_size_model, refuse_existing,
+    shape_distance_parser, transform_parser, write_new_file,
 };
 use super::selection::SelectionArgs;
 use crate::analysis::dissimilarity::Distance;
@@ -76,6 +76,20 @@ pub struct Args {
     /// across all sites at once); free and whole-sites are refused with the reason.
     #[arg(long, value_name = "DESIGN", default_value = "auto", value_parser = parse_permute)]
     pub permute: PermuteDesign,
+    /// Also fit each taxon's own size trend (% per year, interval, p and
+    /// Benjamini–Hochberg adjusted p), largest changes first.
+    #[arg(long)]
+    pub by_taxon: bool,
+    /// Taxa shown in the tables of taxa (JSON lists every taxon).
+    #[arg(long, value_name = "N", default_value_t = crate::workflow::compare::TAXA_SHOWN)]
+    pub taxa: usize,
+    /// Write small multiples of the yearly rates of the --taxa taxa with the
+    /// largest changes to this SVG file (implies --by-taxon).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot_taxa: Option<std::path::PathBuf>,
+    /// Replace the --plot-taxa file if it exists.
+    #[arg(long)]
+    pub force: bool,
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
@@ -103,6 +117,7 @@ impl Args {
             scheme: self.permute,
             permutations: self.run.permutations,
             seed,
+            by_taxon: self.by_taxon || self.plot_taxa.is_some(),
         }
     }
 }
@@ -123,6 +138,15 @@ fn notes(group: Option<&str>, notes: &[String]) {
 /// Selection, assembly and field errors; a split field that cannot be a
 /// selection; analysis refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    if let Some(p) = &args.plot_taxa {
+        if p.extension().and_then(|e| e.to_str()) != Some("svg") {
+            anyhow::bail!(
+                "--plot-taxa {}: tally draws SVG; give a file name ending in .svg",
+                p.display()
+            );
+        }
+        refuse_existing(p, args.force)?;
+    }
     let spec = args.spec(args.run.seed());
     let sel = trend::resolve(
         store,
@@ -134,12 +158,30 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     let progress = Progress::new("trend");
     let Some(field) = &args.split_by else {
         let prepared = workflow::prepare(store, &sel)?;
-        let outcome = spec.run(&prepared, &progress)?;
+        let mut outcome = spec.run(&prepared, &progress)?;
+        outcome.taxa_shown = args.taxa;
         notes(None, outcome.notes());
+        if let Some(p) = &args.plot_taxa {
+            let plot =
+                crate::report::input::taxon_trends_plot(&outcome, args.taxa).ok_or_else(|| {
+                    anyhow::anyhow!("--plot-taxa: no taxon has a yearly rate to draw")
+                })?;
+            let svg = crate::report::svg::taxon_trends_svg(&plot)?;
+            write_new_file(p, &svg, args.force)?;
+            super::note(&format!("plot written to {}", p.display()));
+        }
         return finish(store, &args.run, &prepared, &spec, &outcome, out);
     };
+    if args.plot_taxa.is_some() {
+        anyhow::bail!(
+            "--plot-taxa draws one trend; with --split-by, run each group as its own selection"
+        );
+    }
     let parts = trend::split(store, &sel, field)?;
-    let split = spec.run_split(field, &parts, &progress)?;
+    let mut split = spec.run_split(field, &parts, &progress)?;
+    for g in &mut split.groups {
+        g.outcome.taxa_shown = args.taxa;
+    }
     for g in &split.groups {
         notes(Some(&g.group), g.outcome.notes());
     }

@@ -1414,6 +1414,8 @@ mod tests {
             per_effort: true,
             fingerprint: "ab".repeat(32),
             taxa: Vec::new(),
+            by_taxon: None,
+            taxa_shown: 10,
             notes: Vec::new(),
         }
     }

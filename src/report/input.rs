@@ -188,3 +188,63 @@ pub fn diversity_plot(
         periods: if seasonal { Vec::new() } else { periods },
     }
 }
+
+/// One line of a taxon's own trend: "-12.3 %/year (-15.0 to -9.1), p (BH) 0.003",
+/// or why it has none.
+pub fn taxon_trend_words(t: &crate::analysis::trend::TaxonTrend, permutations: usize) -> String {
+    use super::format::fmt_p;
+    match (t.pct_per_year, t.ci_low, t.ci_high, t.p_adjusted) {
+        (Some(s), Some(a), Some(b), Some(q)) => format!(
+            "{s:+.1} %/year ({a:.1} to {b:.1}), p (BH) {}",
+            fmt_p(q, permutations)
+        ),
+        _ => "no trend estimated".to_string(),
+    }
+}
+
+/// The small multiples of `trend --by-taxon`: the `shown` taxa with the largest
+/// changes (the outcome's order), `None` without per-taxon trends.
+pub fn taxon_trends_plot(
+    o: &crate::workflow::trend::Outcome,
+    shown: usize,
+) -> Option<super::svg::TaxonTrendsPlot> {
+    let t = o.by_taxon.as_ref()?;
+    let years: Vec<f64> = t.years.iter().map(|&y| f64::from(y)).collect();
+    let panels: Vec<super::svg::TaxonPanel> = t
+        .taxa
+        .iter()
+        .take(shown.max(1))
+        .map(|x| super::svg::TaxonPanel {
+            taxon: x.taxon.clone(),
+            caption: taxon_trend_words(&x.trend, t.permutations),
+            rates: years
+                .iter()
+                .zip(&x.trend.yearly_rates)
+                .filter(|(_, r)| r.is_finite())
+                .map(|(&y, &r)| (y, r))
+                .collect(),
+            slope_log: x.trend.slope_log,
+            clear: x.trend.p_adjusted.is_some_and(|q| q <= o.alpha),
+        })
+        .filter(|p| !p.rates.is_empty())
+        .collect();
+    if panels.is_empty() {
+        return None;
+    }
+    let (a, b) = (years.first()?, years.last()?);
+    Some(super::svg::TaxonTrendsPlot {
+        title: "Each taxon's own trend".to_string(),
+        subtitle: format!(
+            "{} taxa with the largest changes of {}, {a}–{b}, {} rows",
+            panels.len(),
+            t.taxa.len(),
+            o.n
+        ),
+        rate_label: if o.per_effort {
+            "organisms per unit of effort".to_string()
+        } else {
+            "organisms per row".to_string()
+        },
+        panels,
+    })
+}

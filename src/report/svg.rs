@@ -1175,6 +1175,162 @@ pub fn taxa_svg(plot: &TaxaPlot) -> Result<String, SvgError> {
     wrap_markers(out, &marks)
 }
 
+// ------------------------------------------------------------------ taxon trends
+
+/// One panel of [`TaxonTrendsPlot`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxonPanel {
+    /// Taxon name.
+    pub taxon: String,
+    /// The panel's caption under the name (slope and p, in words).
+    pub caption: String,
+    /// `(year, pooled rate)` of every year.
+    pub rates: Vec<(f64, f64)>,
+    /// The fitted change per year on the log scale, when estimated: drawn as a
+    /// line through the geometric centre of the non-zero yearly rates.
+    pub slope_log: Option<f64>,
+    /// True when its own trend is clear (adjusted p at most alpha).
+    pub clear: bool,
+}
+
+/// Input of [`taxon_trends_svg`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxonTrendsPlot {
+    /// Plot title.
+    pub title: String,
+    /// The selection, in words.
+    pub subtitle: String,
+    /// What the rates are (the y axis label), e.g. "organisms per trap-night".
+    pub rate_label: String,
+    /// Panels, in reading order.
+    pub panels: Vec<TaxonPanel>,
+}
+
+/// Small multiples of the yearly rates of several taxa, three panels to a row,
+/// each on its own vertical scale from 0, with the taxon's fitted log-linear
+/// trend as a line (solid when the trend is clear, dashed otherwise).
+///
+/// # Errors
+/// [`SvgError::Empty`] without panels, [`SvgError::NonFinite`], [`SvgError::Draw`].
+pub fn taxon_trends_svg(plot: &TaxonTrendsPlot) -> Result<String, SvgError> {
+    if plot.panels.is_empty() {
+        return Err(SvgError::Empty("no taxa"));
+    }
+    check_finite(
+        plot.panels
+            .iter()
+            .flat_map(|p| p.rates.iter().flat_map(|r| [r.0, r.1])),
+        "yearly rates",
+    )?;
+    const COLS: usize = 3;
+    const PANEL_H: u32 = 200;
+    let rows = plot.panels.len().div_ceil(COLS);
+    let height = 58 + PANEL_H * rows as u32 + 40;
+    let mut out = String::new();
+    let mut marks = Markers::default();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, height)).into_drawing_area();
+        let body = header(&root, &plot.title, &plot.subtitle)?;
+        let (main, foot) = body.split_vertically(PANEL_H * rows as u32);
+        let cells = main.split_evenly((rows, COLS));
+        for (p, cell) in plot.panels.iter().zip(cells.iter()) {
+            let (t0, t1) = p
+                .rates
+                .iter()
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), r| {
+                    (a.min(r.0), b.max(r.0))
+                });
+            let (t0, t1) = padded(t0, t1, 0.06);
+            let top = p
+                .rates
+                .iter()
+                .map(|r| r.1)
+                .fold(0.0_f64, f64::max)
+                .max(1e-9)
+                * 1.15;
+            let (title_area, chart_area) = cell.split_vertically(34);
+            title_area
+                .draw(&Text::new(
+                    p.taxon.clone(),
+                    (52, 2),
+                    (FONT, 13).into_font().color(&INK),
+                ))
+                .map_err(draw_err)?;
+            title_area
+                .draw(&Text::new(
+                    p.caption.clone(),
+                    (52, 18),
+                    (FONT, 11).into_font().color(&INK),
+                ))
+                .map_err(draw_err)?;
+            let mut chart = ChartBuilder::on(&chart_area)
+                .margin(6)
+                .x_label_area_size(22)
+                .y_label_area_size(44)
+                .build_cartesian_2d(t0..t1, 0.0..top)
+                .map_err(draw_err)?;
+            chart
+                .configure_mesh()
+                .light_line_style(WHITE)
+                .bold_line_style(MIST.mix(0.6))
+                .x_labels(4)
+                .y_labels(4)
+                .x_label_formatter(&|v| format!("{v:.0}"))
+                .y_label_formatter(&|v| short_number(*v))
+                .label_style((FONT, 10))
+                .draw()
+                .map_err(draw_err)?;
+            marks.open(
+                &root,
+                if p.clear { "taxon clear" } else { "taxon" },
+                &p.taxon,
+            )?;
+            let colour = PALETTE[0];
+            chart
+                .draw_series(LineSeries::new(
+                    p.rates.iter().copied(),
+                    colour.mix(0.5).stroke_width(1),
+                ))
+                .map_err(draw_err)?;
+            chart
+                .draw_series(p.rates.iter().map(|&r| Circle::new(r, 3, colour.filled())))
+                .map_err(draw_err)?;
+            let positive: Vec<(f64, f64)> = p.rates.iter().copied().filter(|r| r.1 > 0.0).collect();
+            if let (Some(b), false) = (p.slope_log, positive.is_empty()) {
+                let k = positive.len() as f64;
+                let tm = positive.iter().map(|r| r.0).sum::<f64>() / k;
+                let lm = positive.iter().map(|r| r.1.ln()).sum::<f64>() / k;
+                let line: Vec<(f64, f64)> = (0..=40)
+                    .map(|s| {
+                        let t = t0 + (t1 - t0) * f64::from(s) / 40.0;
+                        (t, (lm + b * (t - tm)).exp().min(top))
+                    })
+                    .collect();
+                let style = PALETTE[3].stroke_width(2);
+                if p.clear {
+                    chart
+                        .draw_series(LineSeries::new(line, style))
+                        .map_err(draw_err)?;
+                } else {
+                    chart
+                        .draw_series(DashedLineSeries::new(line, 5, 4, style))
+                        .map_err(draw_err)?;
+                }
+            }
+            marks.close(&root)?;
+        }
+        footnotes(
+            &foot,
+            &[
+                format!("Points: {} in each year, pooled over the year's rows; each panel has its own scale.", plot.rate_label),
+                "Line: the taxon's fitted log-linear trend, solid when its own trend is clear (Benjamini–Hochberg adjusted p at most alpha), dashed when not.".to_string(),
+            ],
+        )?;
+        root.present().map_err(draw_err)?;
+    }
+    wrap_markers(out, &marks)
+}
+
 // ------------------------------------------------------------------ diversity
 
 /// One rarefaction and extrapolation curve of [`DiversityPlot`].

@@ -163,7 +163,8 @@ pub fn command_line(spec: &AnalysisSpec, selection: &Selection) -> (String, Opti
                 .distance(&s.distance)
                 .flag("min-samples", s.min_samples)
                 .flag("size-model", s.size_model.as_str())
-                .flag("permute", s.scheme.as_str());
+                .flag("permute", s.scheme.as_str())
+                .switch("by-taxon", s.by_taxon);
             (l.run(s.permutations, Some(s.seed)), None)
         }
         AnalysisSpec::Ordinate(s) => {

@@ -728,13 +728,7 @@ pub fn taxa_of(
     side: &[usize],
     opts: &SizeTestOptions,
 ) -> std::result::Result<Vec<Taxon>, AnalysisError> {
-    let effort: Vec<f64> = rows
-        .iter()
-        .map(|&i| if per_effort { m.samples[i].effort } else { 1.0 })
-        .collect();
-    let y = nalgebra::DMatrix::from_fn(rows.len(), m.values.ncols(), |k, j| {
-        m.values[(rows[k], j)] * if per_effort { effort[k] } else { 1.0 }
-    });
+    let (y, effort) = super::design::taxon_counts(m, per_effort, rows);
     let c = contrast(&y, &effort, side, Some(opts))?;
     Ok(c.taxa
         .into_iter()

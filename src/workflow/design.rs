@@ -80,6 +80,25 @@ pub fn counts_and_effort(m: &CountMatrix, per_effort: bool) -> (Vec<f64>, Vec<f6
     }
 }
 
+/// The counts of every taxon in the rows `rows` of `m`, with their effort, for
+/// per-taxon count models: with `per_effort` the matrix holds values per unit
+/// effort, so the counts are the values times the row's effort; otherwise the
+/// values themselves, each row with effort 1 (as [`counts_and_effort`] for totals).
+pub fn taxon_counts(
+    m: &CountMatrix,
+    per_effort: bool,
+    rows: &[usize],
+) -> (nalgebra::DMatrix<f64>, Vec<f64>) {
+    let effort: Vec<f64> = rows
+        .iter()
+        .map(|&i| if per_effort { m.samples[i].effort } else { 1.0 })
+        .collect();
+    let y = nalgebra::DMatrix::from_fn(rows.len(), m.values.ncols(), |k, j| {
+        m.values[(rows[k], j)] * effort[k]
+    });
+    (y, effort)
+}
+
 /// The significance level of a verdict's wording (`--alpha`), strictly between 0 and 1.
 ///
 /// # Errors

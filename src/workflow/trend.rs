@@ -27,7 +27,7 @@ use crate::analysis::transform::Transform;
 use crate::analysis::trend::{
     Baseline, BreakpointSpec, CountData, Diagnosis, ShapeTrend, TrendData, TrendOptions, trend,
 };
-use crate::matrix::{BUILTIN_FIELDS, Unit};
+use crate::matrix::{BUILTIN_FIELDS, CountMatrix, Unit};
 use crate::store::runs::SeriesPoint;
 use crate::store::{Selection, Store};
 
@@ -140,6 +140,9 @@ pub struct Spec {
     pub permutations: usize,
     /// Seed of the permutation streams.
     pub seed: u64,
+    /// Also each taxon's own size trend (`--by-taxon`).
+    #[serde(default)]
+    pub by_taxon: bool,
 }
 
 impl Spec {
@@ -162,6 +165,7 @@ impl Spec {
             scheme: PermuteDesign::Auto,
             permutations,
             seed,
+            by_taxon: false,
         }
     }
 
@@ -419,8 +423,83 @@ pub struct Outcome {
     /// pooled rates of each side and each taxon's change tested by relabelling
     /// whole years (docs/methods.md, "Taxa behind the change").
     pub taxa: Vec<super::compare::Taxon>,
+    /// Each taxon's own size trend, with `--by-taxon`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub by_taxon: Option<TaxonTrends>,
+    /// How many taxa the tables show (`--taxa`; JSON lists every taxon).
+    #[serde(skip)]
+    pub taxa_shown: usize,
     /// Notes for the user (assembly notes first).
     pub notes: Vec<String>,
+}
+
+/// One taxon's own size trend.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TaxonTrend {
+    /// Accepted name at the analysed rank.
+    pub taxon: String,
+    /// Its slope, interval, test and yearly rates.
+    #[serde(flatten)]
+    pub trend: crate::analysis::trend::TaxonTrend,
+}
+
+/// Every taxon's size trend (`trend --by-taxon`): the count model of the size
+/// trend fitted to each taxon's counts, tested under the same year relabellings
+/// (docs/methods.md, "Taxa behind the change").
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TaxonTrends {
+    /// The years of `yearly_rates`.
+    pub years: Vec<i32>,
+    /// Relabellings evaluated per taxon.
+    pub permutations: usize,
+    /// True when every arrangement of the years was enumerated.
+    pub exact: bool,
+    /// Smallest p-value a taxon's test can give.
+    pub smallest_possible_p: f64,
+    /// Taxa by size of change (largest |slope| first; taxa without a slope last).
+    pub taxa: Vec<TaxonTrend>,
+}
+
+impl TaxonTrends {
+    /// Each taxon of `m` (counts and effort as the size trend uses them) by its own trend.
+    fn of(
+        m: &CountMatrix,
+        per_effort: bool,
+        year: &[i32],
+        site: &[usize],
+        season: Option<&[usize]>,
+        spec: &Spec,
+    ) -> Result<TaxonTrends> {
+        let all: Vec<usize> = (0..m.samples.len()).collect();
+        let (counts, effort) = design::taxon_counts(m, per_effort, &all);
+        let r = crate::analysis::trend::taxon_trends(
+            &counts,
+            &effort,
+            year,
+            site,
+            season,
+            spec.permutations,
+            spec.seed,
+        )
+        .map_err(|e| WorkflowError::kernel("per-taxon trends", e, m))?;
+        let mut taxa: Vec<TaxonTrend> = r
+            .taxa
+            .into_iter()
+            .map(|t| TaxonTrend {
+                taxon: m.taxa[t.column].name.clone(),
+                trend: t,
+            })
+            .collect();
+        let size = |t: &TaxonTrend| t.trend.slope_log.map_or(-1.0, f64::abs);
+        taxa.sort_by(|a, b| size(b).total_cmp(&size(a)));
+        Ok(TaxonTrends {
+            years: r.years,
+            permutations: r.permutations,
+            exact: r.exact,
+            smallest_possible_p: r.smallest_possible_p,
+            taxa,
+        })
+    }
 }
 
 /// One group of a split trend.
@@ -690,6 +769,21 @@ impl Analysis for Spec {
             },
         )
         .map_err(|e| WorkflowError::kernel("per-taxon tests of the baseline contrast", e, m))?;
+        let by_taxon = if self.by_taxon {
+            progress.stage("trend: each taxon");
+            let t = TaxonTrends::of(
+                m,
+                prepared.selection.per_effort,
+                &year,
+                &site,
+                season.as_deref(),
+                self,
+            )?;
+            progress.finish();
+            Some(t)
+        } else {
+            None
+        };
         Ok(Outcome {
             diagnosis: r.diagnosis,
             alpha: r.alpha,
@@ -752,6 +846,8 @@ impl Analysis for Spec {
             per_effort: prepared.selection.per_effort,
             fingerprint: prepared.fingerprint(),
             taxa,
+            by_taxon,
+            taxa_shown: super::compare::TAXA_SHOWN,
             notes,
         })
     }
@@ -792,6 +888,15 @@ impl super::Outcome for Outcome {
                 Some(f64::from(b.shape.year)),
             ));
             vals.push(("breakpoint.shape.p_value".into(), Some(b.shape.p_value)));
+        }
+        if let Some(t) = &self.by_taxon {
+            for x in &t.taxa {
+                vals.push((
+                    format!("taxon.{}.pct_per_year", x.taxon),
+                    x.trend.pct_per_year,
+                ));
+                vals.push((format!("taxon.{}.p_value", x.taxon), x.trend.p_value));
+            }
         }
         for p in &self.periods {
             let of = [

@@ -372,3 +372,82 @@ fn rows_that_caught_nothing_count_in_the_size_trend_and_replay() {
         assert!(out.is_empty() && err.contains(want), "{args:?}: {err}");
     }
 }
+
+#[test]
+fn each_taxon_has_its_own_trend_that_replays_and_draws() {
+    // Both taxa of the invented pitfall program decline by about 10 % a year
+    // (0.9 per year, planted above); the renamed taxon is counted under its
+    // accepted name; rows that caught nothing count.
+    let env = zero_catch_store();
+    let svg = env.path("taxa.svg");
+    let (code, out, err) = env.run([
+        "trend",
+        "--per-effort",
+        "--by-taxon",
+        "--plot-taxa",
+        svg.to_str().unwrap(),
+        "--permutations",
+        "199",
+        "--seed",
+        "5",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: Value = serde_json::from_str(&out).unwrap();
+    let taxa = v["by_taxon"]["taxa"].as_array().unwrap();
+    let names: Vec<&str> = taxa.iter().map(|t| t["taxon"].as_str().unwrap()).collect();
+    assert_eq!(names.len(), 2, "{names:?}");
+    assert!(
+        names.contains(&"Carabus") && names.contains(&"Pterus"),
+        "{names:?}"
+    );
+    for t in taxa {
+        let s = t["pct_per_year"].as_f64().unwrap();
+        assert!((s + 10.0).abs() < 2.5, "{}: {s}", t["taxon"]);
+        let (lo, hi) = (
+            t["ci_low"].as_f64().unwrap(),
+            t["ci_high"].as_f64().unwrap(),
+        );
+        assert!(lo < s && s < hi && hi < 0.0, "{lo} {s} {hi}");
+        assert_eq!(t["yearly_rates"].as_array().unwrap().len(), 8);
+        assert!(t["p_adjusted"].as_f64().unwrap() <= 0.05);
+    }
+    // Largest change first.
+    let abs = |t: &Value| t["slope_log"].as_f64().unwrap().abs();
+    assert!(abs(&taxa[0]) >= abs(&taxa[1]));
+    let drawn = std::fs::read_to_string(&svg).unwrap();
+    assert_eq!(drawn.matches("class=\"taxon clear\"").count(), 2, "{drawn}");
+    let id = v["run_id"].to_string();
+    let replay = env.stdout(["runs", "verify", id.as_str()]);
+    assert!(
+        replay.contains("identical") || replay.contains("reproduced"),
+        "{replay}"
+    );
+    let shown = env.stdout(["runs", "show", id.as_str()]);
+    assert!(shown.contains("--by-taxon"), "{shown}");
+    // The table names both; a PNG name and an existing file are refused.
+    let table = env.stdout([
+        "trend",
+        "--per-effort",
+        "--by-taxon",
+        "--permutations",
+        "19",
+        "--no-store",
+    ]);
+    assert!(table.contains("Each taxon's own trend"), "{table}");
+    for (name, want) in [("taxa.png", "SVG"), ("taxa.svg", "--force")] {
+        let p = env.path(name);
+        let (code, _, err) = env.run([
+            "trend",
+            "--per-effort",
+            "--plot-taxa",
+            p.to_str().unwrap(),
+            "--permutations",
+            "19",
+            "--no-store",
+        ]);
+        assert_eq!(code, 1, "{name}: {err}");
+        assert!(err.contains(want), "{name}: {err}");
+    }
+}

@@ -190,16 +190,80 @@ fn taxa_since_baseline(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
             span(&o.baseline_years)
         ),
         o.permutations,
-        crate::workflow::compare::TAXA_SHOWN,
-        "--format json lists all",
+        o.taxa_shown,
+        "--taxa N shows more, --format json lists all",
         out,
     )
+}
+
+/// Each taxon's own trend (`--by-taxon`), largest changes first.
+fn taxon_trends_table(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
+    let Some(t) = &o.by_taxon else {
+        return Ok(());
+    };
+    let shown = o.taxa_shown;
+    if t.taxa.is_empty() || shown == 0 {
+        return Ok(());
+    }
+    writeln!(
+        out,
+        "Each taxon's own trend (count model with site effects, whole years relabelled; largest changes first):"
+    )?;
+    let mut tab = new_table(&[
+        "taxon",
+        "organisms",
+        "% / year",
+        "95% interval",
+        "p",
+        "p (BH)",
+    ]);
+    let p = |v: Option<f64>| v.map_or(MISSING.to_string(), |v| fmt_p(v, t.permutations));
+    for x in t.taxa.iter().take(shown) {
+        let r = &x.trend;
+        tab.add_row(vec![
+            x.taxon.clone(),
+            if (r.individuals - r.individuals.round()).abs() < 1e-6 {
+                format!("{:.0}", r.individuals)
+            } else {
+                fmt_num(r.individuals)
+            },
+            r.pct_per_year
+                .map_or_else(|| "not estimated".to_string(), fmt_num),
+            match (r.ci_low, r.ci_high) {
+                (Some(a), Some(b)) => format!("{} to {}", fmt_num(a), fmt_num(b)),
+                _ => MISSING.into(),
+            },
+            p(r.p_value),
+            p(r.p_adjusted),
+        ]);
+    }
+    write_table(out, &tab)?;
+    let none = t
+        .taxa
+        .iter()
+        .filter(|x| x.trend.slope_log.is_none())
+        .count();
+    if t.taxa.len() > shown {
+        writeln!(
+            out,
+            "{} more taxa: --taxa N shows more, --format json lists all.",
+            t.taxa.len() - shown
+        )?;
+    }
+    if none > 0 {
+        writeln!(
+            out,
+            "{none} taxa have no trend estimate (too few years with organisms at their sites; --format json says why for each)."
+        )?;
+    }
+    Ok(())
 }
 
 impl Render for Outcome {
     fn table(&self, out: &mut dyn Write) -> io::Result<()> {
         periods_table(self, out)?;
         taxa_since_baseline(self, out)?;
+        taxon_trends_table(self, out)?;
         writeln!(out)?;
         footer(self, out)
     }
@@ -218,6 +282,7 @@ impl Render for Split {
             writeln!(out, "{} = {}", self.split_by, g.group)?;
             periods_table(&g.outcome, out)?;
             taxa_since_baseline(&g.outcome, out)?;
+            taxon_trends_table(&g.outcome, out)?;
             writeln!(out)?;
         }
         let mut t = new_table(&[
