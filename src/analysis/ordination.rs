@@ -532,6 +532,119 @@ pub fn cca(y: &DMatrix<f64>, z: &DMatrix<f64>) -> Result<CcaResult, AnalysisErro
     })
 }
 
+/// Taxa placed in an ordination ([`taxon_points`], [`weighted_average_points`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxonPoints {
+    /// One row per taxon, one column per axis.
+    pub coords: DMatrix<f64>,
+    /// Each taxon's share of the weighted spread of the taxa on these axes
+    /// (adds up to 1; all 0 when every point is at the origin).
+    pub contribution: Vec<f64>,
+}
+
+/// The shares `w_j ‖q_j‖² / Σ_k w_k ‖q_k‖²` of weighted squared distances from the origin.
+fn spread_shares(weights: &[f64], q: &DMatrix<f64>) -> Vec<f64> {
+    let parts: Vec<f64> = (0..q.nrows())
+        .map(|j| weights[j] * q.row(j).norm_squared())
+        .collect();
+    let total: f64 = parts.iter().sum();
+    parts
+        .iter()
+        .map(|v| if total > 0.0 { v / total } else { 0.0 })
+        .collect()
+}
+
+/// The taxa of a CA or CCA on its first `k` axes: their standard coordinates
+/// Γ (samples in principal CA coordinates, and CCA's WA site scores, are the
+/// weighted averages of these, so a sample lies towards the taxa it holds), and
+/// each taxon's contribution to the inertia of those axes,
+/// `c_j Σ_a λ_a Γ_ja² / Σ_a λ_a` (Greenacre 2007, *Correspondence Analysis in
+/// Practice*, 2nd ed., ch. 11: the column contributions to a principal axis are
+/// `c_j Γ_ja²` and add up to 1 on each axis).
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`] when the masses, eigenvalues and
+/// coordinates disagree.
+pub fn taxon_points(
+    col_standard: &DMatrix<f64>,
+    col_masses: &[f64],
+    eigenvalues: &[f64],
+    k: usize,
+) -> Result<TaxonPoints, AnalysisError> {
+    if col_masses.len() != col_standard.nrows() {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: col_standard.nrows(),
+            found: col_masses.len(),
+        });
+    }
+    let k = k.min(col_standard.ncols()).min(eigenvalues.len());
+    let coords = col_standard.columns(0, k).into_owned();
+    let principal = scale_cols(
+        &coords,
+        &eigenvalues[..k]
+            .iter()
+            .map(|v| v.max(0.0).sqrt())
+            .collect::<Vec<_>>(),
+    );
+    Ok(TaxonPoints {
+        contribution: spread_shares(col_masses, &principal),
+        coords,
+    })
+}
+
+/// The taxa of an ordination of samples that has no taxon scores of its own
+/// (PCoA): each taxon at the weighted average of the sample coordinates
+/// `x`, weighted by its values in `y` (n × p), `s_ja = Σ_i y_ij x_ia / Σ_i y_ij`,
+/// a projection after the fact (Legendre & Legendre 2012, *Numerical Ecology*
+/// 3rd ed., section 9.2: species projected onto a PCoA as weighted averages);
+/// contributions are `w_j ‖s_j‖²` normalised, with `w_j = y_+j / y_++`. Taxa
+/// with no organisms get the origin and no contribution.
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`] when `y` and `x` differ in rows;
+/// [`AnalysisError::NonFinite`] or [`AnalysisError::Negative`] for bad values.
+pub fn weighted_average_points(
+    y: &DMatrix<f64>,
+    x: &DMatrix<f64>,
+) -> Result<TaxonPoints, AnalysisError> {
+    let (n, p) = y.shape();
+    if x.nrows() != n {
+        return Err(AnalysisError::DimensionMismatch {
+            expected: n,
+            found: x.nrows(),
+        });
+    }
+    for i in 0..n {
+        for j in 0..p {
+            let v = y[(i, j)];
+            if !v.is_finite() {
+                return Err(AnalysisError::NonFinite { row: i, col: j });
+            }
+            if v < 0.0 {
+                return Err(AnalysisError::Negative { row: i, col: j });
+            }
+        }
+    }
+    let col_totals: Vec<f64> = (0..p).map(|j| y.column(j).sum()).collect();
+    let grand: f64 = col_totals.iter().sum();
+    let k = x.ncols();
+    let coords = DMatrix::from_fn(p, k, |j, a| {
+        if col_totals[j] > 0.0 {
+            (0..n).map(|i| y[(i, j)] * x[(i, a)]).sum::<f64>() / col_totals[j]
+        } else {
+            0.0
+        }
+    });
+    let weights: Vec<f64> = col_totals
+        .iter()
+        .map(|t| if grand > 0.0 { t / grand } else { 0.0 })
+        .collect();
+    Ok(TaxonPoints {
+        contribution: spread_shares(&weights, &coords),
+        coords,
+    })
+}
+
 /// Orthonormal basis of the column space of `m` (rank-revealing SVD).
 fn orthonormal_basis(m: &DMatrix<f64>) -> Result<DMatrix<f64>, AnalysisError> {
     if m.ncols() == 0 {
@@ -891,6 +1004,85 @@ mod tests {
             proptest::prop_assert!((sum - res.total_inertia).abs() <= 1e-12 * res.total_inertia.max(1e-300));
             proptest::prop_assert!(res.inertias.len() < n.min(p));
             proptest::prop_assert!(res.inertias.windows(2).all(|w| w[0] >= w[1]));
+        }
+    }
+
+    /// `a` equals `b` column by column up to a sign per column.
+    fn same_up_to_sign(a: &DMatrix<f64>, b: &DMatrix<f64>, tol: f64) {
+        assert_eq!(a.shape(), b.shape());
+        for c in 0..a.ncols() {
+            let sign = if a.column(c).dot(&b.column(c)) < 0.0 {
+                -1.0
+            } else {
+                1.0
+            };
+            for r in 0..a.nrows() {
+                assert!(
+                    (a[(r, c)] - sign * b[(r, c)]).abs() < tol,
+                    "({r}, {c}): {} vs {}",
+                    a[(r, c)],
+                    b[(r, c)]
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn taxon_scores_equal_the_numpy_solutions() {
+        // tests/reference/ordination.json, "toy_taxa": numpy SVD of the standardised
+        // residuals (CA), numpy lstsq + SVD of the fitted part (CCA on log totals),
+        // numpy eigh of the Gower-centred Bray-Curtis matrix (scipy pdist) for PCoA.
+        let fx = fixture();
+        let t = &fx["toy_taxa"];
+        let y = toy();
+        let r = ca(&y).unwrap();
+        let pts = taxon_points(&r.col_standard, &r.col_masses, &r.inertias, 2).unwrap();
+        same_up_to_sign(&pts.coords, &matrix(&t["ca_col_standard_2"]), 1e-9);
+        for (a, b) in pts.contribution.iter().zip(floats(&t["ca_col_share_2"])) {
+            assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+        }
+        assert_relative_eq!(
+            pts.contribution.iter().sum::<f64>(),
+            1.0,
+            max_relative = 1e-12
+        );
+        // Samples in principal coordinates are the weighted averages of the
+        // taxa's standard coordinates (the transition formula).
+        let wa = weighted_average_points(&y.transpose(), &pts.coords).unwrap();
+        same_up_to_sign(
+            &wa.coords,
+            &r.row_principal.columns(0, 2).into_owned(),
+            1e-9,
+        );
+
+        let z = DMatrix::from_fn(10, 1, |i, _| y.row(i).sum().ln());
+        let c = cca(&y, &z).unwrap();
+        let pts = taxon_points(
+            &c.species_standard,
+            &c.col_masses,
+            &c.constrained_eigenvalues,
+            2,
+        )
+        .unwrap();
+        same_up_to_sign(&pts.coords, &matrix(&t["cca_species_standard"]), 1e-9);
+        for (a, b) in pts.contribution.iter().zip(floats(&t["cca_species_share"])) {
+            assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+        }
+
+        let d = crate::analysis::dissimilarity::Distance::BrayCurtis
+            .compute(&y)
+            .unwrap();
+        let p = crate::analysis::gower::pcoa(&d).unwrap();
+        let x = p.coordinates.columns(0, 2).into_owned();
+        same_up_to_sign(&x, &matrix(&t["pcoa_bray_curtis_coords_2"]), 1e-9);
+        let wa = weighted_average_points(&y, &x).unwrap();
+        same_up_to_sign(&wa.coords, &matrix(&t["pcoa_weighted_averages_2"]), 1e-9);
+        for (a, b) in wa
+            .contribution
+            .iter()
+            .zip(floats(&t["pcoa_weighted_average_share_2"]))
+        {
+            assert!((a - b).abs() < 1e-12, "{a} vs {b}");
         }
     }
 }

@@ -84,6 +84,66 @@ def table_entry(y, z):
     }
 
 
+def ca_taxa(y, k=2):
+    """CA column standard coordinates (numpy SVD of the standardised residuals)
+    on the first k axes, and each column's share of the inertia of those axes."""
+    _, _, c, s = residuals(y)
+    u, sv, vt = np.linalg.svd(s, full_matrices=False)
+    std = vt.T[:, :k] / np.sqrt(c)[:, None]
+    principal = std * sv[:k]
+    part = c * (principal ** 2).sum(1)
+    return std, part / part.sum()
+
+
+def cca_taxa(y, z, k=2):
+    """CCA species standard scores: right singular vectors of the fitted part
+    (numpy lstsq, then SVD), divided by sqrt(column masses)."""
+    _, r, c, s = residuals(y)
+    zc = z - r @ z
+    zw = np.sqrt(r)[:, None] * zc
+    coef, *_ = np.linalg.lstsq(zw, s, rcond=None)
+    fit = zw @ coef
+    u, sv, vt = np.linalg.svd(fit, full_matrices=False)
+    k = min(k, int((sv > 1e-10 * sv[0]).sum()))
+    std = vt.T[:, :k] / np.sqrt(c)[:, None]
+    principal = std * sv[:k]
+    part = c * (principal ** 2).sum(1)
+    return std, part / part.sum()
+
+
+def pcoa_wa(y, k=2):
+    """PCoA of Bray-Curtis (scipy pdist) by numpy eigh of the Gower-centred
+    matrix, and each taxon at the weighted average of the sample coordinates."""
+    from scipy.spatial.distance import pdist, squareform
+
+    d = squareform(pdist(y, "braycurtis"))
+    n = len(y)
+    j = np.eye(n) - 1.0 / n
+    g = -0.5 * j @ (d ** 2) @ j
+    val, vec = np.linalg.eigh(g)
+    order = np.argsort(val)[::-1][:k]
+    x = vec[:, order] * np.sqrt(val[order])
+    wa = (y.T @ x) / y.sum(0)[:, None]
+    w = y.sum(0) / y.sum()
+    part = w * (wa ** 2).sum(1)
+    return x, wa, part / part.sum()
+
+
+def taxa_entry(y, z):
+    ca_std, ca_share = ca_taxa(y)
+    cca_std, cca_share = cca_taxa(y, z)
+    x, wa, wa_share = pcoa_wa(y)
+    return {
+        "ca_col_standard_2": ca_std.tolist(),
+        "ca_col_share_2": ca_share.tolist(),
+        "cca_species_standard": cca_std.tolist(),
+        "cca_species_share": cca_share.tolist(),
+        "pcoa_bray_curtis_coords_2": x.tolist(),
+        "pcoa_weighted_averages_2": wa.tolist(),
+        "pcoa_weighted_average_share_2": wa_share.tolist(),
+    }
+
+
 def main():
     rng = np.random.default_rng(20240607)
     toy_z = np.log(TOY.sum(1))[:, None]
@@ -109,6 +169,8 @@ def main():
         # A 4 x 3 table whose rank-deficient CCA residual once exposed an inaccurate SVD.
         "small": table_entry(SMALL, np.arange(1.0, 5.0)[:, None]),
         "f_quantiles": f_quantiles,
+        # Taxon scores of the toy community: CA, CCA on log totals, PCoA of Bray-Curtis.
+        "toy_taxa": taxa_entry(TOY, toy_z),
     }
     with open("tests/reference/ordination.json", "w") as fh:
         json.dump(out, fh, indent=1, sort_keys=True)
