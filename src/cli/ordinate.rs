@@ -71,6 +71,10 @@ pub struct Args {
     /// Replace an existing plot file.
     #[arg(long)]
     pub force: bool,
+    /// Taxa listed in the table and named on the plot, largest contributions
+    /// to the reported axes first (CSV and JSON list every taxon).
+    #[arg(long, value_name = "N", default_value_t = crate::workflow::compare::TAXA_SHOWN)]
+    pub taxa: usize,
     /// PCoA: the dissimilarity and transform.
     #[command(flatten)]
     pub distance: DistanceArgs,
@@ -109,11 +113,12 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     let prepared = prepare(store, &args.selection)?;
     let tested = args.method == MethodArg::Cca;
     let spec = args.spec(tested.then(|| args.run.seed()));
-    let outcome = if tested {
+    let mut outcome = if tested {
         spec.run(&prepared, &Progress::new("permutations of the constraints"))?
     } else {
         spec.run(&prepared, &Silent)?
     };
+    outcome.taxa_shown = args.taxa;
     for n in outcome.own_notes() {
         super::note(n);
     }

@@ -331,6 +331,23 @@ pub struct OrdinationPlot {
     pub ellipse_level: f64,
     /// Sample groups, in legend order.
     pub groups: Vec<ScatterGroup>,
+    /// Taxa placed on the same axes (empty: none drawn).
+    pub taxa: Vec<TaxonMark>,
+    /// What the taxon points are, for the footnote.
+    pub taxa_note: Option<String>,
+}
+
+/// One taxon of an ordination biplot.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TaxonMark {
+    /// Taxon name.
+    pub name: String,
+    /// Its point on the two plotted axes.
+    pub point: [f64; 2],
+    /// Named on the plot (and inside the plotted range); the others are small
+    /// marks, drawn only when they fall inside the range of the named points
+    /// and the samples.
+    pub labelled: bool,
 }
 
 fn axis_label(a: &AxisSpec, of: &str) -> String {
@@ -353,6 +370,7 @@ pub fn ordination_svg(plot: &OrdinationPlot) -> Result<String, SvgError> {
         .groups
         .iter()
         .flat_map(|g| g.points.iter().chain(g.ellipse.iter().flatten()))
+        .chain(plot.taxa.iter().filter(|t| t.labelled).map(|t| &t.point))
         .copied()
         .collect();
     if plot.groups.iter().all(|g| g.points.is_empty()) {
@@ -429,6 +447,33 @@ pub fn ordination_svg(plot: &OrdinationPlot) -> Result<String, SvgError> {
                 )))
                 .map_err(draw_err)?;
         }
+        let inside = |p: &[f64; 2]| p[0] >= x0 && p[0] <= x1 && p[1] >= y0 && p[1] <= y1;
+        let taxon_ink = INK.mix(0.55);
+        for t in plot.taxa.iter().filter(|t| inside(&t.point)) {
+            marks.open(
+                &root,
+                if t.labelled { "taxon named" } else { "taxon" },
+                &t.name,
+            )?;
+            let (px, py) = chart.backend_coord(&(t.point[0], t.point[1]));
+            let r = if t.labelled { 4 } else { 2 };
+            for (a, b) in [((-r, -r), (r, r)), ((-r, r), (r, -r))] {
+                root.draw(&PathElement::new(
+                    vec![(px + a.0, py + a.1), (px + b.0, py + b.1)],
+                    taxon_ink.stroke_width(1),
+                ))
+                .map_err(draw_err)?;
+            }
+            if t.labelled {
+                root.draw(&Text::new(
+                    t.name.clone(),
+                    (px + 6, py - 6),
+                    (FONT, 11).into_font().style(FontStyle::Italic).color(&INK),
+                ))
+                .map_err(draw_err)?;
+            }
+            marks.close(&root)?;
+        }
         for (gi, g) in plot.groups.iter().enumerate() {
             let colour = group_colour(gi);
             marks.open(&root, "group", &g.name)?;
@@ -475,6 +520,9 @@ pub fn ordination_svg(plot: &OrdinationPlot) -> Result<String, SvgError> {
                 "No ellipse (fewer than 3 samples): {}.",
                 without.join(", ")
             ));
+        }
+        if let Some(n) = &plot.taxa_note {
+            lines.push(n.clone());
         }
         footnotes(&notes, &lines)?;
         root.present().map_err(draw_err)?;
@@ -1700,6 +1748,24 @@ mod tests {
                     ellipse: None,
                 },
             ],
+            taxa: vec![
+                TaxonMark {
+                    name: "Baetis".into(),
+                    point: [1.4, -1.2],
+                    labelled: true,
+                },
+                TaxonMark {
+                    name: "Leuctra".into(),
+                    point: [0.0, 0.1],
+                    labelled: false,
+                },
+                TaxonMark {
+                    name: "Far rare".into(),
+                    point: [40.0, 30.0],
+                    labelled: false,
+                },
+            ],
+            taxa_note: Some("Taxa: standard coordinates.".into()),
         }
     }
 
@@ -1733,6 +1799,17 @@ mod tests {
         assert!(has_text(&doc, "Axis 1 (41.2% of inertia)"));
         assert!(has_text(&doc, "No ellipse (fewer than 3 samples): upper."));
         assert!(!svg.contains("TALLYMARK"));
+        // A named taxon widens the range and is labelled; an unnamed one inside
+        // the range is a bare mark; one far outside is not drawn.
+        let named = groups_of(&doc, "taxon named");
+        assert_eq!(named.len(), 1);
+        assert_eq!(named[0].attribute("data-label"), Some("Baetis"));
+        assert!(has_text(&doc, "Baetis"));
+        let bare = groups_of(&doc, "taxon");
+        assert_eq!(bare.len(), 1);
+        assert_eq!(bare[0].attribute("data-label"), Some("Leuctra"));
+        assert!(!has_text(&doc, "Leuctra") && !has_text(&doc, "Far rare"));
+        assert!(has_text(&doc, "Taxa: standard coordinates."));
     }
 
     #[test]

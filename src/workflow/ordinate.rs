@@ -19,7 +19,7 @@ use serde::{Deserialize, Serialize};
 use crate::analysis::cca_test::cca_permutation_test;
 use crate::analysis::dissimilarity::Distance;
 use crate::analysis::ellipse::group_ellipses;
-use crate::analysis::ordination::{ca, cca};
+use crate::analysis::ordination::{TaxonPoints, ca, cca, taxon_points, weighted_average_points};
 use crate::analysis::pcoa;
 use crate::analysis::permutation::PermutationOptions;
 use crate::analysis::transform::Transform;
@@ -262,6 +262,14 @@ pub struct Outcome {
     pub groups: Vec<Group>,
     /// Samples, in matrix order.
     pub samples: Vec<Sample>,
+    /// The taxa placed on the reported axes, largest contributions first (taxa
+    /// with no organisms left out).
+    pub taxa: Vec<TaxonScore>,
+    /// What the taxon points are ([`TAXA_SCORES_STANDARD`], [`TAXA_SCORES_PROJECTED`]).
+    pub taxa_scores: &'static str,
+    /// How many taxa the table lists and the plot labels (`--taxa`).
+    #[serde(skip)]
+    pub taxa_shown: usize,
     /// Notes: the assembly's, then the periods' and the analysis's own.
     pub notes: Vec<String>,
     /// How many of `notes` came from the assembly.
@@ -422,15 +430,53 @@ fn constraint_matrix(
     Ok((z, info))
 }
 
-/// The counts of `m` without empty taxa (CA and CCA need none), noting how many were left out.
-fn counts_without_empty_taxa(m: &CountMatrix, notes: &mut Vec<String>) -> DMatrix<f64> {
+/// The counts of `m` without empty taxa (CA and CCA need none) and the names
+/// of the taxa kept, noting how many were left out.
+fn counts_without_empty_taxa(
+    m: &CountMatrix,
+    notes: &mut Vec<String>,
+) -> (DMatrix<f64>, Vec<String>) {
     let (y, dropped) = m.drop_empty_taxa();
     if dropped > 0 {
         notes.push(format!(
             "{dropped} taxon column(s) with no organisms left out"
         ));
     }
-    y.values
+    let names = y.taxa.iter().map(|t| t.name.clone()).collect();
+    (y.values, names)
+}
+
+/// What the taxon points of each method are, in words (JSON `taxa_scores`).
+pub const TAXA_SCORES_STANDARD: &str =
+    "standard coordinates: each sample lies at the weighted average of the taxa it holds";
+/// The same for PCoA.
+pub const TAXA_SCORES_PROJECTED: &str = "weighted averages of the sample coordinates, weighted by the taxon's values: projected afterwards, not part of the fit";
+
+/// One taxon placed in the ordination.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TaxonScore {
+    /// Accepted name at the analysed rank.
+    pub taxon: String,
+    /// Coordinates on the reported axes.
+    pub coordinates: Vec<f64>,
+    /// Its share of the weighted spread of the taxa on the reported axes (CA
+    /// and CCA: its contribution to their inertia); the shares add up to 1.
+    pub contribution: f64,
+}
+
+/// Taxa with their points, largest contributions first.
+fn taxon_scores(names: &[String], pts: &TaxonPoints) -> Vec<TaxonScore> {
+    let mut v: Vec<TaxonScore> = names
+        .iter()
+        .enumerate()
+        .map(|(j, name)| TaxonScore {
+            taxon: name.clone(),
+            coordinates: pts.coords.row(j).iter().copied().collect(),
+            contribution: pts.contribution[j],
+        })
+        .collect();
+    v.sort_by(|a, b| b.contribution.total_cmp(&a.contribution));
+    v
 }
 
 /// The fitted ordination before axes are cut to the number reported.
@@ -441,6 +487,21 @@ struct Fitted {
     coords: DMatrix<f64>,
     total: f64,
     fit: Fit,
+    /// The taxa of the fit (names, standard coordinates or `None` for PCoA,
+    /// column masses), for [`TaxonPoints`] once the axes are cut.
+    taxa: FittedTaxa,
+}
+
+/// What places the taxa once the number of axes is known.
+enum FittedTaxa {
+    /// CA and CCA: the column standard coordinates, masses and eigenvalues.
+    Standard {
+        names: Vec<String>,
+        standard: DMatrix<f64>,
+        masses: Vec<f64>,
+    },
+    /// PCoA: weighted averages of the sample coordinates.
+    Projected,
 }
 
 /// `v / total`, or 0 when the total is not positive.
@@ -479,13 +540,19 @@ impl Spec {
                 positive_eigenvalue_sum: p.positive_sum,
             },
             coords: p.coordinates,
+            taxa: FittedTaxa::Projected,
         })
     }
 
     fn ca(m: &CountMatrix, notes: &mut Vec<String>) -> Result<Fitted> {
-        let y = counts_without_empty_taxa(m, notes);
+        let (y, names) = counts_without_empty_taxa(m, notes);
         let r = ca(&y).map_err(|e| WorkflowError::kernel("correspondence analysis", e, m))?;
         Ok(Fitted {
+            taxa: FittedTaxa::Standard {
+                names,
+                standard: r.col_standard.clone(),
+                masses: r.col_masses.clone(),
+            },
             shares: r.inertia_shares(),
             eigenvalues: r.inertias,
             share_of: "inertia",
@@ -512,7 +579,7 @@ impl Spec {
             option: "--seed",
             reason: "the CCA test draws permutations and needs a seed".into(),
         })?;
-        let y = counts_without_empty_taxa(m, notes);
+        let (y, names) = counts_without_empty_taxa(m, notes);
         let (z, constraints) = constraint_matrix(m, &self.constraints, self.periods.is_some())?;
         let fit = cca(&y, &z)
             .map_err(|e| WorkflowError::kernel("canonical correspondence analysis", e, m))?;
@@ -533,6 +600,11 @@ impl Spec {
             "sample coordinates are weighted averages of the taxon scores (WA scores)".into(),
         );
         Ok(Fitted {
+            taxa: FittedTaxa::Standard {
+                names,
+                standard: fit.species_standard.clone(),
+                masses: fit.col_masses.clone(),
+            },
             shares: fit
                 .constrained_eigenvalues
                 .iter()
@@ -627,6 +699,25 @@ impl Analysis for Spec {
             notes.push(format!("only {k} axis/axes with non-zero eigenvalue"));
         }
         let coords = fitted.coords.columns(0, k).into_owned();
+        let (taxa, taxa_scores) = match &fitted.taxa {
+            FittedTaxa::Standard {
+                names,
+                standard,
+                masses,
+            } => {
+                let pts = taxon_points(standard, masses, &fitted.eigenvalues, k)
+                    .map_err(|e| WorkflowError::kernel("taxon scores", e, &m))?;
+                (taxon_scores(names, &pts), TAXA_SCORES_STANDARD)
+            }
+            FittedTaxa::Projected => {
+                let pts = weighted_average_points(&m.values, &coords)
+                    .map_err(|e| WorkflowError::kernel("taxon projections", e, &m))?;
+                let names: Vec<String> = m.taxa.iter().map(|t| t.name.clone()).collect();
+                let mut all = taxon_scores(&names, &pts);
+                all.retain(|t| t.contribution > 0.0 || t.coordinates.iter().any(|c| *c != 0.0));
+                (all, TAXA_SCORES_PROJECTED)
+            }
+        };
         let ellipses = if k >= 2 {
             let x: Vec<f64> = coords.column(0).iter().copied().collect();
             let y: Vec<f64> = coords.column(1).iter().copied().collect();
@@ -688,6 +779,9 @@ impl Analysis for Spec {
             by,
             groups,
             samples,
+            taxa,
+            taxa_scores,
+            taxa_shown: super::compare::TAXA_SHOWN,
             notes,
             assembly_notes,
             effort_unit: sel

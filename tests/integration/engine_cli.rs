@@ -643,3 +643,72 @@ fn exact_p_value_within_strata() {
         .assert()
         .code(1);
 }
+
+#[test]
+fn ordinations_place_the_taxa_and_name_the_top_ones() {
+    let env = demo();
+    let base = [
+        "ordinate",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--unit",
+        "site-year",
+        "--site-where",
+        "reach=middle",
+        "--periods",
+        "2008..2015,2016..2025",
+    ];
+    for method in ["ca", "pcoa"] {
+        let mut args: Vec<&str> = base.to_vec();
+        args.extend(["--method", method, "--axes", "3", "--format", "json"]);
+        let v = json(&env, &args);
+        let taxa = v["taxa"].as_array().unwrap();
+        assert!(taxa.len() > 10, "{method}: {}", taxa.len());
+        // Contributions add up to 1, largest first; three coordinates each.
+        let c: Vec<f64> = taxa.iter().map(|t| f64_of(&t["contribution"])).collect();
+        assert!((c.iter().sum::<f64>() - 1.0).abs() < 1e-9, "{method}");
+        assert!(c.windows(2).all(|w| w[0] >= w[1]), "{method}");
+        assert!(
+            taxa.iter()
+                .all(|t| t["coordinates"].as_array().unwrap().len() == 3)
+        );
+        // Synonyms are counted under their accepted names (demo-data/README.md).
+        assert!(taxa.iter().all(|t| t["taxon"] != "Hydrobia"), "{method}");
+        let scores = v["taxa_scores"].as_str().unwrap();
+        let want = if method == "ca" {
+            "standard coordinates"
+        } else {
+            "projected"
+        };
+        assert!(scores.contains(want), "{method}: {scores}");
+        // CSV has every taxon as a record of its own.
+        let mut args: Vec<&str> = base.to_vec();
+        args.extend(["--method", method, "--axes", "3", "--format", "csv"]);
+        let csv = env.stdout(&args);
+        assert_eq!(
+            csv.lines().filter(|l| l.starts_with("taxon,")).count(),
+            taxa.len()
+        );
+        assert!(csv.lines().next().unwrap().ends_with(",contribution"));
+    }
+    // The table lists --taxa N of them and the plot names the same N.
+    let svg = env.path("ca.svg");
+    let mut args: Vec<&str> = base.to_vec();
+    args.extend([
+        "--method",
+        "ca",
+        "--taxa",
+        "4",
+        "--plot",
+        svg.to_str().unwrap(),
+    ]);
+    let table = env.stdout(&args);
+    assert!(
+        table.contains("Taxa with the largest contributions"),
+        "{table}"
+    );
+    assert!(table.contains("more taxa: --taxa N shows more"), "{table}");
+    let drawn = std::fs::read_to_string(&svg).unwrap();
+    assert_eq!(drawn.matches("class=\"taxon named\"").count(), 4);
+}

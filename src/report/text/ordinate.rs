@@ -6,7 +6,7 @@ use std::io::{self, Write};
 use super::Render;
 use crate::analysis::transform::Transform;
 use crate::report::format::{csv_num, fmt_num, fmt_p, new_table, write_table};
-use crate::report::svg::{AxisSpec, OrdinationPlot, ScatterGroup};
+use crate::report::svg::{AxisSpec, OrdinationPlot, ScatterGroup, TaxonMark};
 use crate::workflow::ordinate::{ELLIPSE_LEVEL, Fit, Outcome};
 
 /// The plot title: the method, with the dissimilarity or the constraints.
@@ -70,7 +70,57 @@ pub fn plot(o: &Outcome) -> Option<OrdinationPlot> {
                 ellipse: group.ellipse.as_ref().map(|e| e.boundary.clone()),
             })
             .collect(),
+        taxa: o
+            .taxa
+            .iter()
+            .enumerate()
+            .map(|(i, t)| TaxonMark {
+                name: t.taxon.clone(),
+                point: [t.coordinates[0], t.coordinates[1]],
+                labelled: i < o.taxa_shown,
+            })
+            .collect(),
+        taxa_note: (!o.taxa.is_empty()).then(|| {
+            format!(
+                "Crosses: taxa, as {}; named: the {} with the largest contributions to these axes.",
+                o.taxa_scores,
+                o.taxa_shown.min(o.taxa.len())
+            )
+        }),
     })
+}
+
+/// The taxa with the largest contributions to the reported axes.
+fn taxa_table(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
+    let shown = o.taxa_shown.min(o.taxa.len());
+    if shown == 0 {
+        return Ok(());
+    }
+    writeln!(
+        out,
+        "Taxa with the largest contributions to these axes ({}):",
+        o.taxa_scores
+    )?;
+    let mut head = vec!["taxon".to_string()];
+    head.extend((1..=o.n_axes()).map(|a| format!("axis {a}")));
+    head.push("contribution".into());
+    let head: Vec<&str> = head.iter().map(String::as_str).collect();
+    let mut t = new_table(&head);
+    for x in o.taxa.iter().take(shown) {
+        let mut row = vec![x.taxon.clone()];
+        row.extend(x.coordinates.iter().map(|v| fmt_num(*v)));
+        row.push(pct(x.contribution));
+        t.add_row(row);
+    }
+    write_table(out, &t)?;
+    if o.taxa.len() > shown {
+        writeln!(
+            out,
+            "{} more taxa: --taxa N shows more, --format csv or json lists all.",
+            o.taxa.len() - shown
+        )?;
+    }
+    Ok(())
 }
 
 /// A share as a percentage with one decimal.
@@ -170,17 +220,19 @@ impl Render for Outcome {
             }
             write_table(out, &g)?;
         }
+        taxa_table(self, out)?;
         writeln!(out, "sample coordinates: --format csv or --format json")
     }
 
-    /// A `record` column (`eigenvalue`, `share`, then `sample`), the sample
-    /// label, site, year and group, then one column per axis.
+    /// A `record` column (`eigenvalue`, `share`, `sample`, then `taxon`), the sample or taxon
+    /// label, site, year and group, then one column per axis and a taxon's `contribution`.
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
         let mut w = csv::Writer::from_writer(out);
         let mut header: Vec<String> = ["record", "label", "site", "year", "group"]
             .map(String::from)
             .to_vec();
         header.extend((1..=self.n_axes()).map(|a| format!("axis{a}")));
+        header.push("contribution".into());
         w.write_record(&header)?;
         let rows: [(&str, Vec<f64>); 2] = [
             (
@@ -193,6 +245,7 @@ impl Render for Outcome {
             let mut row = vec![name.to_string()];
             row.extend(std::iter::repeat_n(String::new(), 4));
             row.extend(vals.into_iter().map(csv_num));
+            row.push(String::new());
             w.write_record(&row)?;
         }
         for s in &self.samples {
@@ -204,6 +257,19 @@ impl Render for Outcome {
                 s.group.clone().unwrap_or_default(),
             ];
             row.extend(s.coordinates.iter().copied().map(csv_num));
+            row.push(String::new());
+            w.write_record(&row)?;
+        }
+        for t in &self.taxa {
+            let mut row = vec![
+                "taxon".to_string(),
+                t.taxon.clone(),
+                String::new(),
+                String::new(),
+                String::new(),
+            ];
+            row.extend(t.coordinates.iter().copied().map(csv_num));
+            row.push(csv_num(t.contribution));
             w.write_record(&row)?;
         }
         w.flush()
