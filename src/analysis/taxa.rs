@@ -3,7 +3,8 @@
 //! distance between the two centroids and of the change in total rate, and a
 //! permutation test of its own change (docs/methods.md, "Taxa behind the change").
 //!
-//! Owns: [`contrast`], [`TaxonChange`], [`Contrast`].
+//! Owns: [`contrast`], [`TaxonChange`], [`Contrast`]; for before/after ×
+//! control/impact, [`baci_contrast`], [`BaciTaxon`], [`BaciContrast`].
 //!
 //! The split of the composition shift is additive by construction: in Hellinger
 //! coordinates (square roots of each unit's profile; Legendre & Gallagher 2001,
@@ -18,6 +19,7 @@ use nalgebra::DMatrix;
 use serde::Serialize;
 
 use super::AnalysisError;
+use super::baci::{BaciOptions, BaciRows, baci_size};
 use super::count_model::rate_log_variance;
 use super::linear_model::Grouping;
 use super::permutation::benjamini_hochberg;
@@ -228,6 +230,267 @@ pub fn contrast(
     })
 }
 
+/// One taxon of a before/after × control/impact contrast ([`baci_contrast`]).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct BaciTaxon {
+    /// Column of the taxon in the matrix.
+    pub column: usize,
+    /// Pooled rate Σ count ÷ Σ effort of the control sites before.
+    pub rate_control_before: f64,
+    /// The same after.
+    pub rate_control_after: f64,
+    /// Of the impact sites before.
+    pub rate_impact_before: f64,
+    /// Of the impact sites after.
+    pub rate_impact_after: f64,
+    /// `(impact after ÷ impact before) ÷ (control after ÷ control before)`
+    /// (`None` when a rate is 0).
+    pub ratio_of_ratios: Option<f64>,
+    /// Lower end of its 95 % interval (see [`baci_contrast`]).
+    pub ratio_ci_low: Option<f64>,
+    /// Upper end.
+    pub ratio_ci_high: Option<f64>,
+    /// Change of the taxon's share of the impact sites' total rate minus that
+    /// of the control sites, percentage points.
+    pub share_change_pp: f64,
+    /// Its share of the squared distance between the impact and control sites'
+    /// mean composition shifts in Hellinger coordinates.
+    pub shape_contribution: Option<f64>,
+    /// Its share of the difference in the change of the total rate, impact
+    /// minus control (`None` when that difference is 0).
+    pub size_contribution: Option<f64>,
+    /// Permutation p-value of its own period × role interaction (`None` when
+    /// not tested: a cell never caught it, so the interaction is infinite).
+    pub p_value: Option<f64>,
+    /// Benjamini–Hochberg adjusted across the tested taxa.
+    pub p_adjusted: Option<f64>,
+}
+
+/// Every taxon of a BACI contrast, in column order (taxa never caught left out).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct BaciContrast {
+    /// Per taxon.
+    pub taxa: Vec<BaciTaxon>,
+    /// Squared Hellinger distance between the two roles' mean shifts.
+    pub shape_distance_sq: f64,
+    /// Sites whose shift enters the composition split (organisms before and after).
+    pub shape_sites: usize,
+    /// Permutations of each taxon's test.
+    pub permutations: usize,
+}
+
+/// The per-taxon BACI contrast of `counts` (counts, not per-effort values) with
+/// `effort`, rows described by `rows` (as the BACI tests take them). Per taxon:
+/// the pooled rates of the four cells; the ratio of ratios with the 95 %
+/// interval `exp(ln q ± t·√Σ v)`, v the ratio-estimator variance of each cell's
+/// log rate ([`rate_log_variance`]) and t on n − 4 df, which treats rows as
+/// independent (revisited sites make it too narrow); the split of the
+/// composition interaction: with each site's shift `z_s` = mean Hellinger
+/// coordinates after − before (rows with organisms; Legendre & Gallagher 2001),
+/// the squared distance between the impact and the control sites' mean shifts
+/// is a sum over taxa, so each taxon's term over the sum is its exact share;
+/// the split of the size interaction `(ΔI_j − ΔC_j) / (ΔI − ΔC)`, Δ the change
+/// of a rate from before to after; and, with `test`, the BACI size test
+/// ([`baci_size`], the main test's scheme and seed) on the taxon's counts at
+/// the sites that caught it, adjusted by Benjamini–Hochberg across taxa.
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`]; [`AnalysisError::NonFinite`] or
+/// [`AnalysisError::Negative`] for bad counts; [`AnalysisError::InvalidArgument`]
+/// for effort that is not positive, or a design without both roles in both periods.
+pub fn baci_contrast(
+    counts: &DMatrix<f64>,
+    effort: &[f64],
+    rows: BaciRows<'_>,
+    test: Option<&BaciOptions>,
+) -> Result<BaciContrast, AnalysisError> {
+    let (n, p) = counts.shape();
+    for len in [
+        effort.len(),
+        rows.site.len(),
+        rows.year.len(),
+        rows.after.len(),
+    ] {
+        if len != n {
+            return Err(AnalysisError::DimensionMismatch {
+                expected: n,
+                found: len,
+            });
+        }
+    }
+    for i in 0..n {
+        for j in 0..p {
+            let v = counts[(i, j)];
+            if !v.is_finite() {
+                return Err(AnalysisError::NonFinite { row: i, col: j });
+            }
+            if v < 0.0 {
+                return Err(AnalysisError::Negative { row: i, col: j });
+            }
+        }
+    }
+    if let Some(i) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
+        return Err(AnalysisError::InvalidArgument {
+            name: "effort",
+            reason: format!("row {i} has effort {}; effort must be positive", effort[i]),
+        });
+    }
+    let role = |i: usize| rows.impact.get(rows.site[i]).copied().unwrap_or(false);
+    // Cells: 0 control before, 1 control after, 2 impact before, 3 impact after.
+    let cell = |i: usize| 2 * usize::from(role(i)) + usize::from(rows.after[i]);
+    let cells: [Vec<usize>; 4] =
+        std::array::from_fn(|c| (0..n).filter(|&i| cell(i) == c).collect());
+    if cells.iter().any(Vec::is_empty) {
+        return Err(AnalysisError::InvalidArgument {
+            name: "rows",
+            reason: "a BACI contrast needs control and impact rows before and after".into(),
+        });
+    }
+    let totals: Vec<f64> = (0..n).map(|i| counts.row(i).sum()).collect();
+
+    // Site shifts in Hellinger coordinates, then the two roles' mean shifts.
+    let n_sites = rows.site.iter().max().map_or(0, |m| m + 1);
+    let mut sum = vec![vec![vec![0.0; p]; 2]; n_sites];
+    let mut k = vec![[0usize; 2]; n_sites];
+    for i in 0..n {
+        if totals[i] > 0.0 {
+            let (s, a) = (rows.site[i], usize::from(rows.after[i]));
+            k[s][a] += 1;
+            for j in 0..p {
+                sum[s][a][j] += (counts[(i, j)] / totals[i]).sqrt();
+            }
+        }
+    }
+    let mut mean_shift = [vec![0.0; p], vec![0.0; p]];
+    let mut in_role = [0usize; 2];
+    for s in 0..n_sites {
+        if k[s][0] == 0 || k[s][1] == 0 {
+            continue;
+        }
+        let r = usize::from(rows.impact.get(s).copied().unwrap_or(false));
+        in_role[r] += 1;
+        for j in 0..p {
+            mean_shift[r][j] += sum[s][1][j] / k[s][1] as f64 - sum[s][0][j] / k[s][0] as f64;
+        }
+    }
+    let sq: Vec<f64> = (0..p)
+        .map(|j| {
+            if in_role[0] == 0 || in_role[1] == 0 {
+                0.0
+            } else {
+                (mean_shift[1][j] / in_role[1] as f64 - mean_shift[0][j] / in_role[0] as f64)
+                    .powi(2)
+            }
+        })
+        .collect();
+    let d2: f64 = sq.iter().sum();
+
+    let present: Vec<usize> = (0..p)
+        .filter(|&j| (0..n).any(|i| counts[(i, j)] > 0.0))
+        .collect();
+    let rate = |j: usize, c: usize| {
+        let y: Vec<f64> = cells[c].iter().map(|&i| counts[(i, j)]).collect();
+        let e: Vec<f64> = cells[c].iter().map(|&i| effort[i]).collect();
+        rate_log_variance(&y, &e)
+    };
+    let r: Vec<[(f64, Option<f64>); 4]> = present
+        .iter()
+        .map(|&j| std::array::from_fn(|c| rate(j, c)))
+        .collect();
+    let total: [f64; 4] = std::array::from_fn(|c| r.iter().map(|x| x[c].0).sum());
+    let delta = (total[3] - total[2]) - (total[1] - total[0]);
+    let scale = total.iter().fold(0.0_f64, |a, b| a.max(b.abs()));
+    let size_defined = delta.abs() > 1e-12 * scale;
+    let t = t_quantile(0.975, (n.saturating_sub(4)).max(1) as f64)?;
+    let share = |v: f64, tot: f64| if tot > 0.0 { v / tot } else { 0.0 };
+    let mut taxa = Vec::with_capacity(present.len());
+    for (x, &j) in r.iter().zip(&present) {
+        let rates = [x[0].0, x[1].0, x[2].0, x[3].0];
+        let q = rates
+            .iter()
+            .all(|v| *v > 0.0)
+            .then(|| (rates[3] / rates[2]) / (rates[1] / rates[0]));
+        let ci = match (q, x[0].1, x[1].1, x[2].1, x[3].1) {
+            (Some(q), Some(a), Some(b), Some(c), Some(d)) => {
+                let half = t * (a + b + c + d).sqrt();
+                Some((q * (-half).exp(), q * half.exp()))
+            }
+            _ => None,
+        };
+        let shares: [f64; 4] = std::array::from_fn(|c| share(rates[c], total[c]));
+        taxa.push(BaciTaxon {
+            column: j,
+            rate_control_before: rates[0],
+            rate_control_after: rates[1],
+            rate_impact_before: rates[2],
+            rate_impact_after: rates[3],
+            ratio_of_ratios: q,
+            ratio_ci_low: ci.map(|c| c.0),
+            ratio_ci_high: ci.map(|c| c.1),
+            share_change_pp: 100.0 * ((shares[3] - shares[2]) - (shares[1] - shares[0])),
+            shape_contribution: (d2 > 0.0).then(|| sq[j] / d2),
+            size_contribution: size_defined
+                .then(|| ((rates[3] - rates[2]) - (rates[1] - rates[0])) / delta),
+            p_value: None,
+            p_adjusted: None,
+        });
+    }
+    let mut permutations = 0;
+    if let Some(opts) = test {
+        let opts = BaciOptions {
+            bootstrap: 0,
+            ..opts.clone()
+        };
+        let mut tested = Vec::new();
+        let mut ps = Vec::new();
+        for (k, t) in taxa.iter().enumerate() {
+            // A cell that never caught the taxon makes its interaction infinite.
+            if t.ratio_of_ratios.is_none() {
+                continue;
+            }
+            // The sites that caught the taxon: a site effect of zeros alone has no
+            // finite estimate, and such a site says nothing about its change.
+            let caught: Vec<usize> = (0..n_sites)
+                .filter(|&s| (0..n).any(|i| rows.site[i] == s && counts[(i, t.column)] > 0.0))
+                .collect();
+            let idx: Vec<usize> = (0..n).filter(|&i| caught.contains(&rows.site[i])).collect();
+            let site = super::trend::recode(&idx.iter().map(|&i| rows.site[i]).collect::<Vec<_>>());
+            let mut impact = vec![false; site.iter().max().map_or(0, |m| m + 1)];
+            for (pos, &i) in idx.iter().enumerate() {
+                impact[site[pos]] = rows.impact.get(rows.site[i]).copied().unwrap_or(false);
+            }
+            if !(impact.contains(&true) && impact.contains(&false)) {
+                continue;
+            }
+            let year = super::trend::recode(&idx.iter().map(|&i| rows.year[i]).collect::<Vec<_>>());
+            let after: Vec<bool> = idx.iter().map(|&i| rows.after[i]).collect();
+            let y: Vec<f64> = idx.iter().map(|&i| counts[(i, t.column)]).collect();
+            let e: Vec<f64> = idx.iter().map(|&i| effort[i]).collect();
+            let sub = BaciRows {
+                site: &site,
+                year: &year,
+                after: &after,
+                impact: &impact,
+            };
+            if let Ok(res) = baci_size(&y, &e, sub, &opts) {
+                permutations = permutations.max(res.permutations);
+                tested.push(k);
+                ps.push(res.p_value);
+            }
+        }
+        for (&k, (p, a)) in tested.iter().zip(ps.iter().zip(benjamini_hochberg(&ps))) {
+            taxa[k].p_value = Some(*p);
+            taxa[k].p_adjusted = Some(a);
+        }
+    }
+    Ok(BaciContrast {
+        taxa,
+        shape_distance_sq: d2,
+        shape_sites: in_role[0] + in_role[1],
+        permutations,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -412,5 +675,94 @@ mod tests {
             "the changed taxa ranked first in {top_two} of 20 seeds"
         );
         assert!(false_flags <= 5, "{false_flags} unchanged taxa flagged");
+    }
+
+    #[test]
+    fn baci_rates_ratios_and_splits_match_the_numpy_fixture() {
+        // tests/reference/make_baci_taxa_fixtures.py: the definitions written out in
+        // NumPy, with a row that caught nothing, unequal effort and a taxon absent
+        // from one cell.
+        let fx: Value =
+            serde_json::from_str(include_str!("../../tests/reference/baci_taxa.json")).unwrap();
+        let f = |v: &Value| -> Vec<f64> {
+            v.as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_f64().unwrap())
+                .collect()
+        };
+        let b = |v: &Value| -> Vec<bool> {
+            v.as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_bool().unwrap())
+                .collect()
+        };
+        let site: Vec<usize> = f(&fx["site"]).iter().map(|&v| v as usize).collect();
+        let year: Vec<usize> = f(&fx["year"]).iter().map(|&v| v as usize).collect();
+        let (after, impact) = (b(&fx["after"]), b(&fx["impact"]));
+        let effort = f(&fx["effort"]);
+        let rows: Vec<Vec<f64>> = fx["counts"].as_array().unwrap().iter().map(f).collect();
+        let y = DMatrix::from_fn(rows.len(), rows[0].len(), |i, j| rows[i][j]);
+        let design = BaciRows {
+            site: &site,
+            year: &year,
+            after: &after,
+            impact: &impact,
+        };
+        let opts = BaciOptions {
+            permutations: 99,
+            seed: 7,
+            bootstrap: 0,
+        };
+        let c = baci_contrast(&y, &effort, design, Some(&opts)).unwrap();
+        close("d2", Some(c.shape_distance_sq), &fx["shape_distance_sq"]);
+        let want = fx["taxa"].as_array().unwrap();
+        assert_eq!(c.taxa.len(), want.len());
+        for (t, w) in c.taxa.iter().zip(want) {
+            let r = f(&w["rates_cb_ca_ib_ia"]);
+            let got = [
+                t.rate_control_before,
+                t.rate_control_after,
+                t.rate_impact_before,
+                t.rate_impact_after,
+            ];
+            for (a, e) in got.iter().zip(&r) {
+                assert!((a - e).abs() <= 1e-12 * e.abs().max(1.0), "{a} vs {e}");
+            }
+            close("ratio", t.ratio_of_ratios, &w["ratio_of_ratios"]);
+            close("share", Some(t.share_change_pp), &w["share_change_pp"]);
+            close("shape", t.shape_contribution, &w["shape_contribution"]);
+            close("size", t.size_contribution, &w["size_contribution"]);
+            if let (Some(q), Some(lo), Some(hi)) =
+                (t.ratio_of_ratios, t.ratio_ci_low, t.ratio_ci_high)
+            {
+                assert!(lo < q && q < hi);
+            }
+        }
+        let total: f64 = c.taxa.iter().filter_map(|t| t.shape_contribution).sum();
+        assert!((total - 1.0).abs() < 1e-12);
+        // The two planted changes (taxa 0 and 3) carry most of the shift and are the
+        // only ones whose own test is clear.
+        let mut by_shape: Vec<&BaciTaxon> = c.taxa.iter().collect();
+        by_shape.sort_by(|a, b| {
+            b.shape_contribution
+                .unwrap_or(0.0)
+                .total_cmp(&a.shape_contribution.unwrap_or(0.0))
+        });
+        let top: Vec<usize> = by_shape.iter().take(2).map(|t| t.column).collect();
+        assert!(top.contains(&3), "{top:?}");
+        // With 3 impact and 3 control sites there are 20 role arrangements, and
+        // swapping the roles gives the same statistic: p cannot go below 0.1.
+        let p = |k: usize| c.taxa[k].p_value.unwrap();
+        assert!((p(0) - 0.1).abs() < 1e-12 && (p(3) - 0.1).abs() < 1e-12);
+        assert!(
+            c.taxa
+                .iter()
+                .all(|t| t.p_value.is_none_or(|v| v >= 0.1 - 1e-12))
+        );
+        // A taxon absent from one cell has no finite interaction: not tested.
+        assert!(c.taxa[7].ratio_of_ratios.is_none() && c.taxa[7].p_value.is_none());
+        assert!(c.permutations > 0);
     }
 }

@@ -613,7 +613,7 @@ fn rate_interval(y: &[f64], e: &[f64]) -> Result<(f64, Option<(f64, f64)>), Anal
 }
 
 /// Codes 0, 1, … in order of first appearance.
-fn recode(codes: &[usize]) -> Vec<usize> {
+pub(crate) fn recode(codes: &[usize]) -> Vec<usize> {
     let mut seen: Vec<usize> = Vec::new();
     codes
         .iter()
