@@ -16,6 +16,7 @@
 //! contributions to an average dissimilarity are not a test).
 
 use nalgebra::DMatrix;
+use rayon::prelude::*;
 use serde::Serialize;
 
 use super::AnalysisError;
@@ -441,41 +442,51 @@ pub fn baci_contrast(
             bootstrap: 0,
             ..opts.clone()
         };
+        // Each taxon's test is seeded alike and independent of the others, so they
+        // run in parallel with the same results.
+        let results: Vec<Option<(f64, usize)>> = taxa
+            .par_iter()
+            .map(|t| {
+                // A cell that never caught the taxon makes its interaction infinite.
+                t.ratio_of_ratios?;
+                // The sites that caught the taxon: a site effect of zeros alone has
+                // no finite estimate, and such a site says nothing about its change.
+                let caught: Vec<usize> = (0..n_sites)
+                    .filter(|&s| (0..n).any(|i| rows.site[i] == s && counts[(i, t.column)] > 0.0))
+                    .collect();
+                let idx: Vec<usize> = (0..n).filter(|&i| caught.contains(&rows.site[i])).collect();
+                let site =
+                    super::trend::recode(&idx.iter().map(|&i| rows.site[i]).collect::<Vec<_>>());
+                let mut impact = vec![false; site.iter().max().map_or(0, |m| m + 1)];
+                for (pos, &i) in idx.iter().enumerate() {
+                    impact[site[pos]] = rows.impact.get(rows.site[i]).copied().unwrap_or(false);
+                }
+                if !(impact.contains(&true) && impact.contains(&false)) {
+                    return None;
+                }
+                let year =
+                    super::trend::recode(&idx.iter().map(|&i| rows.year[i]).collect::<Vec<_>>());
+                let after: Vec<bool> = idx.iter().map(|&i| rows.after[i]).collect();
+                let y: Vec<f64> = idx.iter().map(|&i| counts[(i, t.column)]).collect();
+                let e: Vec<f64> = idx.iter().map(|&i| effort[i]).collect();
+                let sub = BaciRows {
+                    site: &site,
+                    year: &year,
+                    after: &after,
+                    impact: &impact,
+                };
+                baci_size(&y, &e, sub, &opts)
+                    .ok()
+                    .map(|r| (r.p_value, r.permutations))
+            })
+            .collect();
         let mut tested = Vec::new();
         let mut ps = Vec::new();
-        for (k, t) in taxa.iter().enumerate() {
-            // A cell that never caught the taxon makes its interaction infinite.
-            if t.ratio_of_ratios.is_none() {
-                continue;
-            }
-            // The sites that caught the taxon: a site effect of zeros alone has no
-            // finite estimate, and such a site says nothing about its change.
-            let caught: Vec<usize> = (0..n_sites)
-                .filter(|&s| (0..n).any(|i| rows.site[i] == s && counts[(i, t.column)] > 0.0))
-                .collect();
-            let idx: Vec<usize> = (0..n).filter(|&i| caught.contains(&rows.site[i])).collect();
-            let site = super::trend::recode(&idx.iter().map(|&i| rows.site[i]).collect::<Vec<_>>());
-            let mut impact = vec![false; site.iter().max().map_or(0, |m| m + 1)];
-            for (pos, &i) in idx.iter().enumerate() {
-                impact[site[pos]] = rows.impact.get(rows.site[i]).copied().unwrap_or(false);
-            }
-            if !(impact.contains(&true) && impact.contains(&false)) {
-                continue;
-            }
-            let year = super::trend::recode(&idx.iter().map(|&i| rows.year[i]).collect::<Vec<_>>());
-            let after: Vec<bool> = idx.iter().map(|&i| rows.after[i]).collect();
-            let y: Vec<f64> = idx.iter().map(|&i| counts[(i, t.column)]).collect();
-            let e: Vec<f64> = idx.iter().map(|&i| effort[i]).collect();
-            let sub = BaciRows {
-                site: &site,
-                year: &year,
-                after: &after,
-                impact: &impact,
-            };
-            if let Ok(res) = baci_size(&y, &e, sub, &opts) {
-                permutations = permutations.max(res.permutations);
+        for (k, r) in results.into_iter().enumerate() {
+            if let Some((p, perms)) = r {
+                permutations = permutations.max(perms);
                 tested.push(k);
-                ps.push(res.p_value);
+                ps.push(p);
             }
         }
         for (&k, (p, a)) in tested.iter().zip(ps.iter().zip(benjamini_hochberg(&ps))) {

@@ -35,6 +35,10 @@ pub struct Args {
     /// The shape-only space the sites' composition shifts are measured in.
     #[arg(long, value_parser = shape_distance_parser(), default_value = "hellinger")]
     pub shape_distance: ShapeDistance,
+    /// Taxa shown in the table, largest shares of the composition interaction
+    /// first (CSV and JSON list every taxon).
+    #[arg(long, value_name = "N", default_value_t = crate::workflow::compare::TAXA_SHOWN)]
+    pub taxa: usize,
     /// Permutations, seed, storage, format.
     #[command(flatten)]
     pub run: RunArgs,
@@ -73,7 +77,8 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     selection.keep_empty = true;
     let prepared = prepare(store, &selection)?;
     let spec = args.spec(args.run.seed());
-    let outcome = spec.run(&prepared, &Progress::new("impact"))?;
+    let mut outcome = spec.run(&prepared, &Progress::new("impact"))?;
+    outcome.taxa_shown = args.taxa;
     for n in &outcome.notes[prepared.notes.len().min(outcome.notes.len())..] {
         note(n);
     }

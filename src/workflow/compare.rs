@@ -395,43 +395,53 @@ pub struct Taxon {
 /// At most this many taxa are named in a verdict.
 const NAMED_TAXA: usize = 2;
 
+/// The taxa that carry a composition difference, in words: the largest shares
+/// of the shift among taxa whose own change is clear (BH-adjusted p at most
+/// `alpha`), e.g. ", mostly through a rise of Baetis (48 % of the shift)". Each
+/// taxon is `(name, shape_contribution, share_change_pp, p_adjusted)`; `rise`
+/// and `fall` are of the taxon's share. One wording for every contrast
+/// (`compare`, `impact`).
+pub fn drivers_in_words<'a>(
+    taxa: impl IntoIterator<Item = (&'a str, Option<f64>, f64, Option<f64>)>,
+    alpha: f64,
+) -> String {
+    let mut clear: Vec<(&str, f64, f64)> = taxa
+        .into_iter()
+        .filter(|t| t.3.is_some_and(|p| p <= alpha))
+        .filter_map(|t| t.1.map(|c| (t.0, c, t.2)))
+        .collect();
+    clear.sort_by(|a, b| b.1.total_cmp(&a.1));
+    if clear.is_empty() {
+        return ", though no single taxon's own change is clear".to_string();
+    }
+    let named: Vec<String> = clear
+        .iter()
+        .take(NAMED_TAXA)
+        .map(|(name, c, pp)| {
+            format!(
+                "a {} of {name} ({:.0} % of the shift)",
+                if *pp >= 0.0 { "rise" } else { "fall" },
+                100.0 * c
+            )
+        })
+        .collect();
+    format!(", mostly through {}", named.join(" and "))
+}
+
 impl Comparison {
-    /// The taxa that carry the composition difference in words: the largest
-    /// shares of the shift among taxa whose own change is clear (BH-adjusted p at
-    /// most `alpha`), e.g. "mostly through a rise of Baetis (48 % of the shift)".
+    /// The taxa that carry the composition difference in words ([`drivers_in_words`]).
     fn drivers(&self, alpha: f64) -> String {
-        let mut clear: Vec<&Taxon> = self
-            .taxa
-            .iter()
-            .filter(|t| t.change.p_adjusted.is_some_and(|p| p <= alpha))
-            .filter(|t| t.change.shape_contribution.is_some())
-            .collect();
-        clear.sort_by(|a, b| {
-            b.change
-                .shape_contribution
-                .unwrap_or(0.0)
-                .total_cmp(&a.change.shape_contribution.unwrap_or(0.0))
-        });
-        if clear.is_empty() {
-            return ", though no single taxon's own change is clear".to_string();
-        }
-        let named: Vec<String> = clear
-            .iter()
-            .take(NAMED_TAXA)
-            .map(|t| {
-                format!(
-                    "a {} of {} ({:.0} % of the shift)",
-                    if t.change.share_change_pp >= 0.0 {
-                        "rise"
-                    } else {
-                        "fall"
-                    },
-                    t.taxon,
-                    100.0 * t.change.shape_contribution.unwrap_or(0.0)
+        drivers_in_words(
+            self.taxa.iter().map(|t| {
+                (
+                    t.taxon.as_str(),
+                    t.change.shape_contribution,
+                    t.change.share_change_pp,
+                    t.change.p_adjusted,
                 )
-            })
-            .collect();
-        format!(", mostly through {}", named.join(" and "))
+            }),
+            alpha,
+        )
     }
 
     /// Whether the p-values are Holm-adjusted.

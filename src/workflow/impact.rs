@@ -7,6 +7,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::analysis::baci::{BaciOptions, BaciRows, BaciShape, BaciSize, baci_shape, baci_size};
+use crate::analysis::taxa::{BaciTaxon, baci_contrast};
 use crate::report::format::fmt_p;
 
 use super::design::{self, ShapeDistance, TermScheme};
@@ -100,8 +101,25 @@ pub struct Outcome {
     pub permutations: usize,
     /// Fingerprint of the matrix analysed.
     pub fingerprint: String,
+    /// The taxa behind the contrast: each taxon's rates in the four cells, its
+    /// ratio of ratios, its shares of the composition and size interactions and
+    /// its own BACI test (docs/methods.md, "Taxa behind the change").
+    pub taxa: Vec<Taxon>,
+    /// How many taxa the table shows (`--taxa`; JSON lists every taxon).
+    #[serde(skip)]
+    pub taxa_shown: usize,
     /// Notes for the user.
     pub notes: Vec<String>,
+}
+
+/// One taxon of the BACI contrast.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Taxon {
+    /// Accepted name at the analysed rank.
+    pub taxon: String,
+    /// Its rates, ratio of ratios, contributions and test.
+    #[serde(flatten)]
+    pub change: BaciTaxon,
 }
 
 impl Analysis for Spec {
@@ -291,6 +309,19 @@ impl Analysis for Spec {
             &opts,
         )
         .map_err(|e| WorkflowError::kernel("BACI composition test", e, &fm))?;
+        progress.stage("impact: each taxon");
+        let all: Vec<usize> = (0..n).collect();
+        let (tc, te) = design::taxon_counts(&m, per_effort, &all);
+        let contrast = baci_contrast(&tc, &te, baci_rows, Some(&opts))
+            .map_err(|e| WorkflowError::kernel("per-taxon BACI contrast", e, &m))?;
+        let taxa: Vec<Taxon> = contrast
+            .taxa
+            .into_iter()
+            .map(|t| Taxon {
+                taxon: m.taxa[t.column].name.clone(),
+                change: t,
+            })
+            .collect();
         progress.finish();
         let alpha = self.alpha;
         let abundance_differs = size.p_value <= alpha;
@@ -324,6 +355,19 @@ impl Analysis for Spec {
             },
             fmt_p(shape.p_value, shape.permutations),
         );
+        if composition_differs {
+            verdict.push_str(&super::compare::drivers_in_words(
+                taxa.iter().map(|t| {
+                    (
+                        t.taxon.as_str(),
+                        t.change.shape_contribution,
+                        t.change.share_change_pp,
+                        t.change.p_adjusted,
+                    )
+                }),
+                alpha,
+            ));
+        }
         if dispersion_differs {
             verdict.push_str(&format!(
                 "; the sites' composition shifts differ in spread between roles (p = {}), \
@@ -371,6 +415,8 @@ impl Analysis for Spec {
             seed: self.seed,
             permutations: self.permutations,
             fingerprint: prepared.fingerprint(),
+            taxa,
+            taxa_shown: super::compare::TAXA_SHOWN,
             notes,
         })
     }

@@ -232,6 +232,40 @@ fn impact_finds_the_lower_reach_decline_and_replays() {
     );
     assert_eq!(v["abundance_differs"], true);
     assert_eq!(v["sites"]["impact"].as_array().unwrap().len(), 6);
+    // The taxa behind the contrast: each taxon's ratio of ratios is its four
+    // rates' (IA/IB)/(CA/CB), the splits of both interactions add up to 1, and
+    // synonyms are counted under their accepted names.
+    let taxa = v["taxa"].as_array().unwrap();
+    assert!(taxa.len() > 10);
+    let f = |t: &Value, k: &str| t[k].as_f64();
+    let (mut shape, mut size) = (0.0, 0.0);
+    for t in taxa {
+        assert_ne!(t["taxon"], "Hydrobia");
+        let rates = [
+            "rate_control_before",
+            "rate_control_after",
+            "rate_impact_before",
+            "rate_impact_after",
+        ]
+        .map(|k| f(t, k).unwrap());
+        if let Some(q) = f(t, "ratio_of_ratios") {
+            let want = (rates[3] / rates[2]) / (rates[1] / rates[0]);
+            assert!(
+                (q - want).abs() < 1e-9 * want,
+                "{}: {q} vs {want}",
+                t["taxon"]
+            );
+            let p = f(t, "p_value").unwrap();
+            assert!(p >= v["size"]["smallest_possible_p"].as_f64().unwrap() - 1e-12);
+            assert!(f(t, "p_adjusted").unwrap() >= p);
+        }
+        shape += f(t, "shape_contribution").unwrap();
+        size += f(t, "size_contribution").unwrap();
+    }
+    assert!(
+        (shape - 1.0).abs() < 1e-9 && (size - 1.0).abs() < 1e-9,
+        "{shape} {size}"
+    );
     let id = v["run_id"].as_i64().unwrap().to_string();
     let out = env.stdout(["runs", "verify", id.as_str()]);
     assert!(
