@@ -142,7 +142,7 @@ fn pcoa_states_negative_eigenvalues_and_csv_has_axes() {
     let mut lines = csv.lines();
     assert_eq!(
         lines.next(),
-        Some("record,label,site,year,group,axis1,axis2,axis3")
+        Some("record,label,site,year,group,axis1,axis2,axis3,contribution")
     );
     assert!(lines.next().unwrap().starts_with("eigenvalue,"));
     assert!(lines.next().unwrap().starts_with("share,"));
