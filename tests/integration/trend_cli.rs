@@ -426,6 +426,26 @@ fn each_taxon_has_its_own_trend_that_replays_and_draws() {
     );
     let shown = env.stdout(["runs", "show", id.as_str()]);
     assert!(shown.contains("--by-taxon"), "{shown}");
+    // CSV: every period, every taxon of the baseline contrast and every taxon's
+    // own trend, one kind per `record`, all lines as wide as the header.
+    let csv = env.stdout([
+        "trend",
+        "--per-effort",
+        "--by-taxon",
+        "--permutations",
+        "19",
+        "--no-store",
+        "--format",
+        "csv",
+    ]);
+    let lines: Vec<Vec<&str>> = csv.lines().map(|l| l.split(',').collect()).collect();
+    assert!(lines.iter().all(|l| l.len() == lines[0].len()), "{csv}");
+    let count = |k: &str| lines.iter().filter(|l| l[0] == k).count();
+    assert_eq!(
+        (count("period"), count("taxon"), count("taxon_trend")),
+        (8, 2, 2),
+        "{csv}"
+    );
     // The table names both; a PNG name and an existing file are refused.
     let table = env.stdout([
         "trend",

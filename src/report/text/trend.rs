@@ -131,7 +131,11 @@ fn footer(o: &Outcome, out: &mut dyn Write) -> io::Result<()> {
     )
 }
 
-const CSV_HEADER: [&str; 13] = [
+/// A `record` column says what a line is: `period` (the per-period table),
+/// `taxon` (a taxon of the baseline contrast) or `taxon_trend` (its own trend,
+/// with `--by-taxon`); the columns of the other kinds are empty.
+const CSV_HEADER: [&str; 28] = [
+    "record",
     "group",
     "period",
     "n",
@@ -145,12 +149,31 @@ const CSV_HEADER: [&str; 13] = [
     "size_part",
     "shape_part",
     "diagnosis",
+    "taxon",
+    "rate_reference",
+    "rate_group",
+    "ratio",
+    "ratio_ci_low",
+    "ratio_ci_high",
+    "share_change_pp",
+    "shape_contribution",
+    "size_contribution",
+    "pct_per_year",
+    "ci_low",
+    "ci_high",
+    "p_value",
+    "p_adjusted",
 ];
+
+/// The columns a `period` line leaves empty.
+const TAXON_COLUMNS: usize = 14;
 
 fn csv_rows<W: Write>(w: &mut csv::Writer<W>, group: &str, o: &Outcome) -> io::Result<()> {
     let c = |v: Option<f64>| csv_num(v.unwrap_or(f64::NAN));
+    let blank = || std::iter::repeat_n(String::new(), TAXON_COLUMNS);
     for p in &o.periods {
-        w.write_record([
+        let mut row = vec![
+            "period".to_string(),
             group.to_string(),
             p.period.clone(),
             p.n.to_string(),
@@ -164,7 +187,49 @@ fn csv_rows<W: Write>(w: &mut csv::Writer<W>, group: &str, o: &Outcome) -> io::R
             c(p.size_part),
             c(p.shape_part),
             o.diagnosis.name().to_string(),
-        ])?;
+        ];
+        row.extend(blank());
+        w.write_record(&row)?;
+    }
+    // The period columns a taxon line leaves empty (all but `group`).
+    let lead = |record: &str, taxon: &str| -> Vec<String> {
+        let mut row = vec![record.to_string(), group.to_string()];
+        row.extend(std::iter::repeat_n(String::new(), 12));
+        row.push(taxon.to_string());
+        row
+    };
+    for t in &o.taxa {
+        let ch = &t.change;
+        let mut row = lead("taxon", &t.taxon);
+        row.extend([
+            csv_num(ch.rate_reference),
+            csv_num(ch.rate_group),
+            c(ch.ratio),
+            c(ch.ratio_ci_low),
+            c(ch.ratio_ci_high),
+            csv_num(ch.share_change_pp),
+            c(ch.shape_contribution),
+            c(ch.size_contribution),
+            String::new(),
+            String::new(),
+            String::new(),
+            c(ch.p_value),
+            c(ch.p_adjusted),
+        ]);
+        w.write_record(&row)?;
+    }
+    for t in o.by_taxon.iter().flat_map(|b| &b.taxa) {
+        let r = &t.trend;
+        let mut row = lead("taxon_trend", &t.taxon);
+        row.extend(std::iter::repeat_n(String::new(), 8));
+        row.extend([
+            c(r.pct_per_year),
+            c(r.ci_low),
+            c(r.ci_high),
+            c(r.p_value),
+            c(r.p_adjusted),
+        ]);
+        w.write_record(&row)?;
     }
     Ok(())
 }
