@@ -31,6 +31,7 @@ pub mod report;
 pub mod runs;
 pub mod selection;
 pub mod selections;
+pub mod shell;
 pub mod summary;
 pub mod taxa;
 pub mod trend;
@@ -70,7 +71,8 @@ impl From<FormatArg> for OutputFormat {
     }
 }
 
-/// The commands.
+/// The commands, in the order of the work: keep the store, build matrices,
+/// analyse, report, follow the stored runs.
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Create an empty store.
@@ -87,26 +89,16 @@ pub enum Command {
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
     Backup(backup::Args),
-    /// The assembled count matrix of a selection.
-    Matrix(matrix::Args),
     /// Saved selections: save, list, show, delete.
     Selections(selections::Args),
-    /// Stored results: list, show, follow a number across runs.
-    Runs(runs::Args),
-    /// Split a dissimilarity into size only, shared, shape only and unexplained.
-    Partition(partition::Args),
-    /// Size and shape of the difference between groups, with a plain-language verdict.
-    Compare(compare::Args),
-    /// Before/after × control/impact (BACI): did the impact sites change differently?
-    Impact(impact::Args),
-    /// Ordination (PCoA, CA, CCA) with group centroid ellipses and an SVG plot.
-    Ordinate(ordinate::Args),
-    /// Write one self-contained HTML report of a selection.
-    Report(report::Args),
-    /// Build the invented Wren Valley demo store and analyse it.
-    Demo(demo::Args),
+    /// The assembled count matrix of a selection.
+    Matrix(matrix::Args),
     /// Dissimilarities between the rows of a selection.
     Distances(distances::Args),
+    /// Size and shape of the difference between groups, with a plain-language verdict.
+    Compare(compare::Args),
+    /// Split a dissimilarity into size only, shared, shape only and unexplained.
+    Partition(partition::Args),
     /// PERMANOVA: do groups differ in composition (location of their centroids)?
     Permanova(permanova::Args),
     /// Do groups differ in multivariate spread (distances to their centroid)?
@@ -115,6 +107,20 @@ pub enum Command {
     Trend(trend::Args),
     /// Richness and Hill numbers, raw and at equal sample coverage, per row, period or group.
     Diversity(diversity::Args),
+    /// Before/after × control/impact (BACI): did the impact sites change differently?
+    Impact(impact::Args),
+    /// Ordination (PCoA, CA, CCA) with group centroid ellipses, taxa and an SVG plot.
+    Ordinate(ordinate::Args),
+    /// Write one self-contained HTML report of a selection.
+    Report(report::Args),
+    /// Stored results: list, show, verify, follow a number across runs.
+    Runs(runs::Args),
+    /// Build the invented Wren Valley demo store and analyse it.
+    Demo(demo::Args),
+    /// Print a shell completion script (bash, zsh, fish, powershell, elvish).
+    Completions(shell::CompletionsArgs),
+    /// Print the manual page (roff), e.g. `tally manual > tally.1`.
+    Manual,
 }
 
 /// Run a parsed command line.
@@ -147,6 +153,8 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Dispersion(args) => dispersion::run(args, &mut open_store(&db)?, &mut out),
         Command::Trend(args) => trend::run(args, &mut open_store(&db)?, &mut out),
         Command::Diversity(args) => diversity::run(args, &mut open_store(&db)?, &mut out),
+        Command::Completions(args) => shell::completions(&args, &mut out),
+        Command::Manual => shell::manual(&mut out),
     };
     result?;
     out.flush()?;

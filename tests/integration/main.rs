@@ -14,6 +14,7 @@ mod reference_distances;
 mod reference_models;
 mod report;
 mod runs_cli;
+mod shell;
 mod store_cli;
 mod taxa;
 mod trend_cli;
