@@ -232,6 +232,26 @@ pub fn refuse_existing(path: &std::path::Path, force: bool) -> anyhow::Result<()
     Ok(())
 }
 
+/// The one rule of every plot flag: tally draws SVG, so the file name must end
+/// in `.svg` (a `.png` name would hold SVG text), and an existing file needs
+/// `--force` ([`refuse_existing`]). Checked before any work.
+///
+/// # Errors
+/// Another extension, or an existing file without `force`.
+pub fn refuse_plot_path(flag: &str, path: &std::path::Path, force: bool) -> anyhow::Result<()> {
+    if !path
+        .extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| e.eq_ignore_ascii_case("svg"))
+    {
+        anyhow::bail!(
+            "{flag} {}: tally draws SVG; nothing was written. Give a file name ending in .svg",
+            path.display()
+        );
+    }
+    refuse_existing(path, force)
+}
+
 /// Write `text` to `path` under [`refuse_existing`].
 ///
 /// # Errors

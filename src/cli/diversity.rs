@@ -7,7 +7,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::{DesignArgs, Progress, RunArgs, finish, refuse_existing, write_new_file};
+use super::common::{DesignArgs, Progress, RunArgs, finish, refuse_plot_path, write_new_file};
 use super::selection::SelectionArgs;
 use super::trend::every_parser;
 use crate::store::Store;
@@ -93,13 +93,7 @@ impl Args {
 /// plot file without `--force`; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot {
-        if p.extension().and_then(|e| e.to_str()) != Some("svg") {
-            anyhow::bail!(
-                "--plot {}: tally draws SVG; give a file name ending in .svg",
-                p.display()
-            );
-        }
-        refuse_existing(p, args.force)?;
+        refuse_plot_path("--plot", p, args.force)?;
     }
     let spec = args.spec(args.run.seed());
     let sel = diversity::resolve(

@@ -10,7 +10,7 @@ use anyhow::{Context, anyhow};
 use clap::ValueEnum;
 
 use super::FormatArg;
-use super::common::{DistanceArgs, Progress, RunArgs, finish, refuse_existing, write_new_file};
+use super::common::{DistanceArgs, Progress, RunArgs, finish, refuse_plot_path, write_new_file};
 use super::selection::{SelectionArgs, prepare};
 use crate::report::format::write_json;
 use crate::report::svg::ordination_svg;
@@ -108,7 +108,7 @@ impl Args {
 /// than two axes; I/O and SQLite errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot {
-        refuse_existing(p, args.force)?;
+        refuse_plot_path("--plot", p, args.force)?;
     }
     let prepared = prepare(store, &args.selection)?;
     let tested = args.method == MethodArg::Cca;

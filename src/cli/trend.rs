@@ -10,7 +10,7 @@ use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 
 use super::FormatArg;
 use super::common::{
-    Progress, RunArgs, distance_parser, finish, parse_permute, parse_size_model, refuse_existing,
+    Progress, RunArgs, distance_parser, finish, parse_permute, parse_size_model, refuse_plot_path,
     shape_distance_parser, transform_parser, write_new_file,
 };
 use super::selection::SelectionArgs;
@@ -139,13 +139,7 @@ fn notes(group: Option<&str>, notes: &[String]) {
 /// selection; analysis refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot_taxa {
-        if p.extension().and_then(|e| e.to_str()) != Some("svg") {
-            anyhow::bail!(
-                "--plot-taxa {}: tally draws SVG; give a file name ending in .svg",
-                p.display()
-            );
-        }
-        refuse_existing(p, args.force)?;
+        refuse_plot_path("--plot-taxa", p, args.force)?;
     }
     let spec = args.spec(args.run.seed());
     let sel = trend::resolve(

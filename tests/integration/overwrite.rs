@@ -10,7 +10,7 @@ const SEL: [&str; 5] = ["--protocol", "kick", "--per-effort", "--unit", "site-ye
 #[test]
 fn existing_files_are_kept_unless_forced() {
     let env = TestEnv::with_demo_data();
-    let keep = env.write("keep.txt", "the analyst's own notes\n");
+    let keep = env.write("keep.svg", "the analyst's own notes\n");
     let keep_s = keep.to_string_lossy().to_string();
     let commands: Vec<Vec<&str>> = vec![
         [
@@ -73,4 +73,41 @@ fn existing_files_are_kept_unless_forced() {
     assert_eq!(code, 1, "{err}");
     assert!(err.contains("store being copied"), "{err}");
     assert_eq!(before, env.dump());
+}
+
+#[test]
+fn plots_are_svg_files_or_nothing_is_written() {
+    // tally draws SVG: a plot name with another extension is refused before any
+    // work, whichever command draws it.
+    let env = TestEnv::with_demo_data();
+    let png = env.path("plot.png");
+    let png_s = png.to_string_lossy().to_string();
+    let commands: Vec<Vec<&str>> = vec![
+        [
+            vec!["ordinate", "--method", "ca", "--plot", png_s.as_str()],
+            SEL.to_vec(),
+        ]
+        .concat(),
+        [
+            vec!["diversity", "--plot", png_s.as_str()],
+            SEL[..2].to_vec(),
+        ]
+        .concat(),
+        [
+            vec!["trend", "--plot-taxa", png_s.as_str()],
+            SEL[..3].to_vec(),
+        ]
+        .concat(),
+    ];
+    for args in &commands {
+        let before = env.dump();
+        let (code, _, err) = env.run(args);
+        assert_eq!(code, 1, "{args:?}: {err}");
+        assert!(
+            err.contains("tally draws SVG") && err.contains("nothing was written"),
+            "{err}"
+        );
+        assert!(!png.exists(), "{args:?} wrote the file");
+        assert_eq!(before, env.dump(), "{args:?} changed the store");
+    }
 }
