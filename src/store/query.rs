@@ -103,9 +103,7 @@ impl Selection {
                 match chrono::NaiveDate::parse_from_str(text.trim(), "%Y-%m-%d") {
                     Ok(date) => *text = date.format("%Y-%m-%d").to_string(),
                     Err(_) => {
-                        return refuse(format!(
-                            "{flag} '{text}': expected an ISO 8601 date YYYY-MM-DD"
-                        ));
+                        return refuse(date_problem(flag, text));
                     }
                 }
             }
@@ -523,6 +521,33 @@ impl Store {
         }
         Ok(StoreError::Refused("the selection is empty".into()))
     }
+}
+
+/// Why `text` is not a date of `flag`: a well-formed date that does not exist
+/// (2020-02-30) is named as such, with the last day of its month; anything else
+/// is a format problem.
+fn date_problem(flag: &str, text: &str) -> String {
+    let parts: Vec<&str> = text.trim().split('-').collect();
+    if let [y, m, d] = parts[..]
+        && y.len() == 4
+        && m.len() == 2
+        && d.len() == 2
+        && let (Ok(y), Ok(m), Ok(d)) = (y.parse::<i32>(), m.parse::<u32>(), d.parse::<u32>())
+    {
+        if !(1..=12).contains(&m) {
+            return format!("{flag} '{text}': there is no month {m}; months run from 01 to 12");
+        }
+        let last = (28..=31)
+            .rev()
+            .find(|&day| chrono::NaiveDate::from_ymd_opt(y, m, day).is_some())
+            .unwrap_or(28);
+        if d == 0 || d > last {
+            return format!(
+                "{flag} '{text}': that day does not exist ({y}-{m:02} has {last} days)"
+            );
+        }
+    }
+    format!("{flag} '{text}': expected an ISO 8601 date YYYY-MM-DD")
 }
 
 #[cfg(test)]
@@ -1141,5 +1166,15 @@ mod tests {
             m.field_numeric("habitat"),
             Err(MatrixError::NotNumeric { .. })
         ));
+    }
+
+    #[test]
+    fn dates_that_do_not_exist_are_named_as_such() {
+        // The Gregorian calendar: 2020 is a leap year, 2019 is not (common practice, no source).
+        assert!(date_problem("--from", "2020-02-30").contains("2020-02 has 29 days"));
+        assert!(date_problem("--from", "2019-02-29").contains("2019-02 has 28 days"));
+        assert!(date_problem("--to", "2021-04-31").contains("30 days"));
+        assert!(date_problem("--to", "2021-13-01").contains("no month 13"));
+        assert!(date_problem("--to", "20210401").contains("expected an ISO 8601 date"));
     }
 }
