@@ -376,8 +376,9 @@ impl Store {
     /// counts, the whole taxonomy and the attributes of the selected sites.
     ///
     /// # Errors
-    /// [`StoreError::Refused`] for an invalid selection;
-    /// [`StoreError::NotFound`] for an unknown site or protocol code;
+    /// [`StoreError::Refused`] for an invalid selection, an unknown site or
+    /// protocol code, or a `--site-where` key or value no site has (each naming
+    /// what exists and the closest);
     /// [`StoreError::EmptySelection`] naming the filter after which no event
     /// was left; SQLite errors.
     pub fn select_records(&self, selection: &Selection) -> Result<Records> {
@@ -390,10 +391,11 @@ impl Store {
                     r.get(0)
                 })?;
             if n == 0 {
-                return Err(StoreError::NotFound {
-                    what: "site",
-                    name: code.clone(),
-                });
+                let codes = self.codes("SELECT code FROM site ORDER BY code")?;
+                return Err(StoreError::Refused(format!(
+                    "--site {code}: no such site{} (`tally summary` lists the sites)",
+                    known("sites", &codes, code)
+                )));
             }
         }
         if let Some(p) = &sel.protocol {
@@ -402,12 +404,14 @@ impl Store {
                     r.get(0)
                 })?;
             if n == 0 {
-                return Err(StoreError::NotFound {
-                    what: "protocol",
-                    name: p.clone(),
-                });
+                let codes = self.codes("SELECT code FROM protocol ORDER BY code")?;
+                return Err(StoreError::Refused(format!(
+                    "--protocol {p}: no such protocol{}",
+                    known("protocols", &codes, p)
+                )));
             }
         }
+        self.check_site_where(&sel.site_where)?;
         let filters = sel.filters();
         let (wh, params) = where_clause(&filters);
 
@@ -492,6 +496,49 @@ impl Store {
         })
     }
 
+    /// The first column of every row of `sql` (no parameters).
+    fn codes(&self, sql: &str) -> Result<Vec<String>> {
+        let mut stmt = self.conn().prepare(sql)?;
+        let rows = stmt
+            .query_map([], |r| r.get::<_, String>(0))?
+            .collect::<rusqlite::Result<Vec<String>>>()?;
+        Ok(rows)
+    }
+
+    /// Refuse a `--site-where` key that no site has, or a value no site has for
+    /// its key, naming the ones that exist and the closest.
+    fn check_site_where(&self, pairs: &[(String, String)]) -> Result<()> {
+        let conn = self.conn();
+        let list = |sql: &str, arg: Option<&str>| -> Result<Vec<String>> {
+            let mut stmt = conn.prepare(sql)?;
+            let rows: rusqlite::Result<Vec<String>> = match arg {
+                Some(a) => stmt.query_map([a], |r| r.get::<_, String>(0))?.collect(),
+                None => stmt.query_map([], |r| r.get::<_, String>(0))?.collect(),
+            };
+            Ok(rows?)
+        };
+        for (k, v) in pairs {
+            let keys = list("SELECT DISTINCT key FROM site_attribute ORDER BY key", None)?;
+            if !keys.contains(k) {
+                return Err(StoreError::Refused(format!(
+                    "--site-where {k}={v}: no site has the attribute '{k}'{}",
+                    known("attributes", &keys, k)
+                )));
+            }
+            let values = list(
+                "SELECT DISTINCT value FROM site_attribute WHERE key = ? ORDER BY value",
+                Some(k),
+            )?;
+            if !values.contains(v) {
+                return Err(StoreError::Refused(format!(
+                    "--site-where {k}={v}: no site has {k} = '{v}'{}",
+                    known(&format!("values of {k}"), &values, v)
+                )));
+            }
+        }
+        Ok(())
+    }
+
     /// Find the first filter after which no event is left.
     fn diagnose_empty(&self, filters: &[Filter]) -> Result<StoreError> {
         let total: i64 = self
@@ -521,6 +568,33 @@ impl Store {
         }
         Ok(StoreError::Refused("the selection is empty".into()))
     }
+}
+
+/// "; attributes: a, b, c (closest: 'b')": what exists instead of `wrong`, at
+/// most 12 names, with the closest by Jaro–Winkler similarity when it is close.
+fn known(what: &str, names: &[String], wrong: &str) -> String {
+    if names.is_empty() {
+        return format!("; the store has no {what} yet");
+    }
+    let shown: Vec<&str> = names.iter().take(12).map(String::as_str).collect();
+    let more = if names.len() > shown.len() {
+        format!(" and {} more", names.len() - shown.len())
+    } else {
+        String::new()
+    };
+    let closest = names
+        .iter()
+        .map(|n| {
+            (
+                strsim::jaro_winkler(&n.to_lowercase(), &wrong.to_lowercase()),
+                n,
+            )
+        })
+        .filter(|(score, _)| *score >= 0.8)
+        .max_by(|a, b| a.0.total_cmp(&b.0))
+        .map(|(_, n)| format!(" (closest: '{n}')"))
+        .unwrap_or_default();
+    format!("; {what}: {}{more}{closest}", shown.join(", "))
 }
 
 /// Why `text` is not a date of `flag`: a well-formed date that does not exist
@@ -1019,11 +1093,26 @@ mod tests {
             }) => (filter, matched_before),
             other => panic!("expected an empty selection, got {other:?}"),
         };
+        // A value no site has is refused with the values that exist.
         let sel = Selection {
             site_where: vec![("reach".into(), "middle".into())],
             ..Default::default()
         };
-        assert_eq!(empty(sel), ("--site-where reach=middle".to_string(), 10));
+        match s.select_records(&sel) {
+            Err(StoreError::Refused(m)) => {
+                assert!(m.contains("values of reach: lower, upper"), "{m}");
+            }
+            other => panic!("expected a refusal, got {other:?}"),
+        }
+        // Values that exist but leave nothing together name the filter.
+        let sel = Selection {
+            sites: vec!["S3".into()],
+            site_where: vec![("reach".into(), "lower".into())],
+            ..Default::default()
+        };
+        let (filter, before) = empty(sel);
+        assert_eq!(filter, "--site-where reach=lower");
+        assert!(before > 0);
         let sel = Selection {
             sites: vec!["S1".into()],
             years: Some((2020, 2021)),
@@ -1047,10 +1136,12 @@ mod tests {
             sites: vec!["S9".into()],
             ..Default::default()
         };
-        assert!(matches!(
-            s.select_records(&unknown),
-            Err(StoreError::NotFound { what: "site", .. })
-        ));
+        match s.select_records(&unknown) {
+            Err(StoreError::Refused(m)) => {
+                assert!(m.contains("no such site; sites: S1, S2, S3"), "{m}");
+            }
+            other => panic!("expected a refusal, got {other:?}"),
+        }
         let bad = Selection {
             from: Some("2016-13-01".into()),
             ..Default::default()

@@ -169,3 +169,35 @@ fn saved_selections_with_explicit_overrides() {
     env.cmd(["selections", "show", "lower"]).assert().code(1);
     env.cmd(["matrix", "--selection", "lower"]).assert().code(1);
 }
+
+#[test]
+fn unknown_names_in_a_selection_are_named_with_what_exists() {
+    let env = TestEnv::with_demo_data();
+    let before = env.dump();
+    for (args, want) in [
+        (
+            vec!["--site-where", "reech=lower"],
+            "no site has the attribute 'reech'; attributes: habitat, reach (closest: 'reach')",
+        ),
+        (
+            vec!["--site-where", "reach=lowr"],
+            "values of reach: lower, middle, upper (closest: 'lower')",
+        ),
+        (
+            vec!["--protocol", "kik"],
+            "protocols: kick, quadrat (closest: 'kick')",
+        ),
+        (vec!["--site", "X99"], "no such site"),
+        (
+            vec!["--from", "2020-02-30"],
+            "that day does not exist (2020-02 has 29 days)",
+        ),
+    ] {
+        let mut all = vec!["matrix"];
+        all.extend(args.iter().copied());
+        let (code, out, err) = env.run(&all);
+        assert_eq!(code, 1, "{args:?}: {err}");
+        assert!(out.is_empty() && err.contains(want), "{args:?}: {err}");
+    }
+    assert_eq!(before, env.dump());
+}
