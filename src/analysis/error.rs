@@ -56,6 +56,16 @@ pub enum AnalysisError {
         /// Minimum needed.
         min: usize,
     },
+    /// Too few distinct years for a trend.
+    #[error(
+        "too few years: the rows cover {found} year(s), a trend needs at least {min}; widen the years of the selection"
+    )]
+    TooFewYears {
+        /// Distinct years found.
+        found: usize,
+        /// Minimum needed.
+        min: usize,
+    },
     /// A group has too few members.
     #[error("group {group} has {found} sample(s), need at least {min}")]
     GroupTooSmall {
@@ -68,7 +78,7 @@ pub enum AnalysisError {
     },
     /// The model leaves no residual degrees of freedom.
     #[error(
-        "model saturated: {rank} model columns for {n} samples leave no residual degrees of freedom"
+        "too few samples for the model: it has {rank} columns (the intercept, the groups, sites or years it must separate) and there are {n} samples, so nothing is left to measure the scatter against; add samples or use a simpler design"
     )]
     Saturated {
         /// Rank of the full design including the intercept.

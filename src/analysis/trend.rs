@@ -867,7 +867,7 @@ impl SizeSide {
 /// [`AnalysisError::DimensionMismatch`] when inputs disagree in length;
 /// [`AnalysisError::NonFinite`] for a non-finite log abundance, count or effort;
 /// [`AnalysisError::Negative`] for a negative count;
-/// [`AnalysisError::TooFewGroups`] for fewer than 3 years (4 with a breakpoint
+/// [`AnalysisError::TooFewYears`] for fewer than 3 years (4 with a breakpoint
 /// search); [`AnalysisError::InvalidArgument`] for a baseline with no samples,
 /// a given breakpoint year without a year on each side, a shape row whose year
 /// has no count row, non-positive effort, or alpha outside (0, 1);
@@ -964,7 +964,7 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
         3
     };
     if k < min_years {
-        return Err(AnalysisError::TooFewGroups {
+        return Err(AnalysisError::TooFewYears {
             found: k,
             min: min_years,
         });
@@ -1349,7 +1349,7 @@ pub struct LogTrend {
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`]; [`AnalysisError::NonFinite`] or
 /// [`AnalysisError::InvalidArgument`] for a value that is not finite and
-/// positive; [`AnalysisError::TooFewGroups`] for fewer than 3 years;
+/// positive; [`AnalysisError::TooFewYears`] for fewer than 3 years;
 /// [`AnalysisError::Saturated`]; year confounded with site.
 pub fn log_trend(
     values: &[f64],
@@ -1381,7 +1381,7 @@ pub fn log_trend(
     let years = labels.years().to_vec();
     let k = years.len();
     if k < 3 {
-        return Err(AnalysisError::TooFewGroups { found: k, min: 3 });
+        return Err(AnalysisError::TooFewYears { found: k, min: 3 });
     }
     let site = recode(site);
     let season = season.map(recode);
@@ -1506,7 +1506,7 @@ fn slope_has_estimate(count: &[f64], code: &[usize], site: &[usize]) -> bool {
 /// # Errors
 /// [`AnalysisError::DimensionMismatch`]; [`AnalysisError::NonFinite`] or
 /// [`AnalysisError::Negative`] for bad counts; [`AnalysisError::InvalidArgument`]
-/// for effort that is not positive; [`AnalysisError::TooFewGroups`] for fewer
+/// for effort that is not positive; [`AnalysisError::TooFewYears`] for fewer
 /// than 3 years; the relabellings' errors.
 pub fn taxon_trends(
     counts: &DMatrix<f64>,
@@ -1552,7 +1552,7 @@ pub fn taxon_trends(
     let years = labels.years().to_vec();
     let k = years.len();
     if k < 3 {
-        return Err(AnalysisError::TooFewGroups { found: k, min: 3 });
+        return Err(AnalysisError::TooFewYears { found: k, min: 3 });
     }
     let site = recode(site);
     let season = season.map(recode);

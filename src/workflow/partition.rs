@@ -293,9 +293,10 @@ impl Spec {
         match e {
             AnalysisError::Saturated { rank, n } if rank >= n || self.shape_axes.is_some() => {
                 WorkflowError::Refused(format!(
-                    "model saturated: size and {} shape dimension(s) need {rank} model columns \
-                     (intercept included) for {n} samples, leaving no residual variation to test \
-                     against; select more samples or fewer shape axes (--shape-axes K with K <= {})",
+                    "too few samples for the model: size and {} shape dimension(s) need {rank} \
+                     model columns (intercept included) for {n} samples, leaving nothing to \
+                     measure the scatter against; select more samples or fewer shape axes \
+                     (--shape-axes K with K <= {})",
                     rank.saturating_sub(2),
                     n.saturating_sub(3)
                 ))
