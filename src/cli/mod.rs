@@ -44,6 +44,9 @@ pub struct Cli {
     /// The store file [default: $TALLY_DB, else ./tally.db; for `demo`: ./tally-demo.db].
     #[arg(long, global = true)]
     pub db: Option<PathBuf>,
+    /// Print no notes on stderr (errors are still printed; results are unchanged).
+    #[arg(long, global = true)]
+    pub quiet: bool,
     /// The command.
     #[command(subcommand)]
     pub command: Command,
@@ -130,6 +133,7 @@ pub enum Command {
 pub fn run(cli: Cli) -> anyhow::Result<()> {
     let stdout = std::io::stdout();
     let mut out = std::io::BufWriter::new(stdout.lock());
+    QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &db, &mut out),
@@ -188,8 +192,27 @@ pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
     })
 }
 
-/// Print a note on stderr (notes and progress are talk, not data).
+/// Set by `--quiet`: notes are not printed.
+static QUIET: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// The notes printed so far in this process.
+static SEEN: std::sync::Mutex<Vec<String>> = std::sync::Mutex::new(Vec::new());
+
+/// Print a note on stderr (notes and progress are talk, not data), once per
+/// process however many analyses raise it, and not at all under `--quiet`.
 pub fn note(msg: &str) {
+    if QUIET.load(std::sync::atomic::Ordering::Relaxed) {
+        return;
+    }
+    {
+        let mut seen = SEEN
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner);
+        if seen.iter().any(|m| m == msg) {
+            return;
+        }
+        seen.push(msg.to_string());
+    }
     #[allow(clippy::print_stderr)]
     {
         eprintln!("tally: {msg}");

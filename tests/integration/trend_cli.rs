@@ -471,3 +471,35 @@ fn each_taxon_has_its_own_trend_that_replays_and_draws() {
         assert!(err.contains(want), "{name}: {err}");
     }
 }
+
+#[test]
+fn notes_are_printed_once_and_quiet_silences_them() {
+    let env = demo();
+    let args = [
+        "trend",
+        "--protocol",
+        "kick",
+        "--per-effort",
+        "--split-by",
+        "reach",
+        "--permutations",
+        "19",
+        "--seed",
+        "4",
+        "--no-store",
+    ];
+    let (code, out, err) = env.run(args);
+    assert_eq!(code, 0, "{err}");
+    assert!(!err.is_empty());
+    let lines: Vec<&str> = err.lines().collect();
+    let mut unique = lines.clone();
+    unique.sort_unstable();
+    unique.dedup();
+    assert_eq!(unique.len(), lines.len(), "{err}");
+    let mut quiet = vec!["--quiet"];
+    quiet.extend(args);
+    let (code, quiet_out, quiet_err) = env.run(&quiet);
+    assert_eq!(code, 0, "{quiet_err}");
+    assert!(quiet_err.is_empty(), "{quiet_err}");
+    assert_eq!(out, quiet_out);
+}
