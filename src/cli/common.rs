@@ -66,13 +66,40 @@ pub struct RunArgs {
 impl RunArgs {
     /// The seed to use: the given one, or a fresh random one (announced on stderr).
     pub fn seed(&self) -> u64 {
-        match self.seed {
-            Some(s) => s,
-            None => {
-                let s: u64 = rand::random();
-                super::note(&format!("seed {s} (give --seed {s} to repeat this run)"));
-                s
-            }
+        seed_or_draw(self.seed)
+    }
+}
+
+/// [`RunArgs`] without `--format`, for a command whose output is a file
+/// (`report`): permutations, seed and storage of the runs it makes.
+#[derive(Debug, Clone, clap::Args)]
+pub struct FileRunArgs {
+    /// Number of random permutations for each test.
+    #[arg(long, default_value_t = 9999)]
+    pub permutations: usize,
+    /// Seed of the random streams (a random seed is drawn, printed and stored when absent).
+    #[arg(long)]
+    pub seed: Option<u64>,
+    /// Do not store the results as runs.
+    #[arg(long)]
+    pub no_store: bool,
+}
+
+impl FileRunArgs {
+    /// The seed to use: the given one, or a fresh random one (announced on stderr).
+    pub fn seed(&self) -> u64 {
+        seed_or_draw(self.seed)
+    }
+}
+
+/// `seed`, or a fresh random seed, announced on stderr with how to repeat the run.
+fn seed_or_draw(seed: Option<u64>) -> u64 {
+    match seed {
+        Some(s) => s,
+        None => {
+            let s: u64 = rand::random();
+            super::note(&format!("seed {s} (give --seed {s} to repeat this run)"));
+            s
         }
     }
 }

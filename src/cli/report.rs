@@ -13,7 +13,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::{DesignArgs, RunArgs, refuse_existing, write_new_file};
+use super::common::{DesignArgs, FileRunArgs, refuse_existing, write_new_file};
 use super::common::{Periods, parse_periods};
 use super::selection::SelectionArgs;
 use crate::report::{html, input};
@@ -48,7 +48,7 @@ pub struct Args {
     pub force: bool,
     /// Permutations, seed, storage of the runs made for the report.
     #[command(flatten)]
-    pub run: RunArgs,
+    pub run: FileRunArgs,
 }
 
 impl Args {

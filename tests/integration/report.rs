@@ -695,3 +695,12 @@ fn the_commands_the_report_prints_reproduce_its_numbers() {
         }
     }
 }
+
+#[test]
+fn report_takes_no_format_flag() {
+    // The report is one HTML file: a --format flag would do nothing, so it is refused.
+    let env = TestEnv::new();
+    let (code, _, err) = env.run(["report", "--out", "r.html", "--format", "json"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("--format"), "{err}");
+}
