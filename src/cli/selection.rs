@@ -67,7 +67,8 @@ pub struct SelectionArgs {
     /// Drop taxa present in fewer than N rows.
     #[arg(long, value_name = "N")]
     pub min_occurrences: Option<usize>,
-    /// What one row of the matrix is [default: event].
+    /// What one row of the matrix is [default: event; `trend` and, with --every,
+    /// `diversity` pool per site and period].
     #[arg(long, value_enum)]
     pub unit: Option<UnitArg>,
     /// Divide pooled counts by pooled effort.
