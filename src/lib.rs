@@ -19,6 +19,7 @@ pub mod demo;
 pub mod matrix;
 pub mod report;
 pub mod store;
+pub mod words;
 pub mod workflow;
 
 /// The tool version recorded with every stored run.

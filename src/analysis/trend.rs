@@ -717,10 +717,10 @@ impl SizeSide {
             .collect();
         if !zero_sites.is_empty() {
             notes.push(format!(
-                "{} site(s) caught nothing in any period: a site effect cannot be estimated \
+                "{} caught nothing in any period: a site effect cannot be estimated \
                  from zeros alone, and such a site says nothing about change, so its rows are \
                  left out of the size trend",
-                zero_sites.len()
+                crate::words::count(zero_sites.len(), "site", "sites")
             ));
         }
         if let Some(season) = c.season {
@@ -731,8 +731,8 @@ impl SizeSide {
             if !zero.is_empty() {
                 keep.retain(|&i| !zero.contains(&season[i]));
                 notes.push(format!(
-                    "{} season(s) caught nothing in any year: left out of the size trend",
-                    zero.len()
+                    "{} caught nothing in any year: left out of the size trend",
+                    crate::words::count(zero.len(), "season", "seasons")
                 ));
             }
         }
@@ -1110,8 +1110,8 @@ pub fn trend(data: &TrendData<'_>, opts: &TrendOptions) -> Result<TrendResult, A
     }
     if !few.is_empty() {
         notes.push(format!(
-            "{} period(s) with fewer than {min} samples (or a comparison group that small) are listed without summaries",
-            few.len(),
+            "{} with fewer than {min} samples (or a comparison group that small) listed without summaries",
+            crate::words::count(few.len(), "period", "periods"),
         ));
     }
     if shape_few > 0 {

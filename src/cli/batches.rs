@@ -41,16 +41,19 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         let m = r.removed;
         writeln!(
             out,
-            "removed batch {} ({}): {} site(s), {} protocol(s), {} taxa, {} event(s), {} count(s){}",
+            "removed batch {} ({}): {}, {}, {}, {}, {}{}",
             r.batch_id,
             r.file,
-            m.sites,
-            m.protocols,
-            m.taxa,
-            m.events,
-            m.counts,
+            crate::words::count(m.sites, "site", "sites"),
+            crate::words::count(m.protocols, "protocol", "protocols"),
+            crate::words::count(m.taxa, "taxon", "taxa"),
+            crate::words::count(m.events, "event", "events"),
+            crate::words::count(m.counts, "count", "counts"),
             if r.restored > 0 {
-                format!("; {} overwritten count(s) put back", r.restored)
+                format!(
+                    "; {} put back",
+                    crate::words::count(r.restored, "overwritten count", "overwritten counts")
+                )
             } else {
                 String::new()
             }

@@ -31,5 +31,8 @@ pub fn run(_args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Resul
     for line in &r.taxonomy {
         writeln!(out, "taxonomy: {line}")?;
     }
-    anyhow::bail!("the store has {} problem(s)", r.problems())
+    anyhow::bail!(
+        "the store has {}",
+        crate::words::count(r.problems(), "problem", "problems")
+    )
 }

@@ -89,10 +89,14 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     let mut parts = Vec::new();
     match kind {
         ImportKind::Records => {
-            parts.push(format!("{} new event(s)", report.written));
-            parts.push(format!("{} count(s)", report.counts));
+            parts.push(format!(
+                "{} new {}",
+                report.written,
+                crate::words::noun(&report.written, "event", "events")
+            ));
+            parts.push(crate::words::count(report.counts, "count", "counts"));
         }
-        ImportKind::Counts => parts.push(format!("{} count(s)", report.counts)),
+        ImportKind::Counts => parts.push(crate::words::count(report.counts, "count", "counts")),
         _ => parts.push(format!("{} new {kind}", report.written)),
     }
     if report.unchanged > 0 {
@@ -106,8 +110,8 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     }
     writeln!(
         out,
-        "imported {} row(s) of {kind} from {} as batch {}: {}",
-        report.rows,
+        "imported {} of {kind} from {} as batch {}: {}",
+        crate::words::count(report.rows, "row", "rows"),
         report.file,
         report.batch_id,
         parts.join(", ")

@@ -63,8 +63,12 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             };
             writeln!(
                 out,
-                "{} site(s), {} event(s), {} taxa, {} count(s) in {} batch(es); {span}",
-                s.sites, s.events, s.taxa, s.counts, s.batches
+                "{}, {}, {}, {} in {}; {span}",
+                crate::words::count(s.sites, "site", "sites"),
+                crate::words::count(s.events, "event", "events"),
+                crate::words::count(s.taxa, "taxon", "taxa"),
+                crate::words::count(s.counts, "count", "counts"),
+                crate::words::count(s.batches, "batch", "batches")
             )?;
             if !s.protocols.is_empty() {
                 let mut t = new_table(&["protocol", "effort unit", "events", "total effort"]);

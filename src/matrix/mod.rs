@@ -360,8 +360,8 @@ impl CountMatrix {
         if !outside.is_empty() {
             let shown: Vec<&str> = outside.iter().take(5).map(String::as_str).collect();
             notes.push(format!(
-                "{} row(s) outside every period dropped ({}{})",
-                outside.len(),
+                "{} outside every period dropped ({}{})",
+                crate::words::count(outside.len(), "row", "rows"),
                 shown.join(", "),
                 if outside.len() > 5 { ", …" } else { "" }
             ));
@@ -512,7 +512,7 @@ mod tests {
         );
         assert_eq!(p.values.nrows(), 3);
         assert_eq!(p.values[(2, 0)], 3.0);
-        assert!(p.notes.iter().any(|n| n.contains("1 row(s) outside")));
+        assert!(p.notes.iter().any(|n| n.contains("1 row outside")));
         assert!(m.with_periods(&[(2008, 2016), (2016, 2025)]).is_err());
         assert!(m.with_periods(&[(1990, 1999)]).is_err());
         m.samples[0].last_year = 2016;

@@ -812,7 +812,9 @@ pub fn totals_svg(plot: &TotalsPlot) -> Result<String, SvgError> {
     ];
     if zeros > 0 {
         notes.push(format!(
-            "{zeros} sample(s) with no organisms are drawn on the bottom edge."
+            "{} with no organisms {} drawn on the bottom edge.",
+            crate::words::count(zeros, "sample", "samples"),
+            crate::words::noun(&zeros, "is", "are")
         ));
     }
     let mut out = String::new();
@@ -2017,7 +2019,7 @@ mod tests {
         assert!(has_text(&doc, "Organisms per trap-night (log scale)"));
         assert!(has_text(
             &doc,
-            "1 sample(s) with no organisms are drawn on the bottom edge."
+            "1 sample with no organisms is drawn on the bottom edge."
         ));
         assert!(has_text(&doc, "Reaches L, M, U; 2019"));
         let bad = TotalsPlot {

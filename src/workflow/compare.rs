@@ -807,9 +807,9 @@ impl Spec {
                     .map(|i| m.samples[i].label.clone())
                     .collect();
                 notes.push(format!(
-                    "{} row(s) caught nothing: they count in the size test and are left out of \
+                    "{} caught nothing: they count in the size test and are left out of \
                      the composition and dispersion tests, which need a composition ({}{})",
-                    empty.len(),
+                    crate::words::count(empty.len(), "row", "rows"),
                     empty.iter().take(5).cloned().collect::<Vec<_>>().join(", "),
                     if empty.len() > 5 { ", …" } else { "" }
                 ));

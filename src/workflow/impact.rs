@@ -150,8 +150,8 @@ impl Analysis for Spec {
             .collect();
         if keep.len() < full.samples.len() {
             notes.push(format!(
-                "{} row(s) outside {}..{} and {}..{} left out",
-                full.samples.len() - keep.len(),
+                "{} outside {}..{} and {}..{} left out",
+                crate::words::count(full.samples.len() - keep.len(), "row", "rows"),
                 b.0,
                 b.1,
                 a.0,
@@ -202,7 +202,8 @@ impl Analysis for Spec {
             .collect();
         if !dropped.is_empty() {
             notes.push(format!(
-                "site(s) without rows in both periods, or that caught nothing, left out: {}",
+                "{} without rows in both periods, or that caught nothing, left out: {}",
+                crate::words::noun(&dropped.len(), "a site", "sites"),
                 dropped.join(", ")
             ));
         }
@@ -246,9 +247,9 @@ impl Analysis for Spec {
         if roles.impact.is_empty() || roles.control.is_empty() {
             return Err(WorkflowError::Refused(format!(
                 "BACI needs impact and control sites with rows before and after: this selection \
-                 has {} impact and {} control site(s)",
+                 has {} impact and {}",
                 roles.impact.len(),
-                roles.control.len()
+                crate::words::count(roles.control.len(), "control site", "control sites")
             )));
         }
         let mut years: Vec<i32> = m.samples.iter().map(|s| s.year).collect();
@@ -282,9 +283,9 @@ impl Analysis for Spec {
         let filled: Vec<usize> = (0..n).filter(|&i| totals[i] > 0.0).collect();
         if filled.len() < n {
             notes.push(format!(
-                "{} row(s) caught nothing: they count in the size test and are left out of the \
+                "{} caught nothing: they count in the size test and are left out of the \
                  composition test",
-                n - filled.len()
+                crate::words::count(n - filled.len(), "row", "rows")
             ));
         }
         let fm = m.select_rows(&filled);
@@ -378,10 +379,10 @@ impl Analysis for Spec {
         let smallest = size.smallest_possible_p.max(shape.smallest_possible_p);
         if smallest > alpha {
             verdict.push_str(&format!(
-                "; with {} impact and {} control site(s) no p-value can be below {:.3}, so this \
+                "; with {} impact and {} no p-value can be below {:.3}, so this \
                  design cannot reach p ≤ {alpha}: add sites",
                 roles.impact.len(),
-                roles.control.len(),
+                crate::words::count(roles.control.len(), "control site", "control sites"),
                 smallest
             ));
         }

@@ -439,7 +439,8 @@ fn counts_without_empty_taxa(
     let (y, dropped) = m.drop_empty_taxa();
     if dropped > 0 {
         notes.push(format!(
-            "{dropped} taxon column(s) with no organisms left out"
+            "{} with no organisms left out",
+            crate::words::count(dropped, "taxon column", "taxon columns")
         ));
     }
     let names = y.taxa.iter().map(|t| t.name.clone()).collect();
@@ -521,8 +522,11 @@ impl Spec {
             .collect();
         let negatives: Vec<f64> = p.eigenvalues.iter().copied().filter(|v| *v < 0.0).collect();
         notes.push(format!(
-            "{} negative eigenvalue(s) carry {:.2}% of the absolute eigenvalue sum ({} is {}Euclidean)",
-            negatives.len(),
+            "{} {:.2}% of the absolute eigenvalue sum ({} is {}Euclidean)",
+            match negatives.len() {
+                1 => "1 negative eigenvalue carries".to_string(),
+                k => format!("{k} negative eigenvalues carry"),
+            },
             100.0 * p.negative_inertia_share,
             self.distance.distance.name(),
             if negatives.is_empty() { "" } else { "not " }

@@ -655,9 +655,9 @@ impl Analysis for Spec {
                 .map(|i| m.samples[i].label.as_str())
                 .collect();
             notes.push(format!(
-                "{} row(s) caught nothing: they count in the size trend and are left out of the \
+                "{} caught nothing: they count in the size trend and are left out of the \
                  shape trend and the composition summaries, which need a composition ({}{})",
-                empty.len(),
+                crate::words::count(empty.len(), "row", "rows"),
                 empty.iter().take(5).copied().collect::<Vec<_>>().join(", "),
                 if empty.len() > 5 { ", …" } else { "" }
             ));

@@ -117,10 +117,7 @@ fn bom_crlf_semicolon_and_tab_files_import_alike() {
             path.as_os_str(),
         ]);
         assert_eq!(code, 0, "{name}: {err}");
-        assert!(
-            err.contains("imported 4 row(s) of records"),
-            "{name}: {err}"
-        );
+        assert!(err.contains("imported 4 rows of records"), "{name}: {err}");
         let json: serde_json::Value =
             serde_json::from_str(&env.stdout(["summary", "--format", "json"])).unwrap();
         summaries.push((
@@ -219,7 +216,7 @@ fn replace_overwrites_and_undo_restores() {
     assert_eq!(code, 1);
     assert!(err.contains("batch 6"), "{err}");
     let out = env.stdout(["batches", "undo", "6"]);
-    assert!(out.contains("1 overwritten count(s) put back"), "{out}");
+    assert!(out.contains("1 overwritten count put back"), "{out}");
     assert_eq!(env.dump(), original);
 }
 

@@ -337,7 +337,7 @@ fn check_names_a_loop_planted_through_sql() {
         ),
         "{out}"
     );
-    assert!(err.contains("2 problem(s)"), "{err}");
+    assert!(err.contains("the store has 2 problems"), "{err}");
     // The tree says what it cannot show.
     let o = env.cmd(["taxa", "tree"]).output().unwrap();
     assert!(
