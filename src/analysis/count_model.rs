@@ -404,6 +404,48 @@ pub fn rate_log_variance(y: &[f64], e: &[f64]) -> (f64, Option<f64>) {
     (r, Some(var / (r * r)))
 }
 
+/// The inputs of a per-taxon count model: `counts` (rows × taxa) finite and
+/// non-negative, `effort` positive, and every slice of `lens` as long as the
+/// rows. One check for every per-taxon kernel ([`super::taxa::contrast`],
+/// [`super::taxa::baci_contrast`], [`super::trend::taxon_trends`]).
+///
+/// # Errors
+/// [`AnalysisError::DimensionMismatch`], [`AnalysisError::NonFinite`],
+/// [`AnalysisError::Negative`], or [`AnalysisError::InvalidArgument`] for effort.
+pub fn check_taxon_counts(
+    counts: &DMatrix<f64>,
+    effort: &[f64],
+    lens: &[usize],
+) -> Result<(), AnalysisError> {
+    let (n, p) = counts.shape();
+    for &len in std::iter::once(&effort.len()).chain(lens) {
+        if len != n {
+            return Err(AnalysisError::DimensionMismatch {
+                expected: n,
+                found: len,
+            });
+        }
+    }
+    for i in 0..n {
+        for j in 0..p {
+            let v = counts[(i, j)];
+            if !v.is_finite() {
+                return Err(AnalysisError::NonFinite { row: i, col: j });
+            }
+            if v < 0.0 {
+                return Err(AnalysisError::Negative { row: i, col: j });
+            }
+        }
+    }
+    if let Some(i) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
+        return Err(AnalysisError::InvalidArgument {
+            name: "effort",
+            reason: format!("row {i} has effort {}; effort must be positive", effort[i]),
+        });
+    }
+    Ok(())
+}
+
 /// Pooled rate of each group: Σ y / Σ effort over its rows (the fitted rate of a one-factor
 /// Poisson model with log-effort offset).
 ///

@@ -95,31 +95,7 @@ pub fn contrast(
     test: Option<&SizeTestOptions>,
 ) -> Result<Contrast, AnalysisError> {
     let (n, p) = counts.shape();
-    for len in [effort.len(), side.len()] {
-        if len != n {
-            return Err(AnalysisError::DimensionMismatch {
-                expected: n,
-                found: len,
-            });
-        }
-    }
-    for i in 0..n {
-        for j in 0..p {
-            let v = counts[(i, j)];
-            if !v.is_finite() {
-                return Err(AnalysisError::NonFinite { row: i, col: j });
-            }
-            if v < 0.0 {
-                return Err(AnalysisError::Negative { row: i, col: j });
-            }
-        }
-    }
-    if let Some(i) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
-        return Err(AnalysisError::InvalidArgument {
-            name: "effort",
-            reason: format!("row {i} has effort {}; effort must be positive", effort[i]),
-        });
-    }
+    super::count_model::check_taxon_counts(counts, effort, &[side.len()])?;
     let rows = |s: usize| -> Vec<usize> { (0..n).filter(|&i| side[i] == s).collect() };
     let (reference, group) = (rows(0), rows(1));
     if reference.is_empty() || group.is_empty() || reference.len() + group.len() != n {
@@ -306,36 +282,11 @@ pub fn baci_contrast(
     test: Option<&BaciOptions>,
 ) -> Result<BaciContrast, AnalysisError> {
     let (n, p) = counts.shape();
-    for len in [
-        effort.len(),
-        rows.site.len(),
-        rows.year.len(),
-        rows.after.len(),
-    ] {
-        if len != n {
-            return Err(AnalysisError::DimensionMismatch {
-                expected: n,
-                found: len,
-            });
-        }
-    }
-    for i in 0..n {
-        for j in 0..p {
-            let v = counts[(i, j)];
-            if !v.is_finite() {
-                return Err(AnalysisError::NonFinite { row: i, col: j });
-            }
-            if v < 0.0 {
-                return Err(AnalysisError::Negative { row: i, col: j });
-            }
-        }
-    }
-    if let Some(i) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
-        return Err(AnalysisError::InvalidArgument {
-            name: "effort",
-            reason: format!("row {i} has effort {}; effort must be positive", effort[i]),
-        });
-    }
+    super::count_model::check_taxon_counts(
+        counts,
+        effort,
+        &[rows.site.len(), rows.year.len(), rows.after.len()],
+    )?;
     let role = |i: usize| rows.impact.get(rows.site[i]).copied().unwrap_or(false);
     // Cells: 0 control before, 1 control after, 2 impact before, 3 impact after.
     let cell = |i: usize| 2 * usize::from(role(i)) + usize::from(rows.after[i]);

@@ -1518,36 +1518,11 @@ pub fn taxon_trends(
     seed: u64,
 ) -> Result<TaxonTrends, AnalysisError> {
     let (n, p) = counts.shape();
-    for len in [
-        effort.len(),
-        year.len(),
-        site.len(),
-        season.map_or(n, <[usize]>::len),
-    ] {
-        if len != n {
-            return Err(AnalysisError::DimensionMismatch {
-                expected: n,
-                found: len,
-            });
-        }
-    }
-    for i in 0..n {
-        for j in 0..p {
-            let v = counts[(i, j)];
-            if !v.is_finite() {
-                return Err(AnalysisError::NonFinite { row: i, col: j });
-            }
-            if v < 0.0 {
-                return Err(AnalysisError::Negative { row: i, col: j });
-            }
-        }
-    }
-    if let Some(i) = effort.iter().position(|e| !(e.is_finite() && *e > 0.0)) {
-        return Err(AnalysisError::InvalidArgument {
-            name: "effort",
-            reason: format!("row {i} has effort {}; effort must be positive", effort[i]),
-        });
-    }
+    super::count_model::check_taxon_counts(
+        counts,
+        effort,
+        &[year.len(), site.len(), season.map_or(n, <[usize]>::len)],
+    )?;
     let labels = YearLabels::new(year);
     let years = labels.years().to_vec();
     let k = years.len();
