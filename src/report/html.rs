@@ -422,12 +422,27 @@ fn glance(out: &mut String, input: &ReportInput) {
     let mut cards = String::new();
     if let Some(cs) = input.compare.done() {
         for c in cs {
-            let (abundance, composition) = match c.outcome.comparisons.first() {
-                Some(x) => (yes_no(x.abundance_differs), yes_no(x.composition_differs)),
-                None => (MISSING, MISSING),
+            // Every pair, not only the first: with three groups the first pair
+            // alone can say "no" while the other two differ.
+            let pairs: String = if c.outcome.comparisons.is_empty() {
+                format!("<p>Abundance differs: {MISSING} · Composition differs: {MISSING}</p>")
+            } else {
+                c.outcome
+                    .comparisons
+                    .iter()
+                    .map(|x| {
+                        format!(
+                            "<p>{} against {}: abundance differs: {} · composition differs: {}</p>",
+                            esc(&x.group),
+                            esc(&x.reference),
+                            yes_no(x.abundance_differs),
+                            yes_no(x.composition_differs)
+                        )
+                    })
+                    .collect()
             };
             cards.push_str(&format!(
-                "<div class=\"card\"><h3>{}</h3><p>Abundance differs: {abundance} · Composition differs: {composition}</p><p>{}</p></div>\n",
+                "<div class=\"card\"><h3>{}</h3>{pairs}<p>{}</p></div>\n",
                 esc(&c.label),
                 esc(&c.outcome.verdict)
             ));
@@ -436,11 +451,14 @@ fn glance(out: &mut String, input: &ReportInput) {
     for g in input.trends.done().into_iter().flatten() {
         let t = &g.outcome;
         let d = t.diagnosis.name();
-        let meaning = match t.diagnosis {
-            Diagnosis::Abundance => "organisms fewer or more, mix of taxa steady",
-            Diagnosis::Composition => "mix of taxa changing, numbers steady",
-            Diagnosis::Both => "numbers and mix of taxa both changing",
-            Diagnosis::None => "no trend in numbers or in the mix of taxa",
+        let fewer = t.size_trend.slope_pct_per_year < 0.0;
+        let meaning = match (t.diagnosis, fewer) {
+            (Diagnosis::Abundance, true) => "fewer organisms, mix of taxa steady",
+            (Diagnosis::Abundance, false) => "more organisms, mix of taxa steady",
+            (Diagnosis::Composition, _) => "mix of taxa changing, numbers steady",
+            (Diagnosis::Both, true) => "fewer organisms and a changing mix of taxa",
+            (Diagnosis::Both, false) => "more organisms and a changing mix of taxa",
+            (Diagnosis::None, _) => "no trend in numbers or in the mix of taxa",
         };
         cards.push_str(&format!(
             "<div class=\"card\"><h3>Trend{}</h3><p><span class=\"tag diag\">{}</span> {}</p><p>Size: {} % per year (p = {}); shape: R² {} (p = {})</p></div>\n",
@@ -1495,6 +1513,33 @@ mod tests {
         assert!(html.contains("Invented data."));
         assert!(html.contains("tally compare --by period"));
         assert!(html.contains("@media print") && html.contains("@media (max-width"));
+    }
+
+    #[test]
+    fn the_glance_covers_every_pair() {
+        // With three groups the first pair alone can say "no" while another
+        // differs: every pair gets its line.
+        let mut three = compare_outcome(false, false);
+        let mut other = three.comparisons[0].clone();
+        other.group = "upper".into();
+        other.composition_differs = true;
+        three.comparisons.push(other);
+        let mut inp = input();
+        inp.compare = Part::Done(vec![Labelled {
+            label: "three reaches".into(),
+            outcome: three,
+        }]);
+        let mut out = String::new();
+        glance(&mut out, &inp);
+        let no = "<span class=\"tag no\">no</span>";
+        let yes = "<span class=\"tag yes\">yes</span>";
+        let line = |g: &str, a: &str, c: &str| {
+            format!("{g} against 2008–2015: abundance differs: {a} · composition differs: {c}")
+        };
+        assert!(out.contains(&line("2016–2025", no, no)), "{out}");
+        assert!(out.contains(&line("upper", no, yes)), "{out}");
+        // A trend card says which way the numbers went.
+        assert!(out.contains("fewer organisms, mix of taxa steady"), "{out}");
     }
 
     #[test]
