@@ -115,11 +115,19 @@ impl Render for Outcome {
                 Some(a) => format!("{} (Holm {})", fmt_p(raw, perms), fmt_p(a, perms)),
                 None => fmt_p(raw, perms),
             };
+            // The direction and size of an abundance difference, in words.
+            let change = || {
+                let pct = 100.0 * (c.size.ratio - 1.0);
+                format!(
+                    "{} organisms ({pct:+.0} %)",
+                    if c.size.ratio < 1.0 { "fewer" } else { "more" }
+                )
+            };
             let words = match (c.abundance_differs, c.composition_differs) {
-                (true, true) => "abundance and composition differ",
-                (true, false) => "abundance differs",
-                (false, true) => "composition differs",
-                (false, false) => "neither differs",
+                (true, true) => format!("{} and composition differs", change()),
+                (true, false) => change(),
+                (false, true) => "composition differs".to_string(),
+                (false, false) => "neither differs".to_string(),
             };
             t.add_row(vec![
                 format!("{} vs {}", c.group, c.reference),
@@ -136,7 +144,7 @@ impl Render for Outcome {
                     c.shape.dispersion_p_adjusted,
                     c.shape.dispersion_permutations,
                 ),
-                words.to_string(),
+                words,
             ]);
         }
         write_table(out, &t)?;
