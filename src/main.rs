@@ -12,7 +12,11 @@ fn main() -> ExitCode {
         Err(e) => {
             #[allow(clippy::print_stderr)]
             {
-                eprintln!("tally: error: {e:#}");
+                let text = format!("{e:#}");
+                eprintln!(
+                    "tally: error: {}",
+                    tally::report::format::terminal_safe(&text)
+                );
             }
             ExitCode::from(1)
         }

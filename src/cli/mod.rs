@@ -132,7 +132,8 @@ pub enum Command {
 /// Any runtime error, with context; `main` maps it to exit code 1.
 pub fn run(cli: Cli) -> anyhow::Result<()> {
     let stdout = std::io::stdout();
-    let mut out = std::io::BufWriter::new(stdout.lock());
+    let terminal = std::io::IsTerminal::is_terminal(&stdout);
+    let mut out = TerminalSafe::new(std::io::BufWriter::new(stdout.lock()), terminal);
     QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
@@ -192,6 +193,56 @@ pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
     })
 }
 
+/// Standard output that, on a terminal, shows control, bidirectional and
+/// zero-width characters as `<U+XXXX>` ([`crate::report::format::terminal_safe`])
+/// so that text from the store cannot act on the terminal; written to a file or
+/// a pipe, the bytes pass unchanged. Lines are checked whole.
+struct TerminalSafe<W: Write> {
+    inner: W,
+    active: bool,
+    line: Vec<u8>,
+}
+
+impl<W: Write> TerminalSafe<W> {
+    fn new(inner: W, active: bool) -> Self {
+        TerminalSafe {
+            inner,
+            active,
+            line: Vec::new(),
+        }
+    }
+
+    fn emit(&mut self) -> std::io::Result<()> {
+        let text = String::from_utf8_lossy(&self.line);
+        let safe = crate::report::format::terminal_safe(&text);
+        self.inner.write_all(safe.as_bytes())?;
+        self.line.clear();
+        Ok(())
+    }
+}
+
+impl<W: Write> Write for TerminalSafe<W> {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        if !self.active {
+            return self.inner.write(buf);
+        }
+        for &b in buf {
+            self.line.push(b);
+            if b == b'\n' {
+                self.emit()?;
+            }
+        }
+        Ok(buf.len())
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        if self.active && !self.line.is_empty() {
+            self.emit()?;
+        }
+        self.inner.flush()
+    }
+}
+
 /// Set by `--quiet`: notes are not printed.
 static QUIET: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
 
@@ -215,6 +266,6 @@ pub fn note(msg: &str) {
     }
     #[allow(clippy::print_stderr)]
     {
-        eprintln!("tally: {msg}");
+        eprintln!("tally: {}", crate::report::format::terminal_safe(msg));
     }
 }

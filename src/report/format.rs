@@ -59,7 +59,45 @@ pub fn new_table(header: &[&str]) -> comfy_table::Table {
 /// # Errors
 /// I/O errors.
 pub fn write_table(out: &mut dyn Write, table: &comfy_table::Table) -> std::io::Result<()> {
-    writeln!(out, "{table}")
+    writeln!(out, "{}", terminal_safe(&table.to_string()))
+}
+
+/// Text for a terminal: control characters (C0 but newline and tab, DEL, C1),
+/// bidirectional controls and zero-width characters are shown as `<U+XXXX>`
+/// instead of acting on the terminal, so a name in the store cannot recolour,
+/// move or reverse what tally prints. Every table, note and error goes through
+/// it; CSV and JSON keep the text as stored.
+///
+/// # Examples
+/// ```
+/// use tally::report::format::terminal_safe;
+/// assert_eq!(terminal_safe("Baetis\u{1b}[31m"), "Baetis<U+001B>[31m");
+/// assert_eq!(terminal_safe("Baetis"), "Baetis");
+/// ```
+pub fn terminal_safe(text: &str) -> std::borrow::Cow<'_, str> {
+    let unsafe_char = |c: char| {
+        (c.is_control() && c != '\n' && c != '\t')
+            || matches!(
+                c,
+                '\u{200B}'..='\u{200F}'
+                    | '\u{202A}'..='\u{202E}'
+                    | '\u{2066}'..='\u{2069}'
+                    | '\u{061C}'
+                    | '\u{FEFF}'
+            )
+    };
+    if !text.chars().any(unsafe_char) {
+        return std::borrow::Cow::Borrowed(text);
+    }
+    let mut out = String::with_capacity(text.len() + 16);
+    for c in text.chars() {
+        if unsafe_char(c) {
+            out.push_str(&format!("<U+{:04X}>", u32::from(c)));
+        } else {
+            out.push(c);
+        }
+    }
+    std::borrow::Cow::Owned(out)
 }
 
 /// Shown in tables where a number could not be computed.

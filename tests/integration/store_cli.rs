@@ -36,3 +36,40 @@ fn demo_never_replaces_a_store_with_other_data() {
     // Its own store is replaced again without --force (the runs are made anew).
     env.cmd(["demo"]).assert().success();
 }
+
+#[test]
+fn text_from_the_store_cannot_act_on_the_terminal() {
+    // An escape sequence and a right-to-left override inside taxon names are shown
+    // as code points in tables, notes and errors; JSON keeps the text as stored.
+    let env = TestEnv::new();
+    env.stdout(["init"]);
+    env.import_all(&[(
+        "taxa",
+        "name,rank,parent,accepted\nBae\u{1b}[31mtis,genus,,\nCae\u{202e}nis,genus,,\n",
+    )]);
+    let table = env.stdout(["taxa", "list"]);
+    assert!(
+        !table.contains('\u{1b}') && !table.contains('\u{202e}'),
+        "{table:?}"
+    );
+    assert!(
+        table.contains("Bae<U+001B>[31mtis") && table.contains("Cae<U+202E>nis"),
+        "{table}"
+    );
+    let (code, _, err) = env.run([
+        "taxa",
+        "rename",
+        "Bae\u{1b}[31mtiss",
+        "Baetis",
+        "--reason",
+        "typo",
+    ]);
+    assert_eq!(code, 1, "{err}");
+    assert!(
+        !err.contains('\u{1b}') && err.contains("<U+001B>"),
+        "{err:?}"
+    );
+    let json = env.stdout(["taxa", "list", "--format", "json"]);
+    let v: serde_json::Value = serde_json::from_str(&json).unwrap();
+    assert!(v.to_string().contains("Bae\\u001b[31mtis"), "{v}");
+}
