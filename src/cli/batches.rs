@@ -77,7 +77,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             write_json(out, &serde_json::Value::Array(list))?;
         }
         FormatArg::Csv => {
-            let mut w = csv::Writer::from_writer(out);
+            let mut w = crate::report::format::csv_writer(out);
             w.write_record([
                 "id",
                 "kind",

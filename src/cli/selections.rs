@@ -92,7 +92,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     write_json(out, &json!({ "selections": v }))?;
                 }
                 FormatArg::Csv => {
-                    let mut w = csv::Writer::from_writer(out);
+                    let mut w = crate::report::format::csv_writer(out);
                     w.write_record(["name", "flags", "created_at", "updated_at"])?;
                     for s in &list {
                         w.write_record([
@@ -125,7 +125,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     &json!({"name": name, "selection": sel, "flags": flags_of(&sel)}),
                 )?,
                 FormatArg::Csv => {
-                    let mut w = csv::Writer::from_writer(out);
+                    let mut w = crate::report::format::csv_writer(out);
                     w.write_record(["name", "flags"])?;
                     w.write_record([&name, &flags_of(&sel)])?;
                     w.flush()?;

@@ -45,7 +45,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             write_json(out, &v)?;
         }
         FormatArg::Csv => {
-            let mut w = csv::Writer::from_writer(out);
+            let mut w = crate::report::format::csv_writer(out);
             let mut header = vec!["site".to_string()];
             header.extend(s.years.iter().map(|y| y.to_string()));
             w.write_record(&header)?;

@@ -167,7 +167,7 @@ fn write_history(
     match format {
         FormatArg::Json => write_json(out, &json!(changes))?,
         FormatArg::Csv => {
-            let mut w = csv::Writer::from_writer(out);
+            let mut w = crate::report::format::csv_writer(out);
             w.write_record([
                 "id",
                 "kind",
@@ -218,7 +218,7 @@ fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyh
     match format {
         FormatArg::Json => write_json(out, &serde_json::to_value(taxa)?)?,
         FormatArg::Csv => {
-            let mut w = csv::Writer::from_writer(out);
+            let mut w = crate::report::format::csv_writer(out);
             w.write_record([
                 "name",
                 "rank",

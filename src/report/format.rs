@@ -100,6 +100,68 @@ pub fn terminal_safe(text: &str) -> std::borrow::Cow<'_, str> {
     std::borrow::Cow::Owned(out)
 }
 
+/// The one CSV writer of tally's outputs ([`csv_writer`]): the `csv` crate's,
+/// with every cell that a spreadsheet would run as a formula neutralised.
+pub struct CsvOut<W: std::io::Write> {
+    inner: csv::Writer<W>,
+}
+
+/// A CSV writer on `out`: a text cell that begins with `=`, `+`, `-`, `@`, a tab
+/// or a carriage return, and is not a number, is written with a leading `'`,
+/// so a spreadsheet shows it as text instead of evaluating it (the OWASP advice
+/// on CSV injection; common practice, no source). Numbers, negative ones
+/// included, are written as they are. JSON output keeps every text as stored.
+pub fn csv_writer<W: std::io::Write>(out: W) -> CsvOut<W> {
+    CsvOut {
+        inner: csv::Writer::from_writer(out),
+    }
+}
+
+/// `cell` as a spreadsheet will not evaluate it ([`csv_writer`]).
+pub fn csv_cell(cell: &[u8]) -> std::borrow::Cow<'_, [u8]> {
+    let risky = matches!(
+        cell.first(),
+        Some(b'=' | b'+' | b'-' | b'@' | b'\t' | b'\r')
+    );
+    let number = std::str::from_utf8(cell)
+        .ok()
+        .is_some_and(|t| t.trim().parse::<f64>().is_ok());
+    if risky && !number {
+        let mut v = Vec::with_capacity(cell.len() + 1);
+        v.push(b'\'');
+        v.extend_from_slice(cell);
+        std::borrow::Cow::Owned(v)
+    } else {
+        std::borrow::Cow::Borrowed(cell)
+    }
+}
+
+impl<W: std::io::Write> CsvOut<W> {
+    /// Write one record, each cell through [`csv_cell`].
+    ///
+    /// # Errors
+    /// The `csv` crate's: I/O, or a record of another width than the first.
+    pub fn write_record<I, T>(&mut self, record: I) -> csv::Result<()>
+    where
+        I: IntoIterator<Item = T>,
+        T: AsRef<[u8]>,
+    {
+        let cells: Vec<Vec<u8>> = record
+            .into_iter()
+            .map(|c| csv_cell(c.as_ref()).into_owned())
+            .collect();
+        self.inner.write_record(&cells)
+    }
+
+    /// Flush the underlying writer.
+    ///
+    /// # Errors
+    /// I/O errors.
+    pub fn flush(&mut self) -> std::io::Result<()> {
+        self.inner.flush()
+    }
+}
+
 /// Shown in tables where a number could not be computed.
 pub const MISSING: &str = "—";
 
@@ -148,6 +210,21 @@ pub fn csv_num(v: f64) -> String {
 
 #[cfg(test)]
 mod tests {
+
+    #[test]
+    fn formula_cells_are_neutralised_and_numbers_kept() {
+        // Cells a spreadsheet evaluates begin with = + - @ tab or CR (OWASP, CSV
+        // injection; common practice, no source).
+        let c = |t: &str| String::from_utf8(csv_cell(t.as_bytes()).into_owned()).unwrap();
+        assert_eq!(c("=1+1"), "'=1+1");
+        assert_eq!(c("+x"), "'+x");
+        assert_eq!(c("@SUM(A1)"), "'@SUM(A1)");
+        assert_eq!(c("-Caenis"), "'-Caenis");
+        assert_eq!(c("-0.25"), "-0.25");
+        assert_eq!(c("+3"), "+3");
+        assert_eq!(c("Baetis"), "Baetis");
+        assert_eq!(c(""), "");
+    }
     use super::*;
 
     #[test]

@@ -73,3 +73,26 @@ fn text_from_the_store_cannot_act_on_the_terminal() {
     let v: serde_json::Value = serde_json::from_str(&json).unwrap();
     assert!(v.to_string().contains("Bae\\u001b[31mtis"), "{v}");
 }
+
+#[test]
+fn csv_cells_that_a_spreadsheet_would_run_are_neutralised() {
+    // A name that begins like a formula gets a leading apostrophe in CSV;
+    // numbers, negative ones included, do not; JSON keeps the name as stored.
+    let env = TestEnv::new();
+    env.stdout(["init"]);
+    env.import_all(&[(
+        "taxa",
+        "name,rank,parent,accepted\n\"=HYPERLINK(\"\"x\"\")\",genus,,\n@Baetis,genus,,\n-Caenis,genus,,\n",
+    )]);
+    let csv = env.stdout(["taxa", "list", "--format", "csv"]);
+    assert!(csv.contains("'=HYPERLINK"), "{csv}");
+    assert!(
+        csv.contains("'@Baetis") && csv.contains("'-Caenis"),
+        "{csv}"
+    );
+    let json = env.stdout(["taxa", "list", "--format", "json"]);
+    assert!(
+        json.contains("\"@Baetis\"") && !json.contains("'@"),
+        "{json}"
+    );
+}

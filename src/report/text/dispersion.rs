@@ -72,7 +72,7 @@ impl Render for Outcome {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record([
             "kind",
             "group_a",

@@ -89,7 +89,7 @@ impl Render for Distances<'_> {
     /// A square CSV: first column `sample`, then one column per row; empty where undefined.
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
         let labels = self.labels();
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         let mut header = vec!["sample".to_string()];
         header.extend(labels.iter().map(|l| l.to_string()));
         w.write_record(&header)?;

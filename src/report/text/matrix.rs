@@ -57,7 +57,7 @@ impl Render for Counts<'_> {
     /// First column `sample`, then with `meta` the metadata columns, then one
     /// column per taxon; numbers in their shortest round-trip form.
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         for row in text_rows(&self.prepared.matrix, self.meta, csv_num) {
             w.write_record(&row)?;
         }

@@ -227,7 +227,7 @@ impl Render for Outcome {
     /// A `record` column (`eigenvalue`, `share`, `sample`, then `taxon`), the sample or taxon
     /// label, site, year and group, then one column per axis and a taxon's `contribution`.
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         let mut header: Vec<String> = ["record", "label", "site", "year", "group"]
             .map(String::from)
             .to_vec();

@@ -52,7 +52,7 @@ impl Render for RunList<'_> {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record([
             "id",
             "kind",
@@ -121,7 +121,7 @@ impl Render for RunRecord {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record(["name", "value"])?;
         for (n, v) in &self.values {
             w.write_record([n.clone(), v.map(|x| x.to_string()).unwrap_or_default()])?;
@@ -171,7 +171,7 @@ impl Render for Series<'_> {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record(["run_id", "period_start", "period_end", "value"])?;
         for p in self.points {
             w.write_record([

@@ -168,7 +168,11 @@ const CSV_HEADER: [&str; 28] = [
 /// The columns a `period` line leaves empty.
 const TAXON_COLUMNS: usize = 14;
 
-fn csv_rows<W: Write>(w: &mut csv::Writer<W>, group: &str, o: &Outcome) -> io::Result<()> {
+fn csv_rows<W: Write>(
+    w: &mut crate::report::format::CsvOut<W>,
+    group: &str,
+    o: &Outcome,
+) -> io::Result<()> {
     let c = |v: Option<f64>| csv_num(v.unwrap_or(f64::NAN));
     let blank = || std::iter::repeat_n(String::new(), TAXON_COLUMNS);
     for p in &o.periods {
@@ -334,7 +338,7 @@ impl Render for Outcome {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record(CSV_HEADER)?;
         csv_rows(&mut w, "", self)?;
         w.flush()
@@ -395,7 +399,7 @@ impl Render for Split {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record(CSV_HEADER)?;
         for g in &self.groups {
             csv_rows(&mut w, &g.group, &g.outcome)?;

@@ -106,7 +106,7 @@ impl Render for VerifyReport {
     }
 
     fn csv(&self, out: &mut dyn Write) -> io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
+        let mut w = crate::report::format::csv_writer(out);
         w.write_record(["path", "stored", "recomputed"])?;
         if !self.fingerprint_matches {
             w.write_record(["fingerprint", &self.stored_fingerprint, &self.fingerprint])?;
