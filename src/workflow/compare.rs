@@ -843,16 +843,16 @@ impl Spec {
             .collect();
         if !dropped.is_empty() {
             notes.push(format!(
-                "rarefying to {depth} individuals: {} sample(s) with fewer dropped from the shape analysis ({}{})",
-                dropped.len(),
+                "rarefying to {depth} individuals: {} with fewer dropped from the shape analysis ({}{})",
+                crate::words::count(dropped.len(), "sample", "samples"),
                 dropped.iter().take(5).cloned().collect::<Vec<_>>().join(", "),
                 if dropped.len() > 5 { ", …" } else { "" }
             ));
         }
         if keep.len() < 3 {
             return Err(WorkflowError::Refused(format!(
-                "rarefying to {depth} individuals leaves {} sample(s): rarefy to fewer",
-                keep.len()
+                "rarefying to {depth} individuals leaves {}: rarefy to fewer",
+                crate::words::count(keep.len(), "sample", "samples")
             )));
         }
         let sub = m.values.select_rows(keep.iter());

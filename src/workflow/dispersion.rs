@@ -147,9 +147,12 @@ impl Analysis for Spec {
         let mut notes = prepared.notes.clone();
         if r.clamped > 0 {
             notes.push(format!(
-                "{} row(s) had a negative squared distance to their centroid (the dissimilarity \
-                 is not Euclidean) and were set to distance 0",
-                r.clamped
+                "{} a negative squared distance to their centroid (the dissimilarity \
+                 is not Euclidean), set to distance 0",
+                match r.clamped {
+                    1 => "1 row had".to_string(),
+                    k => format!("{k} rows had"),
+                }
             ));
         }
         let distances = m

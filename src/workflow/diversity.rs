@@ -555,8 +555,11 @@ impl Spec {
         }
         if !short.is_empty() {
             notes.push(format!(
-                "{} row(s) hold fewer than {} individuals and have no rarefied richness ({})",
-                short.len(),
+                "{} fewer than {} individuals and no rarefied richness ({})",
+                match short.len() {
+                    1 => "1 row holds".to_string(),
+                    k => format!("{k} rows hold"),
+                },
                 self.rarefy_to.unwrap_or(0),
                 some_labels(&rows, &short)
             ));
@@ -566,17 +569,17 @@ impl Spec {
             .collect();
         if !empty.is_empty() {
             notes.push(format!(
-                "{} row(s) caught nothing: they are listed with 0 individuals, and no measure \
+                "{} caught nothing: listed with 0 individuals, and no measure \
                  of diversity is defined for them ({})",
-                empty.len(),
+                crate::words::count(empty.len(), "row", "rows"),
                 some_labels(&rows, &empty)
             ));
         }
         if !missed.is_empty() {
             notes.push(format!(
-                "{} row(s) cannot reach the common coverage within twice their individuals (or \
+                "{} cannot reach the common coverage within twice their individuals (or \
                  hold fewer than two): no richness at equal coverage for them ({})",
-                missed.len(),
+                crate::words::count(missed.len(), "row", "rows"),
                 some_labels(&rows, &missed)
             ));
         }
