@@ -132,8 +132,17 @@ pub enum Command {
 /// Any runtime error, with context; `main` maps it to exit code 1.
 pub fn run(cli: Cli) -> anyhow::Result<()> {
     let stdout = std::io::stdout();
+    // On a terminal, control, bidirectional and zero-width characters are shown
+    // as `<U+XXXX>` so that text from the store cannot act on the terminal; to a
+    // file or a pipe the bytes pass unchanged.
     let terminal = std::io::IsTerminal::is_terminal(&stdout);
-    let mut out = TerminalSafe::new(std::io::BufWriter::new(stdout.lock()), terminal);
+    let mut out = LineFilter::new(std::io::BufWriter::new(stdout.lock()), move |line: &str| {
+        if terminal {
+            crate::report::format::terminal_safe(line).into_owned()
+        } else {
+            line.to_string()
+        }
+    });
     QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
@@ -193,39 +202,36 @@ pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
     })
 }
 
-/// Standard output that, on a terminal, shows control, bidirectional and
-/// zero-width characters as `<U+XXXX>` ([`crate::report::format::terminal_safe`])
-/// so that text from the store cannot act on the terminal; written to a file or
-/// a pipe, the bytes pass unchanged. Lines are checked whole.
-struct TerminalSafe<W: Write> {
+/// A writer that passes whole lines through `filter` before `inner` (the one
+/// line-buffered filter of the command layer: standard output on a terminal,
+/// the sections of `tally manual`). The last line is filtered on flush or drop.
+pub(crate) struct LineFilter<W: Write, F: FnMut(&str) -> String> {
     inner: W,
-    active: bool,
+    filter: F,
     line: Vec<u8>,
 }
 
-impl<W: Write> TerminalSafe<W> {
-    fn new(inner: W, active: bool) -> Self {
-        TerminalSafe {
+impl<W: Write, F: FnMut(&str) -> String> LineFilter<W, F> {
+    /// Filter the lines written to `inner` with `filter`.
+    pub(crate) fn new(inner: W, filter: F) -> Self {
+        LineFilter {
             inner,
-            active,
+            filter,
             line: Vec::new(),
         }
     }
 
     fn emit(&mut self) -> std::io::Result<()> {
         let text = String::from_utf8_lossy(&self.line);
-        let safe = crate::report::format::terminal_safe(&text);
-        self.inner.write_all(safe.as_bytes())?;
+        let out = (self.filter)(&text);
+        self.inner.write_all(out.as_bytes())?;
         self.line.clear();
         Ok(())
     }
 }
 
-impl<W: Write> Write for TerminalSafe<W> {
+impl<W: Write, F: FnMut(&str) -> String> Write for LineFilter<W, F> {
     fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-        if !self.active {
-            return self.inner.write(buf);
-        }
         for &b in buf {
             self.line.push(b);
             if b == b'\n' {
@@ -236,10 +242,16 @@ impl<W: Write> Write for TerminalSafe<W> {
     }
 
     fn flush(&mut self) -> std::io::Result<()> {
-        if self.active && !self.line.is_empty() {
+        if !self.line.is_empty() {
             self.emit()?;
         }
         self.inner.flush()
+    }
+}
+
+impl<W: Write, F: FnMut(&str) -> String> Drop for LineFilter<W, F> {
+    fn drop(&mut self) {
+        let _ = self.flush();
     }
 }
 

@@ -7,7 +7,7 @@ use std::io::Write;
 use clap::CommandFactory;
 use clap_complete::Shell;
 
-use super::Cli;
+use super::{Cli, LineFilter};
 
 /// `tally completions` flags.
 #[derive(Debug, Clone, clap::Args)]
@@ -49,62 +49,18 @@ pub fn manual(out: &mut dyn Write) -> anyhow::Result<()> {
         writeln!(out, ".SH \"TALLY {}\"", name.to_uppercase())?;
         let sub = sub.clone().bin_name(format!("tally {name}"));
         let page = clap_mangen::Man::new(sub);
-        page.render_synopsis_section(&mut SkipHeading::new(out))?;
-        page.render_description_section(&mut SkipHeading::new(out))?;
-        page.render_options_section(&mut SkipHeading::new(out))?;
+        // The command's section headings (`.SH`) become subsections (`.SS`), so
+        // that every command sits under its own heading in one page.
+        let mut sub_out =
+            LineFilter::new(&mut *out, |line: &str| match line.strip_prefix(".SH ") {
+                Some(rest) => format!(".SS {rest}"),
+                None => line.to_string(),
+            });
+        page.render_synopsis_section(&mut sub_out)?;
+        page.render_description_section(&mut sub_out)?;
+        page.render_options_section(&mut sub_out)?;
+        sub_out.flush()?;
     }
     man.render_version_section(out)?;
     Ok(())
-}
-
-/// Demotes the section headings (`.SH`) of a command's page to subsections
-/// (`.SS`), so that every command sits under its own heading in one page.
-struct SkipHeading<'a> {
-    out: &'a mut dyn Write,
-    line: Vec<u8>,
-}
-
-impl<'a> SkipHeading<'a> {
-    fn new(out: &'a mut dyn Write) -> Self {
-        SkipHeading {
-            out,
-            line: Vec::new(),
-        }
-    }
-
-    fn emit(&mut self) -> std::io::Result<()> {
-        if self.line.starts_with(b".SH ") {
-            self.out.write_all(b".SS ")?;
-            self.out.write_all(&self.line[4..])?;
-        } else {
-            self.out.write_all(&self.line)?;
-        }
-        self.line.clear();
-        Ok(())
-    }
-}
-
-impl Write for SkipHeading<'_> {
-    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-        for &b in buf {
-            self.line.push(b);
-            if b == b'\n' {
-                self.emit()?;
-            }
-        }
-        Ok(buf.len())
-    }
-
-    fn flush(&mut self) -> std::io::Result<()> {
-        if !self.line.is_empty() {
-            self.emit()?;
-        }
-        self.out.flush()
-    }
-}
-
-impl Drop for SkipHeading<'_> {
-    fn drop(&mut self) {
-        let _ = self.flush();
-    }
 }
