@@ -16,6 +16,7 @@
 pub mod analysis;
 pub mod cli;
 pub mod demo;
+pub mod dwca;
 pub mod matrix;
 pub mod report;
 pub mod store;

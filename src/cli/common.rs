@@ -287,3 +287,99 @@ pub fn write_new_file(path: &std::path::Path, text: &str, force: bool) -> anyhow
     refuse_existing(path, force)?;
     std::fs::write(path, text).with_context(|| format!("writing {}", path.display()))
 }
+
+/// Why `path` may not be written, if it may not: it is the store `store` or
+/// one of its `-wal`, `-shm` or `-journal` files (also through a link), a
+/// link to nothing, something other than a plain file, or an existing file
+/// without `force` ([`refuse_existing`]).
+///
+/// # Errors
+/// As above, each with what to do instead.
+pub fn refuse_output_path(
+    path: &std::path::Path,
+    store: Option<&std::path::Path>,
+    force: bool,
+) -> anyhow::Result<()> {
+    let shown = path.display();
+    if let Ok(m) = std::fs::symlink_metadata(path)
+        && m.file_type().is_symlink()
+        && !path.exists()
+    {
+        anyhow::bail!(
+            "{shown} is a symbolic link to a file that does not exist; nothing was written. Give the real path"
+        );
+    }
+    if path.exists() && !path.is_file() {
+        anyhow::bail!("{shown} exists and is not a plain file; nothing was written");
+    }
+    if let Some(store) = store
+        && let Ok(own) = store.canonicalize()
+    {
+        let target = resolved(path);
+        for suffix in ["", "-wal", "-shm", "-journal"] {
+            let mut p = own.as_os_str().to_owned();
+            p.push(suffix);
+            if target.as_deref() == Some(std::path::Path::new(&p)) {
+                anyhow::bail!(
+                    "{shown} is the store{}; nothing was written. Give another path",
+                    if suffix.is_empty() {
+                        String::new()
+                    } else {
+                        format!("'s {suffix} file")
+                    }
+                );
+            }
+        }
+    }
+    refuse_existing(path, force)
+}
+
+/// The absolute path `path` names (its folder resolved), if its folder exists.
+fn resolved(path: &std::path::Path) -> Option<std::path::PathBuf> {
+    if let Ok(p) = path.canonicalize() {
+        return Some(p);
+    }
+    let parent = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => std::path::PathBuf::from("."),
+    };
+    Some(parent.canonicalize().ok()?.join(path.file_name()?))
+}
+
+/// Write `path` through `write`, under [`refuse_output_path`], atomically: the
+/// content goes to a temporary file in the same folder, which replaces `path`
+/// only when complete, so an interrupted run leaves no half-written file.
+///
+/// # Errors
+/// As [`refuse_output_path`]; errors of `write`; I/O errors.
+pub fn write_atomically<T>(
+    path: &std::path::Path,
+    store: Option<&std::path::Path>,
+    force: bool,
+    write: impl FnOnce(&mut std::fs::File) -> anyhow::Result<T>,
+) -> anyhow::Result<T> {
+    refuse_output_path(path, store, force)?;
+    let target = resolved(path)
+        .with_context(|| format!("writing {}: its folder does not exist", path.display()))?;
+    let name = target
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let tmp = target.with_file_name(format!(".{name}.{}.partial", std::process::id()));
+    let result = (|| -> anyhow::Result<T> {
+        let mut file = std::fs::OpenOptions::new()
+            .write(true)
+            .create_new(true)
+            .open(&tmp)
+            .with_context(|| format!("writing {}", tmp.display()))?;
+        let value = write(&mut file)?;
+        file.sync_all()
+            .with_context(|| format!("writing {}", tmp.display()))?;
+        std::fs::rename(&tmp, &target).with_context(|| format!("writing {}", path.display()))?;
+        Ok(value)
+    })();
+    if result.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result
+}

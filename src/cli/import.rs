@@ -24,6 +24,8 @@ pub enum KindArg {
     Counts,
     /// site,date,protocol,effort,taxon,count [+ replicate,time] (field sheets)
     Records,
+    /// A Darwin Core archive (zip) of sampling events: Event core, Occurrence extension
+    Dwca,
 }
 
 impl From<KindArg> for ImportKind {
@@ -35,6 +37,7 @@ impl From<KindArg> for ImportKind {
             KindArg::Events => ImportKind::Events,
             KindArg::Counts => ImportKind::Counts,
             KindArg::Records => ImportKind::Records,
+            KindArg::Dwca => ImportKind::Dwca,
         }
     }
 }
@@ -45,7 +48,8 @@ pub struct Args {
     /// What the file holds.
     #[arg(value_enum)]
     pub kind: KindArg,
-    /// The CSV file (comma, semicolon or tab separated; UTF-8).
+    /// The CSV file (comma, semicolon or tab separated; UTF-8), or the zip
+    /// file of a Darwin Core archive.
     pub file: PathBuf,
     /// Create sites and taxa the file names but the store lacks (each is reported).
     #[arg(long)]
@@ -81,6 +85,9 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         delimiter: args.delimiter,
     };
     let kind = ImportKind::from(args.kind);
+    if kind == ImportKind::Dwca {
+        return archive(&args, store, out);
+    }
     let report = import_path(store, kind, &args.file, &opts).map_err(|e| match e {
         e @ (StoreError::Invalid { .. } | StoreError::Io { .. }) => anyhow!(e),
         e => anyhow!(e).context(format!("importing {}", args.file.display())),
@@ -118,6 +125,90 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     )?;
     for c in &report.created {
         writeln!(out, "created {c}")?;
+    }
+    Ok(())
+}
+
+/// `tally import dwca FILE.zip`: read the archive, then write it as one batch.
+fn archive(args: &Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
+    if args.replace || args.delimiter.is_some() {
+        anyhow::bail!(
+            "--replace and --delimiter are for CSV files; an archive brings new events only, \
+             and its meta.xml declares its delimiters"
+        );
+    }
+    let (data, notes) = crate::dwca::read::read_path(&args.file)?;
+    let report = crate::store::exchange::import_archive(store, &data, args.create_missing)?;
+    store.checkpoint()?;
+    let b = &report.batch;
+    let mut created = Vec::new();
+    for (n, one, many) in [
+        (report.sites_created, "site", "sites"),
+        (report.protocols_created, "protocol", "protocols"),
+        (report.taxa_created, "taxon", "taxa"),
+    ] {
+        if n > 0 {
+            created.push(crate::words::count(n, one, many));
+        }
+    }
+    writeln!(
+        out,
+        "imported {} from {} as batch {}: {}, {}{}",
+        crate::words::count(b.rows, "row", "rows"),
+        b.file,
+        b.batch_id,
+        crate::words::count(b.written, "event", "events"),
+        crate::words::count(b.counts, "count", "counts"),
+        if created.is_empty() {
+            String::new()
+        } else {
+            format!("; created {}", created.join(", "))
+        }
+    )?;
+    if notes.absences > 0 {
+        writeln!(
+            out,
+            "{} read as {} of a complete census (nothing stored)",
+            crate::words::count(notes.absences, "absent occurrence", "absent occurrences"),
+            crate::words::noun(&notes.absences, "a zero", "zeros")
+        )?;
+    }
+    if notes.merged > 0 {
+        writeln!(
+            out,
+            "{} added to another of the same event and taxon (life stages or sexes recorded apart)",
+            crate::words::count(notes.merged, "occurrence", "occurrences")
+        )?;
+    }
+    if notes.grouping_rows > 0 {
+        writeln!(
+            out,
+            "{} only {} other events (parentEventID) and {} no occurrence: not stored",
+            crate::words::count(notes.grouping_rows, "core row", "core rows"),
+            crate::words::noun(&notes.grouping_rows, "groups", "group"),
+            crate::words::noun(&notes.grouping_rows, "holds", "hold")
+        )?;
+    }
+    if report.replicates_numbered > 0 {
+        writeln!(
+            out,
+            "{} numbered as replicates in their order in the archive (events of one site, date and protocol)",
+            crate::words::count(report.replicates_numbered, "event", "events")
+        )?;
+    }
+    if !notes.terms_not_stored.is_empty() {
+        writeln!(
+            out,
+            "not stored (tally has no place for them): {}",
+            notes.terms_not_stored.join("; ")
+        )?;
+    }
+    if !notes.extensions_not_read.is_empty() {
+        writeln!(
+            out,
+            "extensions not read: {}",
+            notes.extensions_not_read.join(", ")
+        )?;
     }
     Ok(())
 }

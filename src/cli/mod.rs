@@ -20,6 +20,7 @@ pub mod demo;
 pub mod dispersion;
 pub mod distances;
 pub mod diversity;
+pub mod export;
 pub mod impact;
 pub mod import;
 pub mod init;
@@ -80,7 +81,7 @@ impl From<FormatArg> for OutputFormat {
 pub enum Command {
     /// Create an empty store.
     Init(init::Args),
-    /// Bring a CSV file into the store as one batch (validated first; all or nothing).
+    /// Bring a CSV file or a Darwin Core archive into the store (one batch, all or nothing).
     Import(import::Args),
     /// List import batches, or remove one with `batches undo ID`.
     Batches(batches::Args),
@@ -92,6 +93,8 @@ pub enum Command {
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
     Backup(backup::Args),
+    /// Write the store's events and counts for others: a Darwin Core archive.
+    Export(export::Args),
     /// Saved selections: save, list, show, delete.
     Selections(selections::Args),
     /// The assembled count matrix of a selection.
@@ -153,6 +156,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Taxa(args) => taxa::run(args, &mut open_store(&db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),
         Command::Backup(args) => backup::run(args, &mut open_store(&db)?, &mut out),
+        Command::Export(args) => export::run(args, &open_store(&db)?, &mut out),
         Command::Matrix(args) => matrix::run(args, &open_store(&db)?, &mut out),
         Command::Selections(args) => selections::run(args, &mut open_store(&db)?, &mut out),
         Command::Runs(args) => runs::run(args, &mut open_store(&db)?, &mut out),

@@ -5,6 +5,9 @@ use std::path::PathBuf;
 /// One problem found while validating an input file.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct RowIssue {
+    /// The file inside an archive the problem is in (`occurrence.txt`); empty
+    /// for a plain file.
+    pub part: String,
     /// 1-based line number in the file (the header is line 1); 0 when the whole file is at fault.
     pub line: u64,
     /// Column name, or empty when the problem concerns the whole row or file.
@@ -15,6 +18,18 @@ pub struct RowIssue {
 
 impl std::fmt::Display for RowIssue {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if !self.part.is_empty() {
+            return match (self.line, self.column.is_empty()) {
+                (0, true) => write!(f, "{}: {}", self.part, self.message),
+                (0, false) => write!(f, "{}, term {}: {}", self.part, self.column, self.message),
+                (l, true) => write!(f, "{} line {l}: {}", self.part, self.message),
+                (l, false) => write!(
+                    f,
+                    "{} line {l}, term {}: {}",
+                    self.part, self.column, self.message
+                ),
+            };
+        }
         match (self.line, self.column.is_empty()) {
             (0, _) => write!(f, "{}", self.message),
             (l, true) => write!(f, "line {l}: {}", self.message),

@@ -31,7 +31,7 @@ use super::sheet::{Issues, Sheet};
 use super::{Result, Store, StoreError};
 
 mod records;
-mod reference;
+pub(crate) mod reference;
 mod sampling;
 
 /// How many problems an [`StoreError::Invalid`] carries (the total is counted).
@@ -54,10 +54,13 @@ pub enum ImportKind {
     /// The field-sheet long format `site,date,protocol,effort,taxon,count`
     /// plus optional `replicate,time`.
     Records,
+    /// A Darwin Core archive of sampling events (a zip file, not a CSV file;
+    /// read by `crate::dwca` and written by [`crate::store::exchange`]).
+    Dwca,
 }
 
 impl ImportKind {
-    /// Every kind, in the order files are usually imported.
+    /// Every kind of CSV file, in the order files are usually imported.
     pub const ALL: [ImportKind; 6] = [
         ImportKind::Sites,
         ImportKind::Protocols,
@@ -76,12 +79,16 @@ impl ImportKind {
             ImportKind::Events => "events",
             ImportKind::Counts => "counts",
             ImportKind::Records => "records",
+            ImportKind::Dwca => "dwca",
         }
     }
 
     /// The kind named `s`, if any.
     pub fn from_name(s: &str) -> Option<ImportKind> {
-        ImportKind::ALL.into_iter().find(|k| k.as_str() == s)
+        ImportKind::ALL
+            .into_iter()
+            .chain([ImportKind::Dwca])
+            .find(|k| k.as_str() == s)
     }
 
     /// Columns the header must name.
@@ -93,6 +100,7 @@ impl ImportKind {
             ImportKind::Events => &["code", "site", "date", "protocol", "effort"],
             ImportKind::Counts => &["event", "taxon", "count"],
             ImportKind::Records => &["site", "date", "protocol", "effort", "taxon", "count"],
+            ImportKind::Dwca => &[],
         }
     }
 
@@ -197,6 +205,12 @@ pub fn import_bytes(
         ImportKind::Events => sampling::import_events(&tx, &meta, bytes, opts, &mut issues)?,
         ImportKind::Counts => sampling::import_counts(&tx, &meta, bytes, opts, &mut issues)?,
         ImportKind::Records => records::import_records(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Dwca => {
+            return Err(StoreError::Refused(
+                "a Darwin Core archive is a zip file, not a CSV file: use `tally import dwca FILE.zip`"
+                    .into(),
+            ));
+        }
     };
     match report {
         Some(r) if issues.is_empty() => {
@@ -218,10 +232,10 @@ pub fn import_bytes(
 
 /// Facts about the file that go into its `import_batch` row.
 pub(crate) struct BatchMeta {
-    kind: ImportKind,
-    file: String,
-    sha256: String,
-    imported_at: String,
+    pub(crate) kind: ImportKind,
+    pub(crate) file: String,
+    pub(crate) sha256: String,
+    pub(crate) imported_at: String,
 }
 
 /// A stored count overwritten by a `replace` import, kept in the batch's JSON so
@@ -251,7 +265,7 @@ pub(crate) struct BatchNotes {
 
 impl BatchMeta {
     /// Write the batch row and return its id and the report skeleton.
-    fn insert(
+    pub(crate) fn insert(
         &self,
         tx: &Transaction<'_>,
         rows: usize,
@@ -286,7 +300,7 @@ impl BatchMeta {
     }
 }
 
-fn hex(bytes: &[u8]) -> String {
+pub(crate) fn hex(bytes: &[u8]) -> String {
     bytes.iter().map(|b| format!("{b:02x}")).collect()
 }
 

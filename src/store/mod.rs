@@ -1,8 +1,9 @@
 //! The store: the only code that speaks SQL.
 //!
 //! [`Store::create`] makes a new store file, [`Store::open`] opens an existing
-//! one. Both switch foreign keys on, set WAL journalling, and run the embedded
-//! refinery migrations (append-only files under `migrations/`). A file is
+//! one. Both set WAL journalling, run the embedded refinery migrations
+//! (append-only files under `migrations/`) with foreign keys off, check every
+//! reference, and switch foreign keys on. A file is
 //! recognised as a tally store by its SQLite `application_id`.
 use std::path::{Path, PathBuf};
 
@@ -10,6 +11,7 @@ use rusqlite::Connection;
 
 pub mod batches;
 pub mod error;
+pub mod exchange;
 pub mod import;
 pub mod maintenance;
 pub mod query;
@@ -106,7 +108,11 @@ impl Store {
     }
 
     fn prepare(&mut self) -> Result<()> {
-        self.conn.pragma_update(None, "foreign_keys", true)?;
+        // Migrations that rebuild a table others refer to (V5) need foreign
+        // keys off while they run (SQLite's documented procedure for schema
+        // changes: https://www.sqlite.org/lang_altertable.html, "Making Other
+        // Kinds Of Table Schema Changes"); every reference is checked after.
+        self.conn.pragma_update(None, "foreign_keys", false)?;
         self.conn.busy_timeout(std::time::Duration::from_secs(5))?;
         // Up to 64 MiB of page cache (allocated as used): a million-row import
         // touches three b-trees of the count table, which thrash the 2 MiB default.
@@ -122,6 +128,18 @@ impl Store {
         embedded::migrations::runner()
             .set_grouped(true)
             .run(&mut self.conn)?;
+        let broken: i64 =
+            self.conn
+                .query_row("SELECT count(*) FROM pragma_foreign_key_check", [], |r| {
+                    r.get(0)
+                })?;
+        if broken > 0 {
+            return Err(StoreError::Refused(format!(
+                "the store has {broken} broken references between tables; \
+                 `tally check` lists them (restore from a backup)"
+            )));
+        }
+        self.conn.pragma_update(None, "foreign_keys", true)?;
         Ok(())
     }
 

@@ -382,39 +382,8 @@ impl Store {
     /// [`StoreError::EmptySelection`] naming the filter after which no event
     /// was left; SQLite errors.
     pub fn select_records(&self, selection: &Selection) -> Result<Records> {
-        let mut sel = selection.clone();
-        sel.validate()?;
         let conn = self.conn();
-        for code in &sel.sites {
-            let n: i64 =
-                conn.query_row("SELECT count(*) FROM site WHERE code = ?", [code], |r| {
-                    r.get(0)
-                })?;
-            if n == 0 {
-                let codes = self.codes("SELECT code FROM site ORDER BY code")?;
-                return Err(StoreError::Refused(format!(
-                    "--site {code}: no such site{} (`tally summary` lists the sites)",
-                    known("sites", &codes, code)
-                )));
-            }
-        }
-        if let Some(p) = &sel.protocol {
-            let n: i64 =
-                conn.query_row("SELECT count(*) FROM protocol WHERE code = ?", [p], |r| {
-                    r.get(0)
-                })?;
-            if n == 0 {
-                let codes = self.codes("SELECT code FROM protocol ORDER BY code")?;
-                return Err(StoreError::Refused(format!(
-                    "--protocol {p}: no such protocol{}",
-                    known("protocols", &codes, p)
-                )));
-            }
-        }
-        self.check_site_where(&sel.site_where)?;
-        let filters = sel.filters();
-        let (wh, params) = where_clause(&filters);
-
+        let (wh, params) = self.event_filter(selection)?;
         let mut events = Vec::new();
         {
             let sql = format!(
@@ -434,9 +403,6 @@ impl Store {
                     effort_unit: r.get(6)?,
                 });
             }
-        }
-        if events.is_empty() {
-            return Err(self.diagnose_empty(&filters)?);
         }
 
         let mut counts = Vec::new();
@@ -494,6 +460,58 @@ impl Store {
             taxa,
             site_attributes,
         })
+    }
+
+    /// The `WHERE` clause (over `event e`) and bound parameters of the row
+    /// filters of `selection`, after checking the selection: a site, protocol
+    /// or `--site-where` key or value the store lacks is refused, naming what
+    /// exists; a selection that matches no event is refused, naming the filter
+    /// that emptied it.
+    ///
+    /// # Errors
+    /// As [`Store::select_records`].
+    pub(crate) fn event_filter(&self, selection: &Selection) -> Result<(String, Vec<Value>)> {
+        let mut sel = selection.clone();
+        sel.validate()?;
+        let conn = self.conn();
+        for code in &sel.sites {
+            let n: i64 =
+                conn.query_row("SELECT count(*) FROM site WHERE code = ?", [code], |r| {
+                    r.get(0)
+                })?;
+            if n == 0 {
+                let codes = self.codes("SELECT code FROM site ORDER BY code")?;
+                return Err(StoreError::Refused(format!(
+                    "--site {code}: no such site{} (`tally summary` lists the sites)",
+                    known("sites", &codes, code)
+                )));
+            }
+        }
+        if let Some(p) = &sel.protocol {
+            let n: i64 =
+                conn.query_row("SELECT count(*) FROM protocol WHERE code = ?", [p], |r| {
+                    r.get(0)
+                })?;
+            if n == 0 {
+                let codes = self.codes("SELECT code FROM protocol ORDER BY code")?;
+                return Err(StoreError::Refused(format!(
+                    "--protocol {p}: no such protocol{}",
+                    known("protocols", &codes, p)
+                )));
+            }
+        }
+        self.check_site_where(&sel.site_where)?;
+        let filters = sel.filters();
+        let (wh, params) = where_clause(&filters);
+        let n: i64 = conn.query_row(
+            &format!("SELECT count(*) FROM event e{wh}"),
+            rusqlite::params_from_iter(params.iter()),
+            |r| r.get(0),
+        )?;
+        if n == 0 {
+            return Err(self.diagnose_empty(&filters)?);
+        }
+        Ok((wh, params))
     }
 
     /// The first column of every row of `sql` (no parameters).

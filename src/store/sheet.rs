@@ -63,9 +63,16 @@ const KEEP: usize = 10_000;
 impl Issues {
     /// Record one problem.
     pub fn push(&mut self, line: u64, column: &str, message: impl Into<String>) {
+        self.push_in("", line, column, message);
+    }
+
+    /// Record one problem of the file `part` inside an archive (`column` is
+    /// the term then).
+    pub fn push_in(&mut self, part: &str, line: u64, column: &str, message: impl Into<String>) {
         self.total += 1;
         if self.kept.len() < KEEP {
             self.kept.push(RowIssue {
+                part: part.to_string(),
                 line,
                 column: column.to_string(),
                 message: message.into(),
@@ -80,7 +87,8 @@ impl Issues {
 
     /// The first `n` problems in line order, and the total.
     pub fn first(mut self, n: usize) -> (Vec<RowIssue>, usize) {
-        self.kept.sort_by_key(|i| i.line);
+        self.kept
+            .sort_by(|a, b| (&a.part, a.line).cmp(&(&b.part, b.line)));
         self.kept.truncate(n);
         (self.kept, self.total)
     }

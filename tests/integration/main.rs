@@ -6,6 +6,7 @@ mod demo_data;
 mod designs_cli;
 mod distance_properties;
 mod diversity;
+mod dwca;
 mod engine_cli;
 mod import;
 mod matrix_cli;

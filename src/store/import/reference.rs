@@ -515,7 +515,7 @@ pub(crate) fn import_taxa(
 
 /// The problems the new rows would add to the stored taxonomy, each reported at
 /// the first new row of its chain.
-fn taxonomy_issues(
+pub(crate) fn taxonomy_issues(
     tx: &Transaction<'_>,
     fresh: &[TaxonRow],
     created: &[String],

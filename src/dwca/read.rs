@@ -1,0 +1,1077 @@
+//! A Darwin Core archive of sampling events read into
+//! [`ArchiveData`](crate::store::exchange::ArchiveData), checked for its own
+//! form before the store is touched.
+//!
+//! The files are read as `meta.xml` declares them (Darwin Core text guide):
+//! the fields' order and delimiters, `ignoreHeaderLines`, enclosing quotes,
+//! `default` values (for a field without a column, or an empty cell), UTF-8.
+//! The core must be an Event core and one extension an Occurrence extension;
+//! other extensions are not read (the import says so). Every problem is named
+//! by file, line and term, and all are collected before refusing.
+//!
+//! Rules that are choices of tally (documented in `docs/data-model.md`):
+//! - an event is one day: `eventDate` is a date, a date and time, or a range
+//!   within one day; a time zone is not stored;
+//! - a core row that is the parent (`parentEventID`) of other rows and has no
+//!   occurrence of its own is a grouping row, not a sampling event: it is not
+//!   stored (and the import says how many);
+//! - a count is `individualCount`, or `organismQuantity` when
+//!   `organismQuantityType` is individuals; both given must agree; an absent
+//!   occurrence is a zero of a complete census and stores nothing;
+//! - occurrences of one taxon in one event (life stages or sexes apart) are
+//!   added up into one count (the import says how many were);
+//! - the place is `locationID`, or else the locality and coordinates.
+
+use std::collections::{BTreeMap, HashMap, HashSet};
+use std::io::{Cursor, Read};
+use std::path::Path;
+
+use sha2::{Digest, Sha256};
+
+use super::meta::{self, FileSpec, Meta};
+use super::{HIGHER_RANKS, dwc_term};
+use crate::store::exchange::{
+    ArchiveCount, ArchiveData, ArchiveEvent, ArchiveProtocol, ArchiveSite, ArchiveTaxon,
+};
+use crate::store::import::{
+    MAX_REPORTED_ISSUES, parse_coordinate, parse_count, parse_date, parse_effort, parse_time,
+};
+use crate::store::sheet::Issues;
+use crate::store::taxa::integrity::rank_level;
+use crate::store::{Result, StoreError};
+
+/// The largest file inside an archive that is read (decompressed).
+pub const MAX_PART_BYTES: u64 = 2 << 30;
+
+/// What reading found besides the data: what was not read, and choices made.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize)]
+pub struct ReadNotes {
+    /// Terms of the files that tally does not store, as `file: term` (each once).
+    pub terms_not_stored: Vec<String>,
+    /// Row types of extensions that were not read.
+    pub extensions_not_read: Vec<String>,
+    /// Absent occurrences (zeros of a complete census; nothing stored).
+    pub absences: usize,
+    /// Occurrences added to an earlier one of the same event and taxon.
+    pub merged: usize,
+    /// Core rows that only group other events (no occurrence of their own).
+    pub grouping_rows: usize,
+}
+
+/// The core terms that are read.
+const EVENT_READ: &[&str] = &[
+    "eventID",
+    "parentEventID",
+    "eventDate",
+    "eventTime",
+    "locationID",
+    "locality",
+    "decimalLatitude",
+    "decimalLongitude",
+    "geodeticDatum",
+    "samplingProtocol",
+    "sampleSizeValue",
+    "sampleSizeUnit",
+    "eventRemarks",
+    "dynamicProperties",
+    // Written by tally from what it stores, and so read as known:
+    "samplingEffort",
+];
+
+/// The occurrence terms that are read (or, like `occurrenceID`, made again from
+/// the event and the taxon on export).
+const OCCURRENCE_READ: &[&str] = &[
+    "eventID",
+    "occurrenceID",
+    "basisOfRecord",
+    "scientificName",
+    "taxonRank",
+    "kingdom",
+    "phylum",
+    "class",
+    "order",
+    "family",
+    "genus",
+    "individualCount",
+    "organismQuantity",
+    "organismQuantityType",
+    "occurrenceStatus",
+    "verbatimIdentification",
+];
+
+/// Read the archive at `path`.
+///
+/// # Errors
+/// [`StoreError::Io`] when the file cannot be read; as [`read_bytes`].
+pub fn read_path(path: &Path) -> Result<(ArchiveData, ReadNotes)> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|source| StoreError::Io {
+        file: file.clone(),
+        source,
+    })?;
+    read_bytes(&file, &bytes)
+}
+
+/// One table's rows: line and fields.
+struct Table {
+    part: String,
+    spec: FileSpec,
+    rows: Vec<(u64, csv::StringRecord)>,
+}
+
+impl Table {
+    /// The value of term `name` in `rec`: its cell (trimmed), or the field's
+    /// default when the cell is empty or the field has no column.
+    fn get<'a>(&'a self, rec: &'a csv::StringRecord, name: &str) -> &'a str {
+        let Some(f) = self.spec.field(name) else {
+            return "";
+        };
+        let cell = f.index.and_then(|i| rec.get(i)).map_or("", str::trim);
+        if cell.is_empty() {
+            f.default.as_deref().map_or("", str::trim)
+        } else {
+            cell
+        }
+    }
+
+    /// The row's id (`<id>` or `<coreid>` column), or its `eventID`.
+    fn id<'a>(&'a self, rec: &'a csv::StringRecord) -> &'a str {
+        match self.spec.id_index {
+            Some(i) => rec.get(i).map_or("", str::trim),
+            None => self.get(rec, "eventID"),
+        }
+    }
+}
+
+fn invalid(file: &str, issues: Issues) -> StoreError {
+    let (issues, total) = issues.first(MAX_REPORTED_ISSUES);
+    StoreError::Invalid {
+        file: file.to_string(),
+        issues,
+        total,
+    }
+}
+
+/// Read the archive `bytes`, the content of a file called `file`.
+///
+/// # Errors
+/// [`StoreError::Invalid`] with every problem found (by file, line and term):
+/// not a zip archive, no or a broken `meta.xml`, not an Event core with an
+/// Occurrence extension, unreadable text, values that cannot be mapped.
+pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> {
+    let mut issues = Issues::default();
+    let mut zip = match zip::ZipArchive::new(Cursor::new(bytes)) {
+        Ok(z) => z,
+        Err(e) => {
+            issues.push(
+                0,
+                "",
+                format!("not a readable zip archive ({e}); a Darwin Core archive is a zip file holding meta.xml and the data files"),
+            );
+            return Err(invalid(file, issues));
+        }
+    };
+    // meta.xml at the top, or in the one folder everything is in.
+    let meta_name = zip
+        .file_names()
+        .filter_map(std::result::Result::ok)
+        .map(|n| n.to_string())
+        .filter(|n| n == "meta.xml" || n.ends_with("/meta.xml"))
+        .min_by_key(|n| n.matches('/').count());
+    let Some(meta_name) = meta_name else {
+        issues.push(
+            0,
+            "",
+            "the archive holds no meta.xml; tally reads archives whose meta.xml declares an Event core and an Occurrence extension",
+        );
+        return Err(invalid(file, issues));
+    };
+    let base = meta_name.strip_suffix("meta.xml").unwrap_or("").to_string();
+    let meta_text = match read_part(&mut zip, &meta_name) {
+        Ok(b) => match String::from_utf8(strip_bom(b)) {
+            Ok(t) => t,
+            Err(_) => {
+                issues.push_in("meta.xml", 0, "", "not UTF-8 text");
+                return Err(invalid(file, issues));
+            }
+        },
+        Err(m) => {
+            issues.push_in("meta.xml", 0, "", m);
+            return Err(invalid(file, issues));
+        }
+    };
+    let meta: Meta = match meta::parse(&meta_text) {
+        Ok(m) => m,
+        Err(m) => {
+            issues.push_in("meta.xml", 0, "", m);
+            return Err(invalid(file, issues));
+        }
+    };
+    let core_type = dwc_term(&meta.core.row_type);
+    if core_type != Some("Event") {
+        let what = if core_type == Some("Occurrence") {
+            "an occurrence-only dataset (Occurrence core): it says where taxa were seen, \
+             not the sampling events and their effort that tally compares; ask for the \
+             sampling-event archive (Event core with an Occurrence extension)"
+                .to_string()
+        } else {
+            format!(
+                "the core's rowType is {}; tally reads sampling-event archives (core rowType http://rs.tdwg.org/dwc/terms/Event)",
+                meta.core.row_type
+            )
+        };
+        issues.push_in("meta.xml", 0, "rowType", what);
+        return Err(invalid(file, issues));
+    }
+    let mut notes = ReadNotes::default();
+    let mut occurrence_spec = None;
+    for x in &meta.extensions {
+        if dwc_term(&x.row_type) == Some("Occurrence") && occurrence_spec.is_none() {
+            occurrence_spec = Some(x.clone());
+        } else {
+            notes.extensions_not_read.push(x.row_type.clone());
+        }
+    }
+    let Some(occurrence_spec) = occurrence_spec else {
+        issues.push_in(
+            "meta.xml",
+            0,
+            "rowType",
+            "the archive has no Occurrence extension: its events carry no counts",
+        );
+        return Err(invalid(file, issues));
+    };
+    let core = read_table(&mut zip, &base, meta.core.clone(), &mut issues);
+    let occ = read_table(&mut zip, &base, occurrence_spec, &mut issues);
+    let (Some(core), Some(occ)) = (core, occ) else {
+        return Err(invalid(file, issues));
+    };
+    for (table, read) in [(&core, EVENT_READ), (&occ, OCCURRENCE_READ)] {
+        for f in &table.spec.fields {
+            let term = dwc_term(&f.term).unwrap_or(&f.term);
+            let label = format!("{}: {term}", table.part);
+            if !read.contains(&term) && !notes.terms_not_stored.contains(&label) {
+                notes.terms_not_stored.push(label);
+            }
+        }
+    }
+    for (table, needed) in [
+        (
+            &core,
+            &[
+                "eventDate",
+                "samplingProtocol",
+                "sampleSizeValue",
+                "sampleSizeUnit",
+            ][..],
+        ),
+        (&occ, &["scientificName"][..]),
+    ] {
+        for term in needed {
+            if table.spec.field(term).is_none() {
+                issues.push_in(
+                    "meta.xml",
+                    0,
+                    term,
+                    format!(
+                        "{} declares no field for {term}; tally needs it for every {}",
+                        table.part,
+                        if table.part == core.part {
+                            "event"
+                        } else {
+                            "occurrence"
+                        }
+                    ),
+                );
+            }
+        }
+    }
+    if core.spec.id_index.is_none() && core.spec.field("eventID").is_none() {
+        issues.push_in(
+            "meta.xml",
+            0,
+            "eventID",
+            "the core declares neither <id> nor eventID",
+        );
+    }
+    if occ.spec.id_index.is_none() {
+        issues.push_in(
+            "meta.xml",
+            0,
+            "coreid",
+            "the Occurrence extension declares no <coreid> linking it to the events",
+        );
+    }
+    if !issues.is_empty() {
+        return Err(invalid(file, issues));
+    }
+    let mut data = ArchiveData {
+        file: file.to_string(),
+        sha256: crate::store::import::hex(&Sha256::digest(bytes)),
+        rows: core.rows.len() + occ.rows.len(),
+        ..ArchiveData::default()
+    };
+    map(&core, &occ, &mut data, &mut notes, &mut issues);
+    if issues.is_empty() {
+        Ok((data, notes))
+    } else {
+        Err(invalid(file, issues))
+    }
+}
+
+fn strip_bom(mut b: Vec<u8>) -> Vec<u8> {
+    if b.starts_with(&[0xEF, 0xBB, 0xBF]) {
+        b.drain(..3);
+    }
+    b
+}
+
+fn read_part(
+    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
+    name: &str,
+) -> std::result::Result<Vec<u8>, String> {
+    let mut f = zip.by_name(name).map_err(|e| match e {
+        zip::result::ZipError::FileNotFound => {
+            format!("{name} is declared in meta.xml but is not in the archive")
+        }
+        e => format!("{name} cannot be read from the archive ({e})"),
+    })?;
+    if f.size() > MAX_PART_BYTES {
+        return Err(format!(
+            "{name} holds {} bytes, more than tally reads from one file ({MAX_PART_BYTES}); split the archive",
+            f.size()
+        ));
+    }
+    let mut out = Vec::with_capacity(usize::try_from(f.size()).unwrap_or(0));
+    (&mut f)
+        .take(MAX_PART_BYTES + 1)
+        .read_to_end(&mut out)
+        .map_err(|e| format!("{name} cannot be read from the archive ({e})"))?;
+    Ok(out)
+}
+
+/// One byte of a delimiter attribute, or a problem.
+fn one_byte(value: &str, attr: &str) -> std::result::Result<u8, String> {
+    match value.as_bytes() {
+        [b] if b.is_ascii() => Ok(*b),
+        _ => Err(format!(
+            "{attr}=\"{}\": tally reads delimiters of one ASCII character",
+            value.escape_default()
+        )),
+    }
+}
+
+fn read_table(
+    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
+    base: &str,
+    spec: FileSpec,
+    issues: &mut Issues,
+) -> Option<Table> {
+    let part = spec.locations.join(", ");
+    let mut ok = true;
+    let enc = spec.encoding.to_ascii_lowercase().replace(['-', '_'], "");
+    if enc != "utf8" {
+        issues.push_in(
+            "meta.xml",
+            0,
+            "encoding",
+            format!(
+                "{part} is declared as {}; tally reads UTF-8 (save the files as UTF-8 and declare encoding=\"UTF-8\")",
+                spec.encoding
+            ),
+        );
+        ok = false;
+    }
+    let delimiter = match one_byte(&spec.fields_terminated_by, "fieldsTerminatedBy") {
+        Ok(b) => b,
+        Err(m) => {
+            issues.push_in("meta.xml", 0, "fieldsTerminatedBy", m);
+            ok = false;
+            b','
+        }
+    };
+    let quote = match spec.fields_enclosed_by.as_str() {
+        "" => None,
+        q => match one_byte(q, "fieldsEnclosedBy") {
+            Ok(b) => Some(b),
+            Err(m) => {
+                issues.push_in("meta.xml", 0, "fieldsEnclosedBy", m);
+                ok = false;
+                None
+            }
+        },
+    };
+    let terminator = match spec.lines_terminated_by.as_str() {
+        "\n" | "\r\n" => csv::Terminator::CRLF,
+        t => match one_byte(t, "linesTerminatedBy") {
+            Ok(b) => csv::Terminator::Any(b),
+            Err(m) => {
+                issues.push_in("meta.xml", 0, "linesTerminatedBy", m);
+                ok = false;
+                csv::Terminator::CRLF
+            }
+        },
+    };
+    if !ok {
+        return None;
+    }
+    let mut rows = Vec::new();
+    for loc in &spec.locations {
+        // Locations are relative to meta.xml's folder; a path from the top
+        // of the archive is accepted too.
+        let inside = format!("{base}{loc}");
+        let name = if base.is_empty() || zip.index_for_name(&inside).is_some() {
+            inside
+        } else {
+            loc.clone()
+        };
+        let bytes = match read_part(zip, &name) {
+            Ok(b) => strip_bom(b),
+            Err(m) => {
+                issues.push_in(loc, 0, "", m);
+                ok = false;
+                continue;
+            }
+        };
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .delimiter(delimiter)
+            .quoting(quote.is_some())
+            .quote(quote.unwrap_or(b'"'))
+            .terminator(terminator)
+            .from_reader(bytes.as_slice());
+        let mut seen = 0;
+        let mut rec = csv::StringRecord::new();
+        loop {
+            match reader.read_record(&mut rec) {
+                Ok(false) => break,
+                Ok(true) => {
+                    let line = rec.position().map_or(0, csv::Position::line);
+                    seen += 1;
+                    if seen <= spec.ignore_header_lines {
+                        continue;
+                    }
+                    if rec.iter().all(|f| f.trim().is_empty()) {
+                        continue;
+                    }
+                    rows.push((line, rec.clone()));
+                }
+                Err(e) => {
+                    let line = e.position().map_or(0, csv::Position::line);
+                    let message = match e.kind() {
+                        csv::ErrorKind::Utf8 { .. } => {
+                            "not UTF-8 text; save the file as UTF-8".to_string()
+                        }
+                        _ => format!("unreadable row ({e})"),
+                    };
+                    issues.push_in(loc, line, "", message);
+                    ok = false;
+                    break;
+                }
+            }
+        }
+    }
+    ok.then_some(Table { part, spec, rows })
+}
+
+/// The date (and time, when given) of an `eventDate`: a date, a date and
+/// time (`T`), or a range `A/B` within one day.
+fn event_date(s: &str) -> std::result::Result<(String, Option<String>), String> {
+    let one = |p: &str| -> std::result::Result<(String, Option<String>), String> {
+        let p = p.trim();
+        let (d, t) = match p.split_once('T') {
+            Some((d, t)) => (d, Some(t)),
+            None => (p, None),
+        };
+        if d.len() != 10 {
+            return Err(format!(
+                "'{s}' is not one day; a sampling event in tally has one date (YYYY-MM-DD, ISO 8601)"
+            ));
+        }
+        let date = parse_date(d)?.text();
+        let time = match t {
+            Some(t) => time_of_day(t)?,
+            None => None,
+        };
+        Ok((date, time))
+    };
+    match s.split_once('/') {
+        None => one(s),
+        Some((a, b)) => {
+            let (da, ta) = one(a)?;
+            // The end may be a time alone or a day alone, as ISO 8601 allows.
+            let db = if b.trim().len() >= 10 {
+                one(b)?.0
+            } else {
+                da.clone()
+            };
+            if db != da {
+                return Err(format!(
+                    "'{s}' spans more than one day; a sampling event in tally has one date"
+                ));
+            }
+            Ok((da, ta))
+        }
+    }
+}
+
+/// A time of day with any fraction of seconds and time zone left off.
+fn time_of_day(t: &str) -> std::result::Result<Option<String>, String> {
+    let t = t.trim();
+    let t = t.strip_suffix('Z').unwrap_or(t);
+    let t = match t
+        .char_indices()
+        .skip(5)
+        .find(|(_, c)| *c == '+' || *c == '-')
+    {
+        Some((i, _)) => &t[..i],
+        None => t,
+    };
+    let t = t.split('.').next().unwrap_or(t);
+    parse_time(t)
+}
+
+/// What tally reads from `dynamicProperties` (JSON): site attributes, the
+/// protocol code and the replicate number; `true` when other content was there.
+struct Dynamic {
+    site: BTreeMap<String, String>,
+    protocol: Option<String>,
+    replicate: Option<i64>,
+    other: bool,
+}
+
+fn dynamic(text: &str) -> std::result::Result<Dynamic, String> {
+    let mut d = Dynamic {
+        site: BTreeMap::new(),
+        protocol: None,
+        replicate: None,
+        other: false,
+    };
+    if text.is_empty() {
+        return Ok(d);
+    }
+    let Ok(serde_json::Value::Object(m)) = serde_json::from_str::<serde_json::Value>(text) else {
+        d.other = true;
+        return Ok(d);
+    };
+    for (k, v) in m {
+        match (k.as_str(), v) {
+            ("site", serde_json::Value::Object(a)) => {
+                for (key, value) in a {
+                    let value = match value {
+                        serde_json::Value::String(s) => s,
+                        serde_json::Value::Null => continue,
+                        other => other.to_string(),
+                    };
+                    if !key.trim().is_empty() && !value.trim().is_empty() {
+                        d.site
+                            .insert(key.trim().to_string(), value.trim().to_string());
+                    }
+                }
+            }
+            ("protocolCode", serde_json::Value::String(s)) if !s.trim().is_empty() => {
+                d.protocol = Some(s.trim().to_string());
+            }
+            ("replicate", v) => match v.as_i64() {
+                Some(r) if r >= 1 => d.replicate = Some(r),
+                _ => return Err(format!("replicate {v} is not a whole number ≥ 1")),
+            },
+            _ => d.other = true,
+        }
+    }
+    Ok(d)
+}
+
+/// The count of one occurrence row, `None` for an absence.
+fn occurrence_count(
+    occ: &Table,
+    rec: &csv::StringRecord,
+) -> std::result::Result<Option<f64>, (&'static str, String)> {
+    let status = occ.get(rec, "occurrenceStatus").to_ascii_lowercase();
+    let ic = occ.get(rec, "individualCount");
+    let oq = occ.get(rec, "organismQuantity");
+    let oqt = occ.get(rec, "organismQuantityType");
+    let individual_count = if ic.is_empty() {
+        None
+    } else {
+        let v = parse_count(ic).map_err(|m| ("individualCount", m))?;
+        if v.fract() != 0.0 {
+            return Err((
+                "individualCount",
+                format!("'{ic}' is not a whole number of individuals"),
+            ));
+        }
+        Some(v)
+    };
+    let quantity = if oq.is_empty() {
+        None
+    } else {
+        let ty = oqt.to_ascii_lowercase();
+        if ty != "individuals" && ty != "individual" {
+            return Err((
+                "organismQuantityType",
+                if oqt.is_empty() {
+                    format!(
+                        "organismQuantity '{oq}' has no organismQuantityType; tally stores counts of individuals (type individuals)"
+                    )
+                } else {
+                    format!(
+                        "'{oqt}' is not a count of individuals; tally stores counts of individuals only, so this occurrence cannot be imported"
+                    )
+                },
+            ));
+        }
+        Some(parse_count(oq).map_err(|m| ("organismQuantity", m))?)
+    };
+    let value = match (individual_count, quantity) {
+        (Some(a), Some(b)) if a != b => {
+            return Err((
+                "organismQuantity",
+                format!("individualCount {ic} and organismQuantity {oq} (individuals) disagree"),
+            ));
+        }
+        (Some(a), _) | (None, Some(a)) => Some(a),
+        (None, None) => None,
+    };
+    match status.as_str() {
+        "absent" => match value {
+            None => Ok(None),
+            Some(0.0) => Ok(None),
+            Some(v) => Err((
+                "occurrenceStatus",
+                format!("the occurrence is absent but counts {v} individuals"),
+            )),
+        },
+        "present" | "" => match value {
+            None => Err((
+                "individualCount",
+                "the occurrence has no count (individualCount, or organismQuantity of type individuals); tally stores counts".into(),
+            )),
+            Some(v) if v == 0.0 && status == "present" => Err((
+                "occurrenceStatus",
+                "the occurrence is present but counts 0 individuals".into(),
+            )),
+            Some(0.0) => Ok(None),
+            Some(v) => Ok(Some(v)),
+        },
+        other => Err((
+            "occurrenceStatus",
+            format!("'{other}' is not an occurrence status; expected present or absent"),
+        )),
+    }
+}
+
+/// Fill `data` from the two tables.
+fn map(
+    core: &Table,
+    occ: &Table,
+    data: &mut ArchiveData,
+    notes: &mut ReadNotes,
+    issues: &mut Issues,
+) {
+    // Core ids, unique.
+    let mut core_row: HashMap<&str, usize> = HashMap::new();
+    let mut parents: HashSet<&str> = HashSet::new();
+    for (k, (line, rec)) in core.rows.iter().enumerate() {
+        let id = core.id(rec);
+        if id.is_empty() {
+            issues.push_in(
+                &core.part,
+                *line,
+                "eventID",
+                "empty; every event needs its eventID",
+            );
+            continue;
+        }
+        if let Some(first) = core_row.get(id) {
+            issues.push_in(
+                &core.part,
+                *line,
+                "eventID",
+                format!(
+                    "event '{id}' is listed twice (first on line {})",
+                    core.rows[*first].0
+                ),
+            );
+            continue;
+        }
+        core_row.insert(id, k);
+        let parent = core.get(rec, "parentEventID");
+        if !parent.is_empty() {
+            parents.insert(parent);
+        }
+    }
+    // Occurrences: which events have any.
+    let mut has_occurrence: HashSet<&str> = HashSet::new();
+    for (line, rec) in &occ.rows {
+        let id = occ.id(rec);
+        if core_row.contains_key(id) {
+            has_occurrence.insert(id);
+        } else {
+            issues.push_in(
+                &occ.part,
+                *line,
+                "eventID",
+                if id.is_empty() {
+                    "empty; every occurrence must name its event".to_string()
+                } else {
+                    format!("event '{id}' is not in {}", core.part)
+                },
+            );
+        }
+    }
+
+    // Places: the locationID, or the locality and coordinates.
+    let mut sites: HashMap<String, usize> = HashMap::new();
+    let mut protocols: HashMap<ArchiveProtocol, usize> = HashMap::new();
+    let mut event_index: HashMap<&str, usize> = HashMap::new();
+    let mut localities: HashMap<&str, HashSet<(String, String)>> = HashMap::new();
+    for (_, rec) in &core.rows {
+        if core.get(rec, "locationID").is_empty() {
+            localities
+                .entry(core.get(rec, "locality"))
+                .or_default()
+                .insert((
+                    core.get(rec, "decimalLatitude").to_string(),
+                    core.get(rec, "decimalLongitude").to_string(),
+                ));
+        }
+    }
+    for (line, rec) in &core.rows {
+        let line = *line;
+        let id = core.id(rec);
+        if id.is_empty() || core_row.get(id).is_none_or(|k| core.rows[*k].0 != line) {
+            continue;
+        }
+        if parents.contains(id) && !has_occurrence.contains(id) {
+            notes.grouping_rows += 1;
+            continue;
+        }
+        let mut push = |term: &str, m: String| issues.push_in(&core.part, line, term, m);
+        let date = match event_date(core.get(rec, "eventDate")) {
+            Ok(d) => Some(d),
+            Err(m) => {
+                push("eventDate", m);
+                None
+            }
+        };
+        let time = match time_of_day(core.get(rec, "eventTime")) {
+            Ok(t) => t,
+            Err(m) => {
+                push("eventTime", m);
+                None
+            }
+        };
+        let lat = parse_coordinate(core.get(rec, "decimalLatitude"), "latitude", 90.0)
+            .map_err(|m| push("decimalLatitude", m))
+            .ok()
+            .flatten();
+        let lon = parse_coordinate(core.get(rec, "decimalLongitude"), "longitude", 180.0)
+            .map_err(|m| push("decimalLongitude", m))
+            .ok()
+            .flatten();
+        let datum = core.get(rec, "geodeticDatum");
+        if !datum.is_empty()
+            && !["wgs84", "wgs 84", "epsg:4326"].contains(&datum.to_ascii_lowercase().as_str())
+        {
+            push(
+                "geodeticDatum",
+                format!(
+                    "'{datum}': tally stores WGS84 coordinates (EPSG:4326); convert them before importing"
+                ),
+            );
+        }
+        let locality = core.get(rec, "locality");
+        let code = match core.get(rec, "locationID") {
+            "" if locality.is_empty() && (lat.is_none() || lon.is_none()) => {
+                push(
+                    "locationID",
+                    "empty; the event names no place (give locationID, or locality and coordinates)".into(),
+                );
+                None
+            }
+            "" => {
+                let (la, lo) = (
+                    core.get(rec, "decimalLatitude"),
+                    core.get(rec, "decimalLongitude"),
+                );
+                Some(if locality.is_empty() {
+                    format!("{la}, {lo}")
+                } else if localities.get(locality).is_some_and(|s| s.len() > 1) {
+                    format!("{locality} ({la}, {lo})")
+                } else {
+                    locality.to_string()
+                })
+            }
+            code => Some(code.to_string()),
+        };
+        let dynamic = match dynamic(core.get(rec, "dynamicProperties")) {
+            Ok(d) => Some(d),
+            Err(m) => {
+                push("dynamicProperties", m);
+                None
+            }
+        };
+        if dynamic.as_ref().is_some_and(|d| d.other) {
+            let label = format!(
+                "{}: dynamicProperties (other than site, protocolCode, replicate)",
+                core.part
+            );
+            if !notes.terms_not_stored.contains(&label) {
+                notes.terms_not_stored.push(label);
+            }
+        }
+        let description = core.get(rec, "samplingProtocol");
+        if description.is_empty() {
+            push(
+                "samplingProtocol",
+                "empty; tally compares effort within one protocol, so every event needs its samplingProtocol".into(),
+            );
+        }
+        let unit = core.get(rec, "sampleSizeUnit");
+        if unit.is_empty() {
+            push(
+                "sampleSizeUnit",
+                "empty; the event's effort needs its unit (minutes, m2, traps…)".into(),
+            );
+        }
+        let effort = match parse_effort(core.get(rec, "sampleSizeValue")) {
+            Ok(v) => Some(v),
+            Err(m) => {
+                push(
+                    "sampleSizeValue",
+                    format!("{m}; every sampling event needs its effort"),
+                );
+                None
+            }
+        };
+        let (Some((date, date_time)), Some(code), Some(effort), Some(dynamic)) =
+            (date, code, effort, dynamic)
+        else {
+            continue;
+        };
+        if description.is_empty() || unit.is_empty() {
+            continue;
+        }
+        // The site, consistent across its events.
+        let site = ArchiveSite {
+            at: (core.part.clone(), line),
+            code: code.clone(),
+            name: locality.to_string(),
+            latitude: lat,
+            longitude: lon,
+            attributes: dynamic.site.clone(),
+        };
+        match sites.get(&code) {
+            None => {
+                sites.insert(code.clone(), data.sites.len());
+                data.sites.push(site);
+            }
+            Some(&k) => {
+                let first = &data.sites[k];
+                let differs = [
+                    (first.name != site.name, "locality"),
+                    (first.latitude != site.latitude, "decimalLatitude"),
+                    (first.longitude != site.longitude, "decimalLongitude"),
+                    (first.attributes != site.attributes, "dynamicProperties"),
+                ];
+                for (d, term) in differs {
+                    if d {
+                        issues.push_in(
+                            &core.part,
+                            line,
+                            term,
+                            format!(
+                                "site '{code}' is described otherwise on line {}; one site has one {}",
+                                first.at.1,
+                                if term == "dynamicProperties" {
+                                    "set of attributes"
+                                } else {
+                                    "value here"
+                                }
+                            ),
+                        );
+                    }
+                }
+            }
+        }
+        let protocol = ArchiveProtocol {
+            code: dynamic.protocol.clone(),
+            description: description.to_string(),
+            unit: unit.to_string(),
+        };
+        let next = protocols.len();
+        let p = *protocols.entry(protocol.clone()).or_insert(next);
+        if p == data.protocols.len() {
+            data.protocols.push(protocol);
+        }
+        event_index.insert(id, data.events.len());
+        data.events.push(ArchiveEvent {
+            at: (core.part.clone(), line),
+            code: id.to_string(),
+            site: code,
+            date,
+            time: time.or(date_time),
+            protocol: p,
+            effort,
+            replicate: dynamic.replicate,
+            notes: core.get(rec, "eventRemarks").to_string(),
+        });
+    }
+
+    // Occurrences: counts, and taxa with their classification.
+    let mut taxa: HashMap<String, usize> = HashMap::new();
+    let mut counts: HashMap<(usize, String), usize> = HashMap::new();
+    for (line, rec) in &occ.rows {
+        let line = *line;
+        let Some(&event) = event_index.get(occ.id(rec)) else {
+            continue;
+        };
+        let name = occ.get(rec, "scientificName");
+        if name.is_empty() {
+            issues.push_in(
+                &occ.part,
+                line,
+                "scientificName",
+                "empty; every occurrence needs the name of its taxon",
+            );
+            continue;
+        }
+        let value = match occurrence_count(occ, rec) {
+            Ok(v) => v,
+            Err((term, m)) => {
+                issues.push_in(&occ.part, line, term, m);
+                continue;
+            }
+        };
+        // The chain: the taxon, then the classification columns above it.
+        let rank = occ.get(rec, "taxonRank").to_ascii_lowercase();
+        let level = rank_level(&rank);
+        let mut chain: Vec<(String, String)> = vec![(name.to_string(), rank.clone())];
+        for r in HIGHER_RANKS.iter().rev() {
+            let v = occ.get(rec, r);
+            if v.is_empty() || v == name {
+                continue;
+            }
+            if let (Some(l), Some(lr)) = (level, rank_level(r))
+                && lr >= l
+            {
+                continue;
+            }
+            chain.push((v.to_string(), (*r).to_string()));
+        }
+        for k in 0..chain.len() {
+            let (n, r) = &chain[k];
+            let parent = chain.get(k + 1).map(|(p, _)| p.clone());
+            match taxa.get(n) {
+                None => {
+                    taxa.insert(n.clone(), data.taxa.len());
+                    data.taxa.push(ArchiveTaxon {
+                        at: (occ.part.clone(), line),
+                        name: n.clone(),
+                        rank: r.clone(),
+                        parent,
+                    });
+                }
+                Some(&i) => {
+                    let t = &mut data.taxa[i];
+                    if t.rank.is_empty() {
+                        t.rank = r.clone();
+                    } else if !r.is_empty() && &t.rank != r {
+                        issues.push_in(
+                            &occ.part,
+                            line,
+                            if k == 0 {
+                                "taxonRank"
+                            } else {
+                                HIGHER_RANKS
+                                    .iter()
+                                    .find(|x| *x == r)
+                                    .copied()
+                                    .unwrap_or("taxonRank")
+                            },
+                            format!("'{n}' has rank {} on line {} and {r} here", t.rank, t.at.1),
+                        );
+                    }
+                    match (&t.parent, &parent) {
+                        (None, Some(_)) => t.parent = parent,
+                        (Some(a), Some(b)) if a != b => issues.push_in(
+                            &occ.part,
+                            line,
+                            "scientificName",
+                            format!(
+                                "'{n}' is placed under '{a}' on line {} and under '{b}' here",
+                                t.at.1
+                            ),
+                        ),
+                        _ => {}
+                    }
+                }
+            }
+        }
+        let Some(value) = value else {
+            notes.absences += 1;
+            continue;
+        };
+        match counts.get(&(event, name.to_string())) {
+            Some(&c) => {
+                data.counts[c].value += value;
+                notes.merged += 1;
+            }
+            None => {
+                counts.insert((event, name.to_string()), data.counts.len());
+                data.counts.push(ArchiveCount {
+                    at: (occ.part.clone(), line),
+                    event,
+                    taxon: name.to_string(),
+                    value,
+                });
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn event_dates_are_one_day() {
+        assert_eq!(
+            event_date("2016-04-21").unwrap(),
+            ("2016-04-21".into(), None)
+        );
+        assert_eq!(
+            event_date("2016-04-21T10:40:00+02:00").unwrap(),
+            ("2016-04-21".into(), Some("10:40:00".into()))
+        );
+        assert_eq!(
+            event_date("2016-04-21T10:40Z/2016-04-21T11:10Z").unwrap(),
+            ("2016-04-21".into(), Some("10:40".into()))
+        );
+        assert!(event_date("2016-04").unwrap_err().contains("one day"));
+        assert!(
+            event_date("2016-04-21/2016-04-23")
+                .unwrap_err()
+                .contains("more than one day")
+        );
+        assert!(event_date("2016-02-30").is_err());
+    }
+
+    #[test]
+    fn dynamic_properties_keep_tallys_keys_and_flag_the_rest() {
+        let d = dynamic(
+            r#"{"site":{"reach":"upper","n":3},"protocolCode":"kick","replicate":2,"x":1}"#,
+        )
+        .unwrap();
+        assert_eq!(d.site["reach"], "upper");
+        assert_eq!(d.site["n"], "3");
+        assert_eq!(
+            (d.protocol.as_deref(), d.replicate, d.other),
+            (Some("kick"), Some(2), true)
+        );
+        assert!(dynamic("free text").unwrap().other);
+        assert!(dynamic(r#"{"replicate":0}"#).is_err());
+    }
+}
