@@ -151,6 +151,16 @@ pub fn load_demo(store: &mut Store) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// The abstract of the demo archive's metadata.
+const DEMO_ABSTRACT: &str = "Invented data of the tally demo: kick samples and cylinder samples \
+of stream invertebrates at 18 sites of the imaginary Wren Valley, spring and autumn, 2008 to 2025. \
+No real place, survey or person is described.";
+
+/// Where the demo's Darwin Core archive goes: next to the store.
+pub fn archive_path(store: &Path) -> PathBuf {
+    store.with_file_name("tally-demo-dwca.zip")
+}
+
 /// Where the demo report goes: next to the store.
 pub fn report_path(store: &Path) -> PathBuf {
     store.with_file_name("tally-demo-report.html")
@@ -183,6 +193,25 @@ pub fn run(args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::R
     let page = html::render(&a.report);
     let rp = report_path(&path);
     std::fs::write(&rp, page).with_context(|| format!("writing {}", rp.display()))?;
+    let archive = archive_path(&path);
+    let figures = super::export::dwca(
+        super::export::DwcaArgs {
+            file: archive.clone(),
+            title: Some("Wren Valley invertebrate monitoring (invented demo data)".into()),
+            description: Some(DEMO_ABSTRACT.into()),
+            contact: Some(
+                "Wren Valley monitoring team (invented) <data@wren-valley.example>".into(),
+            ),
+            licence: Some(super::export::LicenceArg::CcBy),
+            absences: false,
+            basis_of_record: super::export::BasisArg::Human,
+            force: true,
+            selection: super::selection::SelectionArgs::default(),
+        },
+        &store,
+        &mut std::io::sink(),
+    )
+    .context("exporting the demo store as a Darwin Core archive")?;
     writeln!(out)?;
     writeln!(
         out,
@@ -239,6 +268,13 @@ pub fn run(args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::R
         "These are permutation tests on invented data; read docs/methods.md before drawing conclusions from real data."
     )?;
     writeln!(out, "report: {}", rp.display())?;
+    writeln!(
+        out,
+        "archive: {} (Darwin Core, {} and {}; tally export dwca)",
+        archive.display(),
+        crate::words::count(figures.events, "event", "events"),
+        crate::words::count(figures.occurrences, "occurrence", "occurrences")
+    )?;
     writeln!(out, "store:  {}", path.display())?;
     writeln!(
         out,

@@ -119,11 +119,19 @@ pub struct DwcaArgs {
 /// The output path is refused; the selection is refused; I/O errors.
 pub fn run(args: Args, store: &Store, out: &mut dyn Write) -> anyhow::Result<()> {
     match args.what {
-        What::Dwca(a) => dwca(a, store, out),
+        What::Dwca(a) => dwca(a, store, out).map(|_| ()),
     }
 }
 
-fn dwca(args: DwcaArgs, store: &Store, out: &mut dyn Write) -> anyhow::Result<()> {
+/// Write the archive `args` describe and its account to `out`.
+///
+/// # Errors
+/// As [`run`].
+pub fn dwca(
+    args: DwcaArgs,
+    store: &Store,
+    out: &mut dyn Write,
+) -> anyhow::Result<crate::dwca::write::ExportFigures> {
     let s = &args.selection;
     let shaping: Vec<&str> = [
         (s.rank.is_some(), "--rank"),
@@ -238,5 +246,5 @@ fn dwca(args: DwcaArgs, store: &Store, out: &mut dyn Write) -> anyhow::Result<()
             "eml.xml states no licence; portals need one: give --licence CC0-1.0, CC-BY-4.0 or CC-BY-NC-4.0",
         );
     }
-    Ok(())
+    Ok(figures)
 }

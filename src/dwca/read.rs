@@ -188,7 +188,7 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
     };
     let base = meta_name.strip_suffix("meta.xml").unwrap_or("").to_string();
     let meta_text = match read_part(&mut zip, &meta_name) {
-        Ok(b) => match String::from_utf8(strip_bom(b)) {
+        Ok(b) => match String::from_utf8(b) {
             Ok(t) => t,
             Err(_) => {
                 issues.push_in("meta.xml", 0, "", "not UTF-8 text");
@@ -241,9 +241,19 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
         );
         return Err(invalid(file, issues));
     };
-    let core = read_table(&mut zip, &base, meta.core.clone(), &mut issues);
-    let occ = read_table(&mut zip, &base, occurrence_spec, &mut issues);
-    let (Some(core), Some(occ)) = (core, occ) else {
+    let mut core = Table {
+        part: meta.core.locations.join(", "),
+        spec: meta.core.clone(),
+        rows: Vec::new(),
+    };
+    let occ = Table {
+        part: occurrence_spec.locations.join(", "),
+        spec: occurrence_spec,
+        rows: Vec::new(),
+    };
+    let core_format = format_of(&core.spec, &mut issues);
+    let occ_format = format_of(&occ.spec, &mut issues);
+    let (Some(core_format), Some(occ_format)) = (core_format, occ_format) else {
         return Err(invalid(file, issues));
     };
     for (table, read) in [(&core, EVENT_READ), (&occ, OCCURRENCE_READ)] {
@@ -305,13 +315,62 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
     if !issues.is_empty() {
         return Err(invalid(file, issues));
     }
+    // The core whole (its rows are few); the occurrences one at a time.
+    let mut rows = Vec::new();
+    if !read_rows(
+        &mut zip,
+        &base,
+        &core.spec,
+        core_format,
+        &mut issues,
+        |line, rec, _| rows.push((line, rec.clone())),
+    ) {
+        return Err(invalid(file, issues));
+    }
+    core.rows = rows;
     let mut data = ArchiveData {
         file: file.to_string(),
         sha256: crate::store::import::hex(&Sha256::digest(bytes)),
-        rows: core.rows.len() + occ.rows.len(),
+        event_part: core.part.clone(),
+        occurrence_part: occ.part.clone(),
         ..ArchiveData::default()
     };
-    map(&core, &occ, &mut data, &mut notes, &mut issues);
+    let (core_row, parents) = core_ids(&core, &mut issues);
+    let mut counting = Occurrences::new(core.rows.len());
+    let mut occurrence_rows = 0;
+    let read = read_rows(
+        &mut zip,
+        &base,
+        &occ.spec,
+        occ_format,
+        &mut issues,
+        |line, rec, issues| {
+            occurrence_rows += 1;
+            counting.row(
+                &core, &occ, &core_row, line, rec, &mut data, &mut notes, issues,
+            );
+        },
+    );
+    data.rows = core.rows.len() + occurrence_rows;
+    if read {
+        let event_of = events(
+            &core,
+            &core_row,
+            &parents,
+            &counting.has_occurrence,
+            &mut data,
+            &mut notes,
+            &mut issues,
+        );
+        data.counts = counting
+            .counts
+            .into_iter()
+            .filter_map(|mut c| {
+                c.event = event_of[c.event]?;
+                Some(c)
+            })
+            .collect();
+    }
     if issues.is_empty() {
         Ok((data, notes))
     } else {
@@ -319,17 +378,12 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
     }
 }
 
-fn strip_bom(mut b: Vec<u8>) -> Vec<u8> {
-    if b.starts_with(&[0xEF, 0xBB, 0xBF]) {
-        b.drain(..3);
-    }
-    b
-}
-
-fn read_part(
-    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
+/// The text of `name` inside the archive as a stream, without a leading
+/// byte-order mark, at most [`MAX_PART_BYTES`] long.
+fn open_part<'z>(
+    zip: &'z mut zip::ZipArchive<Cursor<&[u8]>>,
     name: &str,
-) -> std::result::Result<Vec<u8>, String> {
+) -> std::result::Result<impl Read + 'z, String> {
     let mut f = zip.by_name(name).map_err(|e| match e {
         zip::result::ZipError::FileNotFound => {
             format!("{name} is declared in meta.xml but is not in the archive")
@@ -342,9 +396,24 @@ fn read_part(
             f.size()
         ));
     }
-    let mut out = Vec::with_capacity(usize::try_from(f.size()).unwrap_or(0));
+    let mut head = Vec::with_capacity(3);
     (&mut f)
-        .take(MAX_PART_BYTES + 1)
+        .take(3)
+        .read_to_end(&mut head)
+        .map_err(|e| format!("{name} cannot be read from the archive ({e})"))?;
+    if head == [0xEF, 0xBB, 0xBF] {
+        head.clear();
+    }
+    Ok(Cursor::new(head).chain(f.take(MAX_PART_BYTES)))
+}
+
+/// The whole text of `name` inside the archive (meta.xml).
+fn read_part(
+    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
+    name: &str,
+) -> std::result::Result<Vec<u8>, String> {
+    let mut out = Vec::new();
+    open_part(zip, name)?
         .read_to_end(&mut out)
         .map_err(|e| format!("{name} cannot be read from the archive ({e})"))?;
     Ok(out)
@@ -361,12 +430,16 @@ fn one_byte(value: &str, attr: &str) -> std::result::Result<u8, String> {
     }
 }
 
-fn read_table(
-    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
-    base: &str,
-    spec: FileSpec,
-    issues: &mut Issues,
-) -> Option<Table> {
+/// How a file's text is delimited, from its `meta.xml` attributes.
+#[derive(Clone, Copy)]
+struct Format {
+    delimiter: u8,
+    quote: Option<u8>,
+    terminator: csv::Terminator,
+}
+
+/// The [`Format`] `spec` declares, or `None` with its problems recorded.
+fn format_of(spec: &FileSpec, issues: &mut Issues) -> Option<Format> {
     let part = spec.locations.join(", ");
     let mut ok = true;
     let enc = spec.encoding.to_ascii_lowercase().replace(['-', '_'], "");
@@ -412,10 +485,25 @@ fn read_table(
             }
         },
     };
-    if !ok {
-        return None;
-    }
-    let mut rows = Vec::new();
+    ok.then_some(Format {
+        delimiter,
+        quote,
+        terminator,
+    })
+}
+
+/// Feed every data row of the files of `spec` to `each` (line, fields,
+/// problems), one row in memory at a time: header lines skipped, blank rows
+/// skipped. False when a file could not be read to its end.
+fn read_rows(
+    zip: &mut zip::ZipArchive<Cursor<&[u8]>>,
+    base: &str,
+    spec: &FileSpec,
+    fmt: Format,
+    issues: &mut Issues,
+    mut each: impl FnMut(u64, &csv::StringRecord, &mut Issues),
+) -> bool {
+    let mut ok = true;
     for loc in &spec.locations {
         // Locations are relative to meta.xml's folder; a path from the top
         // of the archive is accepted too.
@@ -425,8 +513,8 @@ fn read_table(
         } else {
             loc.clone()
         };
-        let bytes = match read_part(zip, &name) {
-            Ok(b) => strip_bom(b),
+        let text = match open_part(zip, &name) {
+            Ok(t) => t,
             Err(m) => {
                 issues.push_in(loc, 0, "", m);
                 ok = false;
@@ -436,11 +524,11 @@ fn read_table(
         let mut reader = csv::ReaderBuilder::new()
             .has_headers(false)
             .flexible(true)
-            .delimiter(delimiter)
-            .quoting(quote.is_some())
-            .quote(quote.unwrap_or(b'"'))
-            .terminator(terminator)
-            .from_reader(bytes.as_slice());
+            .delimiter(fmt.delimiter)
+            .quoting(fmt.quote.is_some())
+            .quote(fmt.quote.unwrap_or(b'"'))
+            .terminator(fmt.terminator)
+            .from_reader(text);
         let mut seen = 0;
         let mut rec = csv::StringRecord::new();
         loop {
@@ -455,13 +543,16 @@ fn read_table(
                     if rec.iter().all(|f| f.trim().is_empty()) {
                         continue;
                     }
-                    rows.push((line, rec.clone()));
+                    each(line, &rec, issues);
                 }
                 Err(e) => {
                     let line = e.position().map_or(0, csv::Position::line);
                     let message = match e.kind() {
                         csv::ErrorKind::Utf8 { .. } => {
                             "not UTF-8 text; save the file as UTF-8".to_string()
+                        }
+                        csv::ErrorKind::Io(io) => {
+                            format!("cannot be read from the archive ({io})")
                         }
                         _ => format!("unreadable row ({e})"),
                     };
@@ -472,7 +563,7 @@ fn read_table(
             }
         }
     }
-    ok.then_some(Table { part, spec, rows })
+    ok
 }
 
 /// The date (and time, when given) of an `eventDate`: a date, a date and
@@ -662,15 +753,12 @@ fn occurrence_count(
     }
 }
 
-/// Fill `data` from the two tables.
-fn map(
-    core: &Table,
-    occ: &Table,
-    data: &mut ArchiveData,
-    notes: &mut ReadNotes,
+/// The core's ids (each to its first row) and the ids named as parents;
+/// empty and repeated ids are problems.
+fn core_ids<'t>(
+    core: &'t Table,
     issues: &mut Issues,
-) {
-    // Core ids, unique.
+) -> (HashMap<&'t str, usize>, HashSet<&'t str>) {
     let mut core_row: HashMap<&str, usize> = HashMap::new();
     let mut parents: HashSet<&str> = HashSet::new();
     for (k, (line, rec)) in core.rows.iter().enumerate() {
@@ -702,16 +790,49 @@ fn map(
             parents.insert(parent);
         }
     }
-    // Occurrences: which events have any.
-    let mut has_occurrence: HashSet<&str> = HashSet::new();
-    for (line, rec) in &occ.rows {
+    (core_row, parents)
+}
+
+/// What the occurrences give, read one row at a time.
+struct Occurrences {
+    /// Per core row: whether any occurrence names it.
+    has_occurrence: Vec<bool>,
+    /// Taxon name → index into `ArchiveData::taxa`.
+    taxa: HashMap<String, usize>,
+    /// (core row, taxon) → index into `counts`.
+    index: HashMap<(usize, usize), usize>,
+    /// Counts, their `event` still the core row.
+    counts: Vec<ArchiveCount>,
+}
+
+impl Occurrences {
+    fn new(core_rows: usize) -> Occurrences {
+        Occurrences {
+            has_occurrence: vec![false; core_rows],
+            taxa: HashMap::new(),
+            index: HashMap::new(),
+            counts: Vec::new(),
+        }
+    }
+
+    /// Read one occurrence row: its event, count, taxon and classification.
+    #[allow(clippy::too_many_arguments)]
+    fn row(
+        &mut self,
+        core: &Table,
+        occ: &Table,
+        core_row: &HashMap<&str, usize>,
+        line: u64,
+        rec: &csv::StringRecord,
+        data: &mut ArchiveData,
+        notes: &mut ReadNotes,
+        issues: &mut Issues,
+    ) {
         let id = occ.id(rec);
-        if core_row.contains_key(id) {
-            has_occurrence.insert(id);
-        } else {
+        let Some(&event) = core_row.get(id) else {
             issues.push_in(
                 &occ.part,
-                *line,
+                line,
                 "eventID",
                 if id.is_empty() {
                     "empty; every occurrence must name its event".to_string()
@@ -719,13 +840,129 @@ fn map(
                     format!("event '{id}' is not in {}", core.part)
                 },
             );
+            return;
+        };
+        self.has_occurrence[event] = true;
+        let name = occ.get(rec, "scientificName");
+        if name.is_empty() {
+            issues.push_in(
+                &occ.part,
+                line,
+                "scientificName",
+                "empty; every occurrence needs the name of its taxon",
+            );
+            return;
+        }
+        let value = match occurrence_count(occ, rec) {
+            Ok(v) => v,
+            Err((term, m)) => {
+                issues.push_in(&occ.part, line, term, m);
+                return;
+            }
+        };
+        // The chain: the taxon, then the classification columns above it.
+        let rank = occ.get(rec, "taxonRank").to_ascii_lowercase();
+        let level = rank_level(&rank);
+        let mut chain: Vec<(String, String)> = vec![(name.to_string(), rank.clone())];
+        for r in HIGHER_RANKS.iter().rev() {
+            let v = occ.get(rec, r);
+            if v.is_empty() || v == name {
+                continue;
+            }
+            if let (Some(l), Some(lr)) = (level, rank_level(r))
+                && lr >= l
+            {
+                continue;
+            }
+            chain.push((v.to_string(), (*r).to_string()));
+        }
+        for k in 0..chain.len() {
+            let (n, r) = &chain[k];
+            let parent = chain.get(k + 1).map(|(p, _)| p.clone());
+            match self.taxa.get(n) {
+                None => {
+                    self.taxa.insert(n.clone(), data.taxa.len());
+                    data.taxa.push(ArchiveTaxon {
+                        at: (occ.part.clone(), line),
+                        name: n.clone(),
+                        rank: r.clone(),
+                        parent,
+                    });
+                }
+                Some(&i) => {
+                    let t = &mut data.taxa[i];
+                    if t.rank.is_empty() {
+                        t.rank = r.clone();
+                    } else if !r.is_empty() && &t.rank != r {
+                        issues.push_in(
+                            &occ.part,
+                            line,
+                            if k == 0 {
+                                "taxonRank"
+                            } else {
+                                HIGHER_RANKS
+                                    .iter()
+                                    .find(|x| *x == r)
+                                    .copied()
+                                    .unwrap_or("taxonRank")
+                            },
+                            format!("'{n}' has rank {} on line {} and {r} here", t.rank, t.at.1),
+                        );
+                    }
+                    match (&t.parent, &parent) {
+                        (None, Some(_)) => t.parent = parent,
+                        (Some(a), Some(b)) if a != b => issues.push_in(
+                            &occ.part,
+                            line,
+                            "scientificName",
+                            format!(
+                                "'{n}' is placed under '{a}' on line {} and under '{b}' here",
+                                t.at.1
+                            ),
+                        ),
+                        _ => {}
+                    }
+                }
+            }
+        }
+        let Some(value) = value else {
+            notes.absences += 1;
+            return;
+        };
+        let taxon = self.taxa[name];
+        match self.index.get(&(event, taxon)) {
+            Some(&c) => {
+                self.counts[c].value += value;
+                notes.merged += 1;
+            }
+            None => {
+                self.index.insert((event, taxon), self.counts.len());
+                self.counts.push(ArchiveCount {
+                    line,
+                    event,
+                    taxon,
+                    value,
+                });
+            }
         }
     }
+}
 
+/// Build the events from the core rows (grouping rows left out): for every
+/// core row, the index of its event in `data.events`, if it became one.
+fn events(
+    core: &Table,
+    core_row: &HashMap<&str, usize>,
+    parents: &HashSet<&str>,
+    has_occurrence: &[bool],
+    data: &mut ArchiveData,
+    notes: &mut ReadNotes,
+    issues: &mut Issues,
+) -> Vec<Option<usize>> {
+    let mut event_of: Vec<Option<usize>> = vec![None; core.rows.len()];
     // Places: the locationID, or the locality and coordinates.
     let mut sites: HashMap<String, usize> = HashMap::new();
     let mut protocols: HashMap<ArchiveProtocol, usize> = HashMap::new();
-    let mut event_index: HashMap<&str, usize> = HashMap::new();
     let mut localities: HashMap<&str, HashSet<(String, String)>> = HashMap::new();
     for (_, rec) in &core.rows {
         if core.get(rec, "locationID").is_empty() {
@@ -744,7 +981,8 @@ fn map(
         if id.is_empty() || core_row.get(id).is_none_or(|k| core.rows[*k].0 != line) {
             continue;
         }
-        if parents.contains(id) && !has_occurrence.contains(id) {
+        let k = core_row[id];
+        if parents.contains(id) && !has_occurrence[k] {
             notes.grouping_rows += 1;
             continue;
         }
@@ -906,9 +1144,9 @@ fn map(
         if p == data.protocols.len() {
             data.protocols.push(protocol);
         }
-        event_index.insert(id, data.events.len());
+        event_of[k] = Some(data.events.len());
         data.events.push(ArchiveEvent {
-            at: (core.part.clone(), line),
+            line,
             code: id.to_string(),
             site: code,
             date,
@@ -920,116 +1158,7 @@ fn map(
         });
     }
 
-    // Occurrences: counts, and taxa with their classification.
-    let mut taxa: HashMap<String, usize> = HashMap::new();
-    let mut counts: HashMap<(usize, String), usize> = HashMap::new();
-    for (line, rec) in &occ.rows {
-        let line = *line;
-        let Some(&event) = event_index.get(occ.id(rec)) else {
-            continue;
-        };
-        let name = occ.get(rec, "scientificName");
-        if name.is_empty() {
-            issues.push_in(
-                &occ.part,
-                line,
-                "scientificName",
-                "empty; every occurrence needs the name of its taxon",
-            );
-            continue;
-        }
-        let value = match occurrence_count(occ, rec) {
-            Ok(v) => v,
-            Err((term, m)) => {
-                issues.push_in(&occ.part, line, term, m);
-                continue;
-            }
-        };
-        // The chain: the taxon, then the classification columns above it.
-        let rank = occ.get(rec, "taxonRank").to_ascii_lowercase();
-        let level = rank_level(&rank);
-        let mut chain: Vec<(String, String)> = vec![(name.to_string(), rank.clone())];
-        for r in HIGHER_RANKS.iter().rev() {
-            let v = occ.get(rec, r);
-            if v.is_empty() || v == name {
-                continue;
-            }
-            if let (Some(l), Some(lr)) = (level, rank_level(r))
-                && lr >= l
-            {
-                continue;
-            }
-            chain.push((v.to_string(), (*r).to_string()));
-        }
-        for k in 0..chain.len() {
-            let (n, r) = &chain[k];
-            let parent = chain.get(k + 1).map(|(p, _)| p.clone());
-            match taxa.get(n) {
-                None => {
-                    taxa.insert(n.clone(), data.taxa.len());
-                    data.taxa.push(ArchiveTaxon {
-                        at: (occ.part.clone(), line),
-                        name: n.clone(),
-                        rank: r.clone(),
-                        parent,
-                    });
-                }
-                Some(&i) => {
-                    let t = &mut data.taxa[i];
-                    if t.rank.is_empty() {
-                        t.rank = r.clone();
-                    } else if !r.is_empty() && &t.rank != r {
-                        issues.push_in(
-                            &occ.part,
-                            line,
-                            if k == 0 {
-                                "taxonRank"
-                            } else {
-                                HIGHER_RANKS
-                                    .iter()
-                                    .find(|x| *x == r)
-                                    .copied()
-                                    .unwrap_or("taxonRank")
-                            },
-                            format!("'{n}' has rank {} on line {} and {r} here", t.rank, t.at.1),
-                        );
-                    }
-                    match (&t.parent, &parent) {
-                        (None, Some(_)) => t.parent = parent,
-                        (Some(a), Some(b)) if a != b => issues.push_in(
-                            &occ.part,
-                            line,
-                            "scientificName",
-                            format!(
-                                "'{n}' is placed under '{a}' on line {} and under '{b}' here",
-                                t.at.1
-                            ),
-                        ),
-                        _ => {}
-                    }
-                }
-            }
-        }
-        let Some(value) = value else {
-            notes.absences += 1;
-            continue;
-        };
-        match counts.get(&(event, name.to_string())) {
-            Some(&c) => {
-                data.counts[c].value += value;
-                notes.merged += 1;
-            }
-            None => {
-                counts.insert((event, name.to_string()), data.counts.len());
-                data.counts.push(ArchiveCount {
-                    at: (occ.part.clone(), line),
-                    event,
-                    taxon: name.to_string(),
-                    value,
-                });
-            }
-        }
-    }
+    event_of
 }
 
 #[cfg(test)]

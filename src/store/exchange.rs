@@ -244,8 +244,8 @@ pub struct ArchiveTaxon {
 /// One sampling event of the archive.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ArchiveEvent {
-    /// Where the event is (`part`, line).
-    pub at: (String, u64),
+    /// The event's line in the core file ([`ArchiveData::event_part`]).
+    pub line: u64,
     /// `eventID`.
     pub code: String,
     /// Site code.
@@ -267,12 +267,13 @@ pub struct ArchiveEvent {
 /// One count of the archive: the sum of the occurrences of one taxon in one event.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ArchiveCount {
-    /// Where the (first) occurrence is.
-    pub at: (String, u64),
+    /// The (first) occurrence's line in the extension file
+    /// ([`ArchiveData::occurrence_part`]).
+    pub line: u64,
     /// Index into [`ArchiveData::events`].
     pub event: usize,
-    /// `scientificName`.
-    pub taxon: String,
+    /// Index into [`ArchiveData::taxa`] (`scientificName`).
+    pub taxon: usize,
     /// Individuals.
     pub value: f64,
 }
@@ -286,6 +287,10 @@ pub struct ArchiveData {
     pub sha256: String,
     /// Data rows read (core and extension).
     pub rows: usize,
+    /// The core file (as problems name it).
+    pub event_part: String,
+    /// The occurrence file (as problems name it).
+    pub occurrence_part: String,
     /// Sites, in order of first mention.
     pub sites: Vec<ArchiveSite>,
     /// Protocols, in order of first mention.
@@ -421,7 +426,7 @@ fn write_archive(
             .events
             .iter()
             .find(|e| e.protocol == k)
-            .map(|e| e.at.clone())
+            .map(|e| (data.event_part.clone(), e.line))
             .unwrap_or_default();
         let code = match &p.code {
             Some(code) => {
@@ -482,7 +487,7 @@ fn write_archive(
                 .events
                 .iter()
                 .find(|e| e.protocol == k)
-                .map(|e| e.at.clone())
+                .map(|e| (data.event_part.clone(), e.line))
                 .unwrap_or_default();
             issues.push_in(&at.0, at.1, "samplingProtocol", unknown("protocol", code));
         }
@@ -492,14 +497,15 @@ fn write_archive(
     // must keep the taxonomy sound.
     let stored_taxa = load_keys(tx, "SELECT id, name, import_batch_id FROM taxon")?;
     let mut new_taxa: Vec<&ArchiveTaxon> = Vec::new();
-    for t in &data.taxa {
+    let counted: HashSet<usize> = data.counts.iter().map(|c| c.taxon).collect();
+    for (k, t) in data.taxa.iter().enumerate() {
         if stored_taxa.contains_key(&t.name) {
             continue;
         }
         if create_missing {
             new_taxa.push(t);
             created.push(format!("taxon {}", t.name));
-        } else if data.counts.iter().any(|c| c.taxon == t.name) {
+        } else if counted.contains(&k) {
             issues.push_in(&t.at.0, t.at.1, "scientificName", unknown("taxon", &t.name));
         }
     }
@@ -554,8 +560,8 @@ fn write_archive(
         if let Some((_, batch)) = stored_events.get(&e.code) {
             let from = batch.map_or(String::new(), |b| format!(" (batch {b})"));
             issues.push_in(
-                &e.at.0,
-                e.at.1,
+                &data.event_part,
+                e.line,
                 "eventID",
                 format!(
                     "event '{}' is already stored{from}; an archive import brings new events only",
@@ -580,8 +586,8 @@ fn write_archive(
             && !set.insert(r)
         {
             issues.push_in(
-                &e.at.0,
-                e.at.1,
+                &data.event_part,
+                e.line,
                 "dynamicProperties",
                 format!(
                     "replicate {r} of site {}, {} and protocol {} is already taken (in the store or by another event of the archive)",
@@ -706,7 +712,7 @@ fn write_archive(
         for c in &data.counts {
             ins.execute(params![
                 event_id[c.event],
-                taxon_id[&c.taxon],
+                taxon_id[&data.taxa[c.taxon].name],
                 c.value,
                 batch
             ])?;

@@ -246,6 +246,82 @@ mod tests {
     }
 
     #[test]
+    fn the_v5_migration_keeps_every_batch_and_reference() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("v4.db");
+        let rows = |c: &Connection| -> Vec<String> {
+            let mut out = Vec::new();
+            for t in [
+                "import_batch",
+                "site",
+                "protocol",
+                "taxon",
+                "event",
+                "count",
+            ] {
+                let mut stmt = c.prepare(&format!("SELECT * FROM {t} ORDER BY 1")).unwrap();
+                let n = stmt.column_count();
+                let mut q = stmt.query([]).unwrap();
+                while let Some(r) = q.next().unwrap() {
+                    let cells: Vec<String> = (0..n)
+                        .map(|i| format!("{:?}", r.get::<_, rusqlite::types::Value>(i).unwrap()))
+                        .collect();
+                    out.push(format!("{t}: {}", cells.join("|")));
+                }
+            }
+            out
+        };
+        let before = {
+            let mut c = Connection::open(&path).unwrap();
+            c.pragma_update(None, "application_id", APPLICATION_ID)
+                .unwrap();
+            c.pragma_update(None, "foreign_keys", true).unwrap();
+            embedded::migrations::runner()
+                .set_target(refinery::Target::Version(4))
+                .run(&mut c)
+                .unwrap();
+            c.execute_batch(
+                "INSERT INTO import_batch(id, kind, file, content_sha256, imported_at, rows) VALUES \
+                   (1, 'sites', 's.csv', printf('%064d', 1), '2024-01-01T00:00:00Z', 1), \
+                   (3, 'records', 'r.csv', printf('%064d', 3), '2024-01-02T00:00:00Z', 2); \
+                 INSERT INTO site(id, code, import_batch_id) VALUES (1, 'S1', 1); \
+                 INSERT INTO protocol(id, code, effort_unit, import_batch_id) VALUES (1, 'kick', 'minutes', 3); \
+                 INSERT INTO taxon(id, name, import_batch_id) VALUES (1, 'Baetis', 3); \
+                 INSERT INTO event(id, code, site_id, date, protocol_id, effort, import_batch_id) \
+                   VALUES (1, 'E1', 1, '2020-04-01', 1, 3, 3); \
+                 INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES (1, 1, 7, 3);",
+            )
+            .unwrap();
+            rows(&c)
+        };
+        let s = Store::open(&path).unwrap();
+        assert!(s.schema_version().unwrap() >= 5);
+        assert_eq!(rows(s.conn()), before);
+        // References to the rebuilt table name it, and are enforced again.
+        let target: String = s
+            .conn()
+            .query_row(
+                "SELECT \"table\" FROM pragma_foreign_key_list('event') WHERE \"from\" = 'import_batch_id'",
+                [],
+                |r| r.get(0),
+            )
+            .unwrap();
+        assert_eq!(target, "import_batch");
+        assert!(
+            s.conn()
+                .execute("UPDATE site SET import_batch_id = 99 WHERE id = 1", [])
+                .is_err()
+        );
+        s.conn()
+            .execute(
+                "INSERT INTO import_batch(kind, file, content_sha256, imported_at, rows) \
+                 VALUES ('dwca', 'a.zip', printf('%064d', 4), '2024-01-03T00:00:00Z', 0)",
+                [],
+            )
+            .unwrap();
+    }
+
+    #[test]
     fn refuses_missing_and_foreign_files() {
         let dir = tempfile::tempdir().unwrap();
         let missing = dir.path().join("none.db");

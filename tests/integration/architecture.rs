@@ -501,6 +501,28 @@ fn workflow_has_no_command_line_printing_environment_or_process() {
 }
 
 #[test]
+fn the_archive_layer_speaks_no_sql_and_no_command_line() {
+    let forbidden = [
+        Forbidden::Crate("rusqlite"),
+        Forbidden::Crate("clap"),
+        Forbidden::Path("crate::cli"),
+        Forbidden::Path("std::env"),
+        Forbidden::Path("std::process"),
+        Forbidden::Macro("println"),
+        Forbidden::Macro("eprintln"),
+        Forbidden::Macro("print"),
+        Forbidden::Macro("eprint"),
+    ];
+    assert_no_crossings(
+        &["src/dwca"],
+        &forbidden,
+        "the Darwin Core layer reads and writes archive files and reaches the store \
+         through its exchange API (src/store/exchange.rs); SQL belongs to src/store/, \
+         arguments and printing to src/cli/",
+    );
+}
+
+#[test]
 fn report_knows_no_store_or_command_line() {
     let forbidden = [
         Forbidden::Path("crate::store"),
