@@ -157,9 +157,14 @@ pub fn dwca(
         );
     }
     let mut sel = s.resolve(store)?;
-    if sel.rank.is_some() || sel.min_occurrences.is_some() || sel.per_effort || sel.keep_empty {
+    if sel.rank.is_some()
+        || sel.min_occurrences.is_some()
+        || sel.unit.is_some()
+        || sel.per_effort
+        || sel.keep_empty
+    {
         super::note(
-            "the saved selection's matrix settings (rank, minimum occurrences, per effort, empty rows) do not apply to an archive; its event filters do",
+            "the saved selection's matrix settings (rank, minimum occurrences, unit, per effort, empty rows) do not apply to an archive; its event filters do",
         );
     }
     sel.rank = None;
@@ -188,7 +193,10 @@ pub fn dwca(
         absences: args.absences,
         basis_of_record: args.basis_of_record.term().to_string(),
         exported_at: chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
-        selection_words: format!("{words} ({})", super::selection::flags_of(&sel)),
+        selection_words: match super::selection::flags_of(&sel) {
+            f if f.is_empty() => words.clone(),
+            f => format!("{words} ({f})"),
+        },
     };
     let figures = write_atomically(&args.file, store.path(), args.force, |file| {
         Ok(write_archive(

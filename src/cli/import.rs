@@ -51,7 +51,8 @@ pub struct Args {
     /// The CSV file (comma, semicolon or tab separated; UTF-8), or the zip
     /// file of a Darwin Core archive.
     pub file: PathBuf,
-    /// Create sites and taxa the file names but the store lacks (each is reported).
+    /// Create sites and taxa (and, from an archive, protocols) the file names
+    /// but the store lacks (each is reported).
     #[arg(long)]
     pub create_missing: bool,
     /// Overwrite counts already stored for the same event and taxon.
@@ -192,8 +193,27 @@ fn archive(args: &Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Resul
     if report.replicates_numbered > 0 {
         writeln!(
             out,
-            "{} numbered as replicates in their order in the archive (events of one site, date and protocol)",
+            "{} of the same site, date and protocol as another numbered as further replicates in their order in the archive",
             crate::words::count(report.replicates_numbered, "event", "events")
+        )?;
+    }
+    if !report.kept_as_stored.is_empty() {
+        let shown: Vec<&str> = report
+            .kept_as_stored
+            .iter()
+            .take(8)
+            .map(String::as_str)
+            .collect();
+        let more = report.kept_as_stored.len() - shown.len();
+        writeln!(
+            out,
+            "already stored, kept as stored where the archive describes them otherwise: {}{}",
+            shown.join(", "),
+            if more > 0 {
+                format!(" and {more} more")
+            } else {
+                String::new()
+            }
         )?;
     }
     if !notes.terms_not_stored.is_empty() {

@@ -111,12 +111,13 @@ pub struct Dataset {
 pub fn write(d: &Dataset) -> String {
     let mut x = String::new();
     x.push_str("<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n");
-    x.push_str(
+    x.push_str(&format!(
         "<eml:eml xmlns:eml=\"eml://ecoinformatics.org/eml-2.1.1\" \
          xmlns:xsi=\"http://www.w3.org/2001/XMLSchema-instance\" \
          xsi:schemaLocation=\"eml://ecoinformatics.org/eml-2.1.1 http://rs.gbif.org/schema/eml-gbif-profile/1.1/eml.xsd\" \
-         packageId=\"tally-export\" system=\"tally\" xml:lang=\"en\">\n",
-    );
+         packageId=\"tally-export-{}\" system=\"tally\" xml:lang=\"en\">\n",
+        xml_escape(&d.exported_at)
+    ));
     x.push_str("  <dataset>\n");
     x.push_str(&format!("    <title>{}</title>\n", xml_escape(&d.title)));
     if let Some(c) = &d.contact {
@@ -170,7 +171,7 @@ pub fn write(d: &Dataset) -> String {
         x.push_str("      <methodStep>\n        <description>\n          <para>Sampling events with their effort and the counts of every taxon found.</para>\n        </description>\n      </methodStep>\n");
     }
     x.push_str(&format!(
-        "      <sampling>\n        <studyExtent>\n          <description>\n            <para>Exported by tally {} on {}: {}.</para>\n          </description>\n        </studyExtent>\n        <samplingDescription>\n          <para>One core row per sampling event (eventID), with its effort (sampleSizeValue, sampleSizeUnit); one occurrence row per taxon counted in it (individualCount).</para>\n        </samplingDescription>\n      </sampling>\n",
+        "      <sampling>\n        <studyExtent>\n          <description>\n            <para>Exported by tally {} on {}: {}.</para>\n          </description>\n        </studyExtent>\n        <samplingDescription>\n          <para>One core row per sampling event (eventID), with its effort (sampleSizeValue, sampleSizeUnit); one occurrence row per taxon counted in it (organismQuantity, in individuals; individualCount too when the count is whole).</para>\n        </samplingDescription>\n      </sampling>\n",
         env!("CARGO_PKG_VERSION"),
         xml_escape(&d.exported_at),
         xml_escape(&d.selection)

@@ -74,16 +74,13 @@ const EVENT_READ: &[&str] = &[
     "sampleSizeUnit",
     "eventRemarks",
     "dynamicProperties",
-    // Written by tally from what it stores, and so read as known:
-    "samplingEffort",
 ];
 
-/// The occurrence terms that are read (or, like `occurrenceID`, made again from
-/// the event and the taxon on export).
+/// The occurrence terms that are read. (`occurrenceID`, `basisOfRecord` and
+/// `verbatimIdentification`, which tally writes, are not stored: an export
+/// makes them again from the event, the taxon and its options.)
 const OCCURRENCE_READ: &[&str] = &[
     "eventID",
-    "occurrenceID",
-    "basisOfRecord",
     "scientificName",
     "taxonRank",
     "kingdom",
@@ -96,7 +93,6 @@ const OCCURRENCE_READ: &[&str] = &[
     "organismQuantity",
     "organismQuantityType",
     "occurrenceStatus",
-    "verbatimIdentification",
 ];
 
 /// Read the archive at `path`.
@@ -591,11 +587,20 @@ fn event_date(s: &str) -> std::result::Result<(String, Option<String>), String> 
         None => one(s),
         Some((a, b)) => {
             let (da, ta) = one(a)?;
-            // The end may be a time alone or a day alone, as ISO 8601 allows.
-            let db = if b.trim().len() >= 10 {
-                one(b)?.0
-            } else {
+            // ISO 8601 lets the end leave out what it shares with the start:
+            // a time alone (`10:40/11:10`), or the end of the date (`/03`,
+            // `/06-10`), which takes the start's year and month.
+            let b = b.trim();
+            let end_date = b.split('T').next().unwrap_or(b);
+            let db = if end_date.contains(':') || end_date.is_empty() {
                 da.clone()
+            } else if end_date.len() < 10 && da.len() >= end_date.len() {
+                let full = format!("{}{end_date}", &da[..da.len() - end_date.len()]);
+                parse_date(&full)
+                    .map_err(|_| format!("'{s}' does not end on a date"))?
+                    .text()
+            } else {
+                one(b)?.0
             };
             if db != da {
                 return Err(format!(
@@ -1180,6 +1185,21 @@ mod tests {
             ("2016-04-21".into(), Some("10:40".into()))
         );
         assert!(event_date("2016-04").unwrap_err().contains("one day"));
+        assert!(
+            event_date("2016-04-21/23")
+                .unwrap_err()
+                .contains("more than one day")
+        );
+        assert!(
+            event_date("2016-04-21/05-02")
+                .unwrap_err()
+                .contains("more than one day")
+        );
+        assert_eq!(event_date("2016-04-21/21").unwrap().0, "2016-04-21");
+        assert_eq!(
+            event_date("2016-04-21T10:40/11:10").unwrap(),
+            ("2016-04-21".into(), Some("10:40".into()))
+        );
         assert!(
             event_date("2016-04-21/2016-04-23")
                 .unwrap_err()

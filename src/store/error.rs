@@ -89,7 +89,7 @@ pub enum StoreError {
         matched_before: usize,
     },
     /// I/O on an input file.
-    #[error("reading {file}: {source}")]
+    #[error("cannot read {file}")]
     Io {
         /// The file name.
         file: String,

@@ -314,9 +314,12 @@ pub struct ArchiveReport {
     pub protocols_created: usize,
     /// Taxa created.
     pub taxa_created: usize,
-    /// Events whose replicate number was given by their order among events
+    /// Events given a replicate number above 1 by their order among events
     /// of the same site, date and protocol (the archive did not state it).
     pub replicates_numbered: usize,
+    /// Sites and taxa already stored that the archive describes otherwise
+    /// (kept as stored): `"site S01 (locality, coordinates)"`.
+    pub kept_as_stored: Vec<String>,
 }
 
 /// Write `data` into the store as one batch of kind `dwca`, all or nothing.
@@ -395,9 +398,47 @@ fn write_archive(
 
     // Sites.
     let stored_sites = load_keys(tx, "SELECT id, code, import_batch_id FROM site")?;
+    let mut kept: Vec<String> = Vec::new();
+    let mut stored_place: HashMap<String, (String, Option<f64>, Option<f64>)> = HashMap::new();
+    {
+        let mut stmt = tx.prepare("SELECT code, name, latitude, longitude FROM site")?;
+        let mut rows = stmt.query([])?;
+        while let Some(r) = rows.next()? {
+            stored_place.insert(r.get(0)?, (r.get(1)?, r.get(2)?, r.get(3)?));
+        }
+    }
+    let mut stored_attributes: HashMap<String, BTreeMap<String, String>> = HashMap::new();
+    {
+        let mut stmt = tx.prepare(
+            "SELECT s.code, a.key, a.value FROM site_attribute a JOIN site s ON s.id = a.site_id",
+        )?;
+        let mut rows = stmt.query([])?;
+        while let Some(r) = rows.next()? {
+            stored_attributes
+                .entry(r.get(0)?)
+                .or_default()
+                .insert(r.get(1)?, r.get(2)?);
+        }
+    }
     let mut new_sites: Vec<&ArchiveSite> = Vec::new();
     for s in &data.sites {
-        if stored_sites.contains_key(&s.code) {
+        if let Some((name, lat, lon)) = stored_place.get(&s.code) {
+            let mut what = Vec::new();
+            if !s.name.is_empty() && &s.name != name {
+                what.push("locality");
+            }
+            if (s.latitude.is_some() || s.longitude.is_some())
+                && (s.latitude != *lat || s.longitude != *lon)
+            {
+                what.push("coordinates");
+            }
+            let attrs = stored_attributes.get(&s.code).cloned().unwrap_or_default();
+            if !s.attributes.is_empty() && s.attributes != attrs {
+                what.push("attributes");
+            }
+            if !what.is_empty() {
+                kept.push(format!("site {} ({})", s.code, what.join(", ")));
+            }
             continue;
         }
         if create_missing {
@@ -496,10 +537,54 @@ fn write_archive(
     // Taxa: names the store lacks are created with their rank and parent, and
     // must keep the taxonomy sound.
     let stored_taxa = load_keys(tx, "SELECT id, name, import_batch_id FROM taxon")?;
+    let mut stored_rank: HashMap<String, (String, Option<String>)> = HashMap::new();
+    {
+        let mut stmt = tx.prepare(
+            "SELECT t.name, t.rank, p.name FROM taxon t LEFT JOIN taxon p ON p.id = t.parent_id",
+        )?;
+        let mut rows = stmt.query([])?;
+        while let Some(r) = rows.next()? {
+            stored_rank.insert(r.get(0)?, (r.get(1)?, r.get(2)?));
+        }
+    }
     let mut new_taxa: Vec<&ArchiveTaxon> = Vec::new();
     let counted: HashSet<usize> = data.counts.iter().map(|c| c.taxon).collect();
+    // The taxa the counts need: the counted ones and their classification
+    // above them (a taxon named only by absences is not created).
+    let by_name: HashMap<&str, usize> = data
+        .taxa
+        .iter()
+        .enumerate()
+        .map(|(k, t)| (t.name.as_str(), k))
+        .collect();
+    let mut needed: HashSet<usize> = HashSet::new();
+    for &k in &counted {
+        let mut cur = Some(k);
+        while let Some(i) = cur {
+            if !needed.insert(i) {
+                break;
+            }
+            cur = data.taxa[i]
+                .parent
+                .as_deref()
+                .and_then(|p| by_name.get(p).copied());
+        }
+    }
     for (k, t) in data.taxa.iter().enumerate() {
-        if stored_taxa.contains_key(&t.name) {
+        if !needed.contains(&k) {
+            continue;
+        }
+        if let Some((rank, parent)) = stored_rank.get(&t.name) {
+            let mut what = Vec::new();
+            if !t.rank.is_empty() && !rank.eq_ignore_ascii_case(&t.rank) {
+                what.push("rank");
+            }
+            if t.parent.is_some() && &t.parent != parent {
+                what.push("parent");
+            }
+            if !what.is_empty() {
+                kept.push(format!("taxon {} ({})", t.name, what.join(", ")));
+            }
             continue;
         }
         if create_missing {
@@ -605,7 +690,6 @@ fn write_archive(
         let r = match e.replicate {
             Some(r) => r,
             None => {
-                numbered += 1;
                 let set = used
                     .get_mut(&key)
                     .expect("invariant: every key was seen above");
@@ -613,6 +697,9 @@ fn write_archive(
                     .find(|r| !set.contains(r))
                     .expect("invariant: a free replicate number exists");
                 set.insert(r);
+                if r > 1 {
+                    numbered += 1;
+                }
                 r
             }
         };
@@ -726,5 +813,6 @@ fn write_archive(
         protocols_created: new_protocols.len(),
         taxa_created: new_taxa.len(),
         replicates_numbered: numbered,
+        kept_as_stored: kept,
     }))
 }
