@@ -48,6 +48,15 @@ pub struct Cli {
     /// Print no notes on stderr (errors are still printed; results are unchanged).
     #[arg(long, global = true)]
     pub quiet: bool,
+    /// How long to wait for another program writing to the store before giving up.
+    #[arg(
+        long,
+        global = true,
+        value_name = "SECONDS",
+        env = "TALLY_BUSY_TIMEOUT",
+        default_value_t = 60
+    )]
+    pub busy_timeout: u64,
     /// The command.
     #[command(subcommand)]
     pub command: Command,
@@ -147,6 +156,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         }
     });
     QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
+    BUSY_SECONDS.store(cli.busy_timeout, std::sync::atomic::Ordering::Relaxed);
     let db = store_path(cli.db.as_deref());
     let result = match cli.command {
         Command::Init(args) => init::run(args, &db, &mut out),
@@ -195,8 +205,16 @@ pub fn store_path(flag: Option<&Path>) -> PathBuf {
 /// # Errors
 /// A missing file or a file that is not a tally store.
 pub fn open_store(path: &Path) -> anyhow::Result<Store> {
-    Store::open(path).with_context(|| format!("opening store {}", path.display()))
+    let store = Store::open(path).with_context(|| format!("opening store {}", path.display()))?;
+    store.set_busy_timeout(std::time::Duration::from_secs(
+        BUSY_SECONDS.load(std::sync::atomic::Ordering::Relaxed),
+    ))?;
+    Ok(store)
 }
+
+/// `--busy-timeout` of this process.
+static BUSY_SECONDS: std::sync::atomic::AtomicU64 =
+    std::sync::atomic::AtomicU64::new(crate::store::DEFAULT_BUSY_SECONDS);
 
 /// True when the error chain ends in a broken pipe (the reader went away): a success.
 pub fn is_broken_pipe(e: &anyhow::Error) -> bool {

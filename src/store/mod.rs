@@ -30,6 +30,11 @@ mod embedded {
     refinery::embed_migrations!("migrations");
 }
 
+/// How long a connection waits for another writer before giving up, unless
+/// [`Store::set_busy_timeout`] says otherwise: long enough for an import of a
+/// few million rows to finish.
+pub const DEFAULT_BUSY_SECONDS: u64 = 60;
+
 /// SQLite `application_id` of tally stores ("TALY" in ASCII).
 pub const APPLICATION_ID: i32 = 0x5441_4C59;
 
@@ -113,7 +118,8 @@ impl Store {
         // changes: https://www.sqlite.org/lang_altertable.html, "Making Other
         // Kinds Of Table Schema Changes"); every reference is checked after.
         self.conn.pragma_update(None, "foreign_keys", false)?;
-        self.conn.busy_timeout(std::time::Duration::from_secs(5))?;
+        self.conn
+            .busy_timeout(std::time::Duration::from_secs(DEFAULT_BUSY_SECONDS))?;
         // Up to 64 MiB of page cache (allocated as used): a million-row import
         // touches three b-trees of the count table, which thrash the 2 MiB default.
         self.conn.pragma_update(None, "cache_size", -65_536)?;
@@ -140,6 +146,15 @@ impl Store {
             )));
         }
         self.conn.pragma_update(None, "foreign_keys", true)?;
+        Ok(())
+    }
+
+    /// How long to wait for another writer before giving up.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn set_busy_timeout(&self, wait: std::time::Duration) -> Result<()> {
+        self.conn.busy_timeout(wait)?;
         Ok(())
     }
 
