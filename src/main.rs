@@ -17,6 +17,9 @@ fn main() -> ExitCode {
                     "tally: error: {}",
                     tally::report::format::terminal_safe(&text)
                 );
+                if let Some(advice) = tally::cli::advice(&e) {
+                    eprintln!("tally: {advice}");
+                }
             }
             ExitCode::from(1)
         }

@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::refuse_existing;
+use super::common::refuse_output_path;
 use crate::store::Store;
 
 /// Arguments of `tally backup`.
@@ -23,19 +23,30 @@ pub struct Args {
 /// # Errors
 /// The target exists (without `--force`) or is the store itself; I/O and SQLite errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    refuse_existing(&args.file, args.force)?;
+    refuse_output_path(&args.file, store.path(), args.force)?;
+    // The copy is written beside the target and renamed over it when
+    // complete, so an interrupted backup never leaves half a store.
+    let partial = {
+        let name = args
+            .file
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        args.file
+            .with_file_name(format!(".{name}.{}.partial", std::process::id()))
+    };
+    for suffix in ["", "-wal", "-shm", "-journal"] {
+        let mut p = partial.as_os_str().to_owned();
+        p.push(suffix);
+        let _ = std::fs::remove_file(PathBuf::from(p));
+    }
+    if let Err(e) = store.backup(&partial) {
+        let _ = std::fs::remove_file(&partial);
+        return Err(anyhow::Error::new(e).context(format!("backing up to {}", args.file.display())));
+    }
     if args.file.exists() {
-        let same = match (store.path(), args.file.canonicalize()) {
-            (Some(own), Ok(target)) => own.canonicalize().is_ok_and(|o| o == target),
-            _ => false,
-        };
-        if same {
-            anyhow::bail!(
-                "{} is the store being copied; back it up to another file",
-                args.file.display()
-            );
-        }
-        for suffix in ["", "-wal", "-shm"] {
+        // An earlier store's log files would be read as this copy's.
+        for suffix in ["-wal", "-shm"] {
             let mut p = args.file.as_os_str().to_owned();
             p.push(suffix);
             let p = PathBuf::from(p);
@@ -44,8 +55,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             }
         }
     }
-    store
-        .backup(&args.file)
+    std::fs::rename(&partial, &args.file)
         .with_context(|| format!("backing up to {}", args.file.display()))?;
     writeln!(out, "copied the store to {}", args.file.display())?;
     Ok(())

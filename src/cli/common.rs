@@ -216,13 +216,21 @@ pub fn finish<S: Analysis>(
 where
     S::Outcome: Render,
 {
+    let mut unsaved = None;
     let run_id = if run.no_store {
         None
     } else {
-        let id = runs::save(store, &[runs::ToSave::new(prepared, spec, outcome)?])
-            .context("storing the run")?[0];
-        super::note(&format!("stored as run {id}"));
-        Some(id)
+        match runs::save(store, &[runs::ToSave::new(prepared, spec, outcome)?]) {
+            Ok(ids) => {
+                super::note(&format!("stored as run {}", ids[0]));
+                Some(ids[0])
+            }
+            // The result is computed: print it, then say it was not stored.
+            Err(e) => {
+                unsaved = Some(e);
+                None
+            }
+        }
     };
     match run.format {
         FormatArg::Json => {
@@ -238,14 +246,24 @@ where
             }
         }
     }
+    if let Some(e) = unsaved {
+        out.flush()?;
+        let (line, _) =
+            crate::workflow::command::command_line(&spec.clone().into(), &prepared.selection);
+        return Err(anyhow::Error::new(e).context(format!(
+            "the result above was computed but NOT stored as a run; to store it, run again when \
+             the store can be written (the same seed gives the same numbers): {line}"
+        )));
+    }
     Ok(())
 }
 
 pub use crate::workflow::design::{Periods, parse_periods};
 
-/// The one overwrite rule of every command that writes a file (`report --out`,
-/// `ordinate --plot`, `backup`): an existing file is replaced only with `--force`,
-/// and the refusal comes before any work, so nothing is written or stored.
+/// The overwrite rule of every command that writes a file (`report --out`,
+/// `ordinate --plot`, `backup`, `export`): an existing file is replaced only
+/// with `--force`, and the refusal comes before any work, so nothing is
+/// written or stored. Part of [`refuse_output_path`], which every writer uses.
 ///
 /// # Errors
 /// `path` exists and `force` is not given.
@@ -265,7 +283,12 @@ pub fn refuse_existing(path: &std::path::Path, force: bool) -> anyhow::Result<()
 ///
 /// # Errors
 /// Another extension, or an existing file without `force`.
-pub fn refuse_plot_path(flag: &str, path: &std::path::Path, force: bool) -> anyhow::Result<()> {
+pub fn refuse_plot_path(
+    flag: &str,
+    path: &std::path::Path,
+    store: Option<&std::path::Path>,
+    force: bool,
+) -> anyhow::Result<()> {
     if !path
         .extension()
         .and_then(|e| e.to_str())
@@ -276,16 +299,23 @@ pub fn refuse_plot_path(flag: &str, path: &std::path::Path, force: bool) -> anyh
             path.display()
         );
     }
-    refuse_existing(path, force)
+    refuse_output_path(path, store, force)
 }
 
-/// Write `text` to `path` under [`refuse_existing`].
+/// Write `text` to `path` through [`write_atomically`].
 ///
 /// # Errors
-/// As [`refuse_existing`]; I/O errors.
-pub fn write_new_file(path: &std::path::Path, text: &str, force: bool) -> anyhow::Result<()> {
-    refuse_existing(path, force)?;
-    std::fs::write(path, text).with_context(|| format!("writing {}", path.display()))
+/// As [`write_atomically`].
+pub fn write_new_file(
+    path: &std::path::Path,
+    text: &str,
+    store: Option<&std::path::Path>,
+    force: bool,
+) -> anyhow::Result<()> {
+    write_atomically(path, store, force, |f| {
+        std::io::Write::write_all(f, text.as_bytes())
+            .with_context(|| format!("writing {}", path.display()))
+    })
 }
 
 /// Why `path` may not be written, if it may not: it is the store `store` or

@@ -192,7 +192,7 @@ pub fn run(args: Args, db_flag: Option<&Path>, out: &mut dyn Write) -> anyhow::R
     let a = ran.analysis(&ids)?;
     let page = html::render(&a.report);
     let rp = report_path(&path);
-    std::fs::write(&rp, page).with_context(|| format!("writing {}", rp.display()))?;
+    super::common::write_new_file(&rp, &page, Some(&path), true)?;
     let archive = archive_path(&path);
     let figures = super::export::dwca(
         super::export::DwcaArgs {

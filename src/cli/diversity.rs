@@ -93,7 +93,7 @@ impl Args {
 /// plot file without `--force`; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot {
-        refuse_plot_path("--plot", p, args.force)?;
+        refuse_plot_path("--plot", p, store.path(), args.force)?;
     }
     let spec = args.spec(args.run.seed());
     let sel = diversity::resolve(
@@ -114,7 +114,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             "Richness by individuals and by coverage",
         );
         let svg = crate::report::svg::diversity_svg(&plot)?;
-        write_new_file(p, &svg, args.force)?;
+        write_new_file(p, &svg, store.path(), args.force)?;
         super::note(&format!("plot written to {}", p.display()));
     }
     finish(store, &args.run, &prepared, &spec, &outcome, out)

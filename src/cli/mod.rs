@@ -224,6 +224,31 @@ pub fn is_broken_pipe(e: &anyhow::Error) -> bool {
     })
 }
 
+/// What to do about an error, when tally knows better than the error's own
+/// words: a store another program kept locked past `--busy-timeout`.
+pub fn advice(e: &anyhow::Error) -> Option<String> {
+    let busy = e.chain().any(|c| {
+        let sqlite = c.downcast_ref::<rusqlite::Error>().or_else(|| match c
+            .downcast_ref::<crate::store::StoreError>()
+        {
+            Some(crate::store::StoreError::Sqlite(s)) => Some(s),
+            _ => None,
+        });
+        matches!(
+            sqlite.and_then(rusqlite::Error::sqlite_error_code),
+            Some(rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked)
+        )
+    });
+    busy.then(|| {
+        format!(
+            "another program kept the store locked for more than {} s (an import or another tally \
+             command still writing; SQLite does not say which). Nothing was changed by this command. \
+             Run it again when the other has finished, or wait longer with --busy-timeout SECONDS",
+            BUSY_SECONDS.load(std::sync::atomic::Ordering::Relaxed)
+        )
+    })
+}
+
 /// A writer that passes whole lines through `filter` before `inner` (the one
 /// line-buffered filter of the command layer: standard output on a terminal,
 /// the sections of `tally manual`). The last line is filtered on flush or drop.

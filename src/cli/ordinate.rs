@@ -108,7 +108,7 @@ impl Args {
 /// than two axes; I/O and SQLite errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot {
-        refuse_plot_path("--plot", p, args.force)?;
+        refuse_plot_path("--plot", p, store.path(), args.force)?;
     }
     let prepared = prepare(store, &args.selection)?;
     let tested = args.method == MethodArg::Cca;
@@ -130,7 +130,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             )
         })?;
         let svg = ordination_svg(&plot).context("drawing the ordination")?;
-        write_new_file(path, &svg, args.force)?;
+        write_new_file(path, &svg, store.path(), args.force)?;
         super::note(&format!("plot written to {}", path.display()));
     }
     if tested {

@@ -13,7 +13,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use super::common::{DesignArgs, FileRunArgs, refuse_existing, write_new_file};
+use super::common::{DesignArgs, FileRunArgs, refuse_output_path, write_new_file};
 use super::common::{Periods, parse_periods};
 use super::selection::SelectionArgs;
 use crate::report::{html, input};
@@ -74,7 +74,7 @@ impl Args {
 /// Selection, field and analysis errors of the parts; an existing output file
 /// without `--force`; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    refuse_existing(&args.out, args.force)?;
+    refuse_output_path(&args.out, store.path(), args.force)?;
     let spec = args.spec(args.run.seed());
     let r = report::run(store, &spec, &Silent).context("the analyses of the report")?;
     let ids = if args.run.no_store {
@@ -83,7 +83,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         runs::save(store, &r.to_save()?).context("storing the runs of the report")?
     };
     let page = html::render(&input::report_input(&r, &ids));
-    write_new_file(&args.out, &page, args.force)?;
+    write_new_file(&args.out, &page, store.path(), args.force)?;
     writeln!(out, "report written to {}", args.out.display())?;
     Ok(())
 }

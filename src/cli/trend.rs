@@ -139,7 +139,7 @@ fn notes(group: Option<&str>, notes: &[String]) {
 /// selection; analysis refusals; SQLite and I/O errors.
 pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
     if let Some(p) = &args.plot_taxa {
-        refuse_plot_path("--plot-taxa", p, args.force)?;
+        refuse_plot_path("--plot-taxa", p, store.path(), args.force)?;
     }
     let spec = args.spec(args.run.seed());
     let sel = trend::resolve(
@@ -161,7 +161,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     anyhow::anyhow!("--plot-taxa: no taxon has a yearly rate to draw")
                 })?;
             let svg = crate::report::svg::taxon_trends_svg(&plot)?;
-            write_new_file(p, &svg, args.force)?;
+            write_new_file(p, &svg, store.path(), args.force)?;
             super::note(&format!("plot written to {}", p.display()));
         }
         return finish(store, &args.run, &prepared, &spec, &outcome, out);

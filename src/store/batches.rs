@@ -169,29 +169,7 @@ impl Store {
     /// # Errors
     /// SQLite errors.
     pub fn batch_dependents(&self, id: i64) -> Result<Vec<String>> {
-        let mut reasons = Vec::new();
-        for (sql, how) in DEPENDENTS {
-            let mut stmt = self.conn().prepare(sql)?;
-            let mut rows = stmt.query([id])?;
-            while let Some(r) = rows.next()? {
-                let other: Option<i64> = r.get(0)?;
-                let n: i64 = r.get(1)?;
-                let who = match other {
-                    Some(b) => {
-                        let file: Option<String> = self
-                            .conn()
-                            .query_row("SELECT file FROM import_batch WHERE id = ?1", [b], |r| {
-                                r.get(0)
-                            })
-                            .optional()?;
-                        format!("batch {b} ({})", file.unwrap_or_default())
-                    }
-                    None => "data entered outside any batch".to_string(),
-                };
-                reasons.push(format!("{who} holds {n} {how}"));
-            }
-        }
-        Ok(reasons)
+        dependents(self.conn(), id)
     }
 
     /// Remove batch `id` and every row it wrote, in one transaction, putting back
@@ -201,8 +179,12 @@ impl Store {
     /// [`StoreError::NotFound`] for an unknown id; [`StoreError::Refused`] naming
     /// the dependent batches when other data depends on this one; SQLite errors.
     pub fn undo_batch(&mut self, id: i64) -> Result<UndoReport> {
-        let found: Option<(String, String)> = self
-            .conn()
+        // What depends on the batch is read and acted on in one write
+        // transaction, so an import committed in between cannot slip under it.
+        let tx = self
+            .conn_mut()
+            .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let found: Option<(String, String)> = tx
             .query_row(
                 "SELECT file, created FROM import_batch WHERE id = ?1",
                 [id],
@@ -215,18 +197,15 @@ impl Store {
                 name: id.to_string(),
             });
         };
-        let reasons = self.batch_dependents(id)?;
+        let reasons = dependents(&tx, id)?;
         if !reasons.is_empty() {
             return Err(StoreError::Refused(format!(
                 "batch {id} ({file}) cannot be undone: {}; undo those batches first",
                 reasons.join("; ")
             )));
         }
-        let removed = batch_rows(self.conn(), id)?;
+        let removed = batch_rows(&tx, id)?;
         let replaced = notes(&created).replaced;
-        let tx = self
-            .conn_mut()
-            .transaction_with_behavior(TransactionBehavior::Immediate)?;
         tx.execute("DELETE FROM count WHERE import_batch_id = ?1", [id])?;
         {
             let mut put_back =
@@ -252,4 +231,30 @@ impl Store {
             restored: replaced.len(),
         })
     }
+}
+
+/// [`Store::batch_dependents`] on `conn` (a transaction, when acting on it).
+fn dependents(conn: &rusqlite::Connection, id: i64) -> Result<Vec<String>> {
+    let mut reasons = Vec::new();
+    for (sql, how) in DEPENDENTS {
+        let mut stmt = conn.prepare(sql)?;
+        let mut rows = stmt.query([id])?;
+        while let Some(r) = rows.next()? {
+            let other: Option<i64> = r.get(0)?;
+            let n: i64 = r.get(1)?;
+            let who = match other {
+                Some(b) => {
+                    let file: Option<String> = conn
+                        .query_row("SELECT file FROM import_batch WHERE id = ?1", [b], |r| {
+                            r.get(0)
+                        })
+                        .optional()?;
+                    format!("batch {b} ({})", file.unwrap_or_default())
+                }
+                None => "data entered outside any batch".to_string(),
+            };
+            reasons.push(format!("{who} holds {n} {how}"));
+        }
+    }
+    Ok(reasons)
 }

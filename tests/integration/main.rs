@@ -2,6 +2,7 @@
 mod architecture;
 mod citations;
 mod compare;
+mod concurrency;
 mod demo_data;
 mod designs_cli;
 mod distance_properties;
