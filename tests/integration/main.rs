@@ -3,6 +3,7 @@ mod architecture;
 mod citations;
 mod compare;
 mod concurrency;
+mod crash;
 mod demo_data;
 mod designs_cli;
 mod distance_properties;
