@@ -1,8 +1,9 @@
 -- V5: a Darwin Core archive is imported as one batch of its own kind ('dwca').
 -- SQLite cannot widen a CHECK constraint, so import_batch is rebuilt with the
 -- same rows and ids. Store::open runs migrations with foreign keys switched
--- off (the other tables refer to import_batch) and checks every reference
--- before switching them back on. Never edit this file once released.
+-- off (the other tables refer to import_batch) and switches them back on
+-- after; `tally check` lists any broken reference. Never edit this file once
+-- released.
 
 CREATE TABLE import_batch_v5 (
     id             INTEGER PRIMARY KEY,

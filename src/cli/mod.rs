@@ -98,7 +98,7 @@ pub enum Command {
     Summary(summary::Args),
     /// Taxonomy upkeep: list, tree, rename, merge, move, undo, history.
     Taxa(taxa::Args),
-    /// Check the store file's integrity, foreign keys and taxonomy.
+    /// Check the store: schema, file integrity, foreign keys, taxonomy, batches.
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
     Backup(backup::Args),

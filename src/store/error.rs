@@ -51,9 +51,22 @@ pub enum StoreError {
     /// The store file does not exist.
     #[error("no store at {0} (create one with `tally init`)")]
     Missing(PathBuf),
-    /// The file exists but is not a tally store.
-    #[error("{0} is not a tally store ({1})")]
+    /// The file exists but is not a tally store; the text says what it is
+    /// instead ("an empty file", "not an SQLite file (starts with …)", "an
+    /// SQLite database of some other program (application id 0x0, tables: …)").
+    #[error("{0} is not a tally store: {1}")]
     NotAStore(PathBuf, String),
+    /// The file is a tally store (or an SQLite file) shorter than its header
+    /// says; the text says by how much.
+    #[error("{0} is {1}; restore from a backup")]
+    Truncated(PathBuf, String),
+    /// SQLite found the store file damaged (`SQLITE_CORRUPT`, `SQLITE_NOTADB`)
+    /// while opening or reading it; the text is SQLite's message.
+    #[error(
+        "the store file is damaged (SQLite: {0}); restore the latest backup \
+         (`tally backup` makes one) — nothing in it can be trusted"
+    )]
+    Damaged(String),
     /// `init` was asked to create a store where a file already exists.
     #[error("{0} already exists")]
     Exists(PathBuf),

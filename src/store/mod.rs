@@ -2,8 +2,8 @@
 //!
 //! [`Store::create`] makes a new store file, [`Store::open`] opens an existing
 //! one. Both set WAL journalling, run the embedded refinery migrations
-//! (append-only files under `migrations/`) with foreign keys off, check every
-//! reference, and switch foreign keys on. A file is
+//! (append-only files under `migrations/`) with foreign keys off and
+//! switch foreign keys on after (`tally check` lists any broken reference). A file is
 //! recognised as a tally store by its SQLite `application_id`.
 use std::path::{Path, PathBuf};
 
@@ -65,9 +65,16 @@ impl Store {
 
     /// Open an existing store at `path`, applying any pending migrations.
     ///
+    /// The file's header is read first (`maintenance::recognise`), so that a
+    /// file that is not a tally store is described as what it is, and a
+    /// truncated store is named as such rather than as "not a database".
+    ///
     /// # Errors
     /// [`StoreError::Missing`] when there is no file; [`StoreError::NotAStore`]
-    /// when the file is not an SQLite database or carries another application id.
+    /// when the file is empty, not an SQLite file, or an SQLite database with
+    /// another application id; [`StoreError::Truncated`] when it is shorter
+    /// than its header says; [`StoreError::Damaged`] when SQLite finds it
+    /// damaged while opening it; other SQLite or migration errors.
     pub fn open(path: &Path) -> Result<Store> {
         if !path.exists() {
             return Err(StoreError::Missing(path.to_path_buf()));
@@ -75,28 +82,32 @@ impl Store {
         if path.is_dir() {
             return Err(StoreError::NotAStore(
                 path.to_path_buf(),
-                "it is a directory".into(),
+                "a directory".into(),
             ));
         }
+        maintenance::recognise(path)?;
         let not_a_store = |why: &str| StoreError::NotAStore(path.to_path_buf(), why.to_string());
         let conn = Connection::open_with_flags(
             path,
             rusqlite::OpenFlags::SQLITE_OPEN_READ_WRITE | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
         )
-        .map_err(|_| not_a_store("cannot be opened as an SQLite database"))?;
+        .map_err(|_| not_a_store("it cannot be opened as an SQLite database"))?;
         let id: i32 = conn
             .pragma_query_value(None, "application_id", |r| r.get(0))
-            .map_err(|_| not_a_store("not an SQLite database"))?;
+            .map_err(|e| match maintenance::damaged_or(e.into()) {
+                e @ StoreError::Damaged(_) => e,
+                _ => not_a_store("SQLite cannot read it as a database"),
+            })?;
         if id != APPLICATION_ID {
-            return Err(not_a_store(&format!(
-                "application id {id:#x}, expected {APPLICATION_ID:#x}"
-            )));
+            // The header said otherwise (its page 1 may be newer in the log).
+            drop(conn);
+            return Err(maintenance::foreign(path, id));
         }
         let mut store = Store {
             conn,
             path: Some(path.to_path_buf()),
         };
-        store.prepare()?;
+        store.prepare().map_err(maintenance::damaged_or)?;
         Ok(store)
     }
 
@@ -116,7 +127,7 @@ impl Store {
         // Migrations that rebuild a table others refer to (V5) need foreign
         // keys off while they run (SQLite's documented procedure for schema
         // changes: https://www.sqlite.org/lang_altertable.html, "Making Other
-        // Kinds Of Table Schema Changes"); every reference is checked after.
+        // Kinds Of Table Schema Changes"); `tally check` checks every reference.
         self.conn.pragma_update(None, "foreign_keys", false)?;
         self.conn
             .busy_timeout(std::time::Duration::from_secs(DEFAULT_BUSY_SECONDS))?;
@@ -134,17 +145,8 @@ impl Store {
         embedded::migrations::runner()
             .set_grouped(true)
             .run(&mut self.conn)?;
-        let broken: i64 =
-            self.conn
-                .query_row("SELECT count(*) FROM pragma_foreign_key_check", [], |r| {
-                    r.get(0)
-                })?;
-        if broken > 0 {
-            return Err(StoreError::Refused(format!(
-                "the store has {broken} broken references between tables; \
-                 `tally check` lists them (restore from a backup)"
-            )));
-        }
+        // A migration that left a broken reference is found by `tally check`
+        // (its foreign-key check), which must be able to open the store.
         self.conn.pragma_update(None, "foreign_keys", true)?;
         Ok(())
     }

@@ -71,7 +71,7 @@ fn existing_files_are_kept_unless_forced() {
     let before = env.dump();
     let (code, _, err) = env.run(["backup", own.as_str(), "--force"]);
     assert_eq!(code, 1, "{err}");
-    assert!(err.contains("store being copied"), "{err}");
+    assert!(err.contains("is the store; nothing was written"), "{err}");
     assert_eq!(before, env.dump());
 }
 
