@@ -36,7 +36,7 @@ use crate::store::exchange::{
 use crate::store::import::{
     MAX_REPORTED_ISSUES, parse_coordinate, parse_count, parse_date, parse_effort, parse_time,
 };
-use crate::store::sheet::Issues;
+use crate::store::sheet::{FieldKind, Issues, clean_field};
 use crate::store::taxa::integrity::rank_level;
 use crate::store::{Result, StoreError};
 
@@ -242,11 +242,27 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
         spec: meta.core.clone(),
         rows: Vec::new(),
     };
-    let occ = Table {
+    let mut occ = Table {
         part: occurrence_spec.locations.join(", "),
         spec: occurrence_spec,
         rows: Vec::new(),
     };
+    // Defaults declared in meta.xml are read by the same rule as cells.
+    for spec in [&mut core.spec, &mut occ.spec] {
+        for f in &mut spec.fields {
+            if let Some(d) = &f.default {
+                match clean_field(d, FieldKind::Notes) {
+                    Ok(v) => f.default = Some(v.into_owned()),
+                    Err(m) => issues.push_in(
+                        "meta.xml",
+                        0,
+                        dwc_term(&f.term).unwrap_or(&f.term),
+                        format!("default {m}"),
+                    ),
+                }
+            }
+        }
+    }
     let core_format = format_of(&core.spec, &mut issues);
     let occ_format = format_of(&occ.spec, &mut issues);
     let (Some(core_format), Some(occ_format)) = (core_format, occ_format) else {
@@ -499,6 +515,33 @@ fn read_rows(
     issues: &mut Issues,
     mut each: impl FnMut(u64, &csv::StringRecord, &mut Issues),
 ) -> bool {
+    // The columns of the terms tally stores are read by the rule of every
+    // import (trimmed, NFC, no control, zero-width or bidirectional
+    // characters, limited length: `store::sheet::clean_field`).
+    let read: &[&str] = if dwc_term(&spec.row_type) == Some("Event") {
+        EVENT_READ
+    } else {
+        OCCURRENCE_READ
+    };
+    let mut kinds: Vec<Option<(FieldKind, String)>> = Vec::new();
+    for f in &spec.fields {
+        let (Some(i), Some(term)) = (f.index, dwc_term(&f.term)) else {
+            continue;
+        };
+        if !read.contains(&term) {
+            continue;
+        }
+        if kinds.len() <= i {
+            kinds.resize(i + 1, None);
+        }
+        let kind = if matches!(term, "eventRemarks" | "dynamicProperties") {
+            FieldKind::Notes
+        } else {
+            FieldKind::Name
+        };
+        kinds[i] = Some((kind, term.to_string()));
+    }
+    let mut clean = csv::StringRecord::new();
     let mut ok = true;
     for loc in &spec.locations {
         // Locations are relative to meta.xml's folder; a path from the top
@@ -539,7 +582,24 @@ fn read_rows(
                     if rec.iter().all(|f| f.trim().is_empty()) {
                         continue;
                     }
-                    each(line, &rec, issues);
+                    clean.clear();
+                    let mut fine = true;
+                    for (i, field) in rec.iter().enumerate() {
+                        match kinds.get(i).and_then(Option::as_ref) {
+                            Some((kind, term)) => match clean_field(field, *kind) {
+                                Ok(v) => clean.push_field(&v),
+                                Err(m) => {
+                                    issues.push_in(loc, line, term, m);
+                                    fine = false;
+                                    clean.push_field("");
+                                }
+                            },
+                            None => clean.push_field(field),
+                        }
+                    }
+                    if fine {
+                        each(line, &clean, issues);
+                    }
                 }
                 Err(e) => {
                     let line = e.position().map_or(0, csv::Position::line);

@@ -6,7 +6,9 @@
 //!
 //! 1. **parse** (pure, no store): every kind reads its file through one
 //!    prologue, `parse_rows` (the text through `Sheet` (`store::sheet`), the
-//!    header mapped to the kind's columns), and each field is checked for its
+//!    header mapped to the kind's columns; `Sheet` also applies the one rule
+//!    for text to every field: trimmed, Unicode NFC, no control, zero-width or
+//!    bidirectional characters, a length limit), and each field is checked for its
 //!    own form (dates, numbers, ranges), every problem becoming a
 //!    [`RowIssue`](super::RowIssue) with line, column and what was expected;
 //!    keys listed twice are found with `Unique`;
@@ -27,8 +29,10 @@ use rusqlite::{Transaction, TransactionBehavior, params};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
 
-use super::sheet::{Issues, Sheet};
+use super::sheet::{FieldKind, Issues, Sheet, shorten};
 use super::{Result, Store, StoreError};
+
+pub use super::sheet::{MAX_NAME_CHARS, MAX_NOTES_CHARS, MAX_QUOTED_CHARS};
 
 mod records;
 pub(crate) mod reference;
@@ -158,21 +162,50 @@ pub struct ImportReport {
     pub unchanged: usize,
 }
 
+/// The largest file [`import_path`] reads: 2 GiB. A file is read whole into
+/// memory (and parsed into rows beside it), so a larger one is refused before
+/// reading, with the advice to split it.
+pub const MAX_FILE_BYTES: u64 = 2 << 30;
+
+/// The message for a file larger than [`MAX_FILE_BYTES`].
+fn too_big(file: &str, size: u64) -> String {
+    format!(
+        "{file} is {size} bytes, more than the {MAX_FILE_BYTES} bytes (2 GiB) an import reads; \
+         split it into smaller files (each with the header line) and import them one by one"
+    )
+}
+
 /// Import the file at `path`.
 ///
 /// # Errors
-/// [`StoreError::Io`] when the file cannot be read; otherwise as [`import_bytes`].
+/// [`StoreError::Io`] when the file cannot be read; [`StoreError::Refused`]
+/// when it is larger than [`MAX_FILE_BYTES`] (found from its metadata, before
+/// reading); otherwise as [`import_bytes`].
 pub fn import_path(
     store: &mut Store,
     kind: ImportKind,
     path: &Path,
     opts: &ImportOptions,
 ) -> Result<ImportReport> {
+    use std::io::Read;
     let file = path.display().to_string();
-    let bytes = std::fs::read(path).map_err(|source| StoreError::Io {
+    let io = |source| StoreError::Io {
         file: file.clone(),
         source,
-    })?;
+    };
+    let f = std::fs::File::open(path).map_err(io)?;
+    let size = f.metadata().map_err(io)?.len();
+    if size > MAX_FILE_BYTES {
+        return Err(StoreError::Refused(too_big(&file, size)));
+    }
+    // The file may grow while it is read: read at most one byte past the limit.
+    let mut bytes = Vec::with_capacity(usize::try_from(size).unwrap_or(0));
+    f.take(MAX_FILE_BYTES + 1)
+        .read_to_end(&mut bytes)
+        .map_err(io)?;
+    if bytes.len() as u64 > MAX_FILE_BYTES {
+        return Err(StoreError::Refused(too_big(&file, bytes.len() as u64)));
+    }
     import_bytes(store, kind, &file, &bytes, opts)
 }
 
@@ -340,7 +373,7 @@ impl Columns {
                 None if allow_extra => extra.push((i, name.clone())),
                 None => issues.push(
                     1,
-                    name,
+                    &shorten(name),
                     format!(
                         "unknown column for a {kind} file; expected {}{}",
                         required.join(","),
@@ -454,12 +487,15 @@ pub(crate) fn parse_rows<C>(
     columns: impl FnOnce(&Columns) -> C,
     mut row: impl FnMut(&C, &mut Row<'_>),
 ) -> usize {
-    let Some(sheet) = Sheet::open(bytes, delimiter, issues) else {
+    let Some(mut sheet) = Sheet::open(bytes, delimiter, issues) else {
         return 0;
     };
     let Some(cols) = Columns::map(&sheet, kind, kind == ImportKind::Sites, issues) else {
         return 0;
     };
+    if let Some(i) = cols.col("notes").idx {
+        sheet.set_kind(i, FieldKind::Notes);
+    }
     let cols = columns(&cols);
     sheet.rows(issues, |line, rec, issues| {
         row(&cols, &mut Row { line, rec, issues });
@@ -499,7 +535,10 @@ impl Unique<String> {
             Some(first) => {
                 row.issue(
                     column,
-                    format!("{what} '{key}' is listed twice (first on line {first})"),
+                    format!(
+                        "{what} '{}' is listed twice (first on line {first})",
+                        shorten(key)
+                    ),
                 );
                 false
             }
@@ -534,6 +573,7 @@ pub(crate) fn parse_date(s: &str) -> std::result::Result<IsoDate, String> {
     if s.is_empty() {
         return Err("empty; expected a date YYYY-MM-DD".into());
     }
+    let shown = shorten(s);
     if b.len() != 10
         || b[4] != b'-'
         || b[7] != b'-'
@@ -542,18 +582,18 @@ pub(crate) fn parse_date(s: &str) -> std::result::Result<IsoDate, String> {
         || !digits(8..10)
     {
         return Err(format!(
-            "'{s}' is not a date; expected YYYY-MM-DD (ISO 8601, e.g. 2016-04-21)"
+            "'{shown}' is not a date; expected YYYY-MM-DD (ISO 8601, e.g. 2016-04-21)"
         ));
     }
     let num =
         |r: std::ops::Range<usize>| b[r].iter().fold(0u32, |a, d| a * 10 + u32::from(d - b'0'));
     let (y, m, d) = (num(0..4), num(5..7), num(8..10));
     if !(1..=12).contains(&m) {
-        return Err(format!("'{s}' has month {m}; months run 01 to 12"));
+        return Err(format!("'{shown}' has month {m}; months run 01 to 12"));
     }
     if chrono::NaiveDate::from_ymd_opt(y as i32, m, d).is_none() {
         return Err(format!(
-            "'{s}' does not exist (day {d} is past the end of the month)"
+            "'{shown}' does not exist (day {d} is past the end of the month)"
         ));
     }
     Ok(IsoDate(y * 10_000 + m * 100 + d))
@@ -577,59 +617,147 @@ pub(crate) fn parse_time(s: &str) -> std::result::Result<Option<String>, String>
         Ok(Some(s.to_string()))
     } else {
         Err(format!(
-            "'{s}' is not a time of day; expected HH:MM or HH:MM:SS (24-hour)"
+            "'{}' is not a time of day; expected HH:MM or HH:MM:SS (24-hour)",
+            shorten(s)
         ))
     }
 }
 
-/// The largest value the schema accepts for counts and effort.
+/// The largest value the schema accepts for effort (and counts, which the
+/// importer limits further: [`MAX_EXACT_COUNT`], [`MAX_COUNT`]).
 const MAX_VALUE: f64 = 1.0e300;
+
+/// The smallest sampling effort accepted, in the protocol's unit: 1e-9. Effort
+/// divides counts, so an absurdly small (or subnormal) effort turns any count
+/// into a huge density; a real effort that small belongs under a protocol with
+/// a smaller unit.
+pub const MIN_EFFORT: f64 = 1e-9;
+
+/// The largest whole count: 2^53 = 9007199254740992. Every whole number up to
+/// it is exactly an IEEE 754 binary64 value; above it some are not (2^53 + 1
+/// is not), so a count there could be stored as another number.
+pub const MAX_EXACT_COUNT: u64 = 1 << 53;
+
+/// The largest count with a fractional part (a density, a cover value): 1e15,
+/// below 2^53 so that such a count keeps at least two binary digits after the
+/// point.
+pub const MAX_COUNT: f64 = 1e15;
+
+/// The range of counts, as the messages state it.
+const COUNT_RANGE: &str = "a count is a whole number up to 9007199254740992 (2^53) \
+                           or a number with a fraction up to 1e15";
 
 fn parse_number(s: &str, what: &str) -> std::result::Result<f64, String> {
     if s.is_empty() {
         return Err(format!("empty; expected {what}"));
     }
+    let shown = shorten(s);
     let unsigned = s.strip_prefix(['+', '-']).unwrap_or(s);
     if ["nan", "inf", "infinity"]
         .iter()
         .any(|w| unsigned.eq_ignore_ascii_case(w))
     {
-        return Err(format!("'{s}' is not a finite number; expected {what}"));
+        return Err(format!("'{shown}' is not a finite number; expected {what}"));
     }
     let plain = s
         .bytes()
         .all(|c| c.is_ascii_digit() || matches!(c, b'.' | b'-' | b'+' | b'e' | b'E'));
     match s.parse::<f64>() {
         Ok(v) if plain && v.is_finite() => Ok(v),
-        Ok(_) if plain => Err(format!("'{s}' is too large; expected {what}")),
+        Ok(_) if plain => Err(format!("'{shown}' is too large; expected {what}")),
         _ if s.contains(',') && s.replace(',', ".").parse::<f64>().is_ok() => Err(format!(
-            "'{s}' is not a number (use '.' as the decimal point); expected {what}"
+            "'{shown}' is not a number (use '.' as the decimal point); expected {what}"
         )),
-        _ => Err(format!("'{s}' is not a number; expected {what}")),
+        _ => Err(format!("'{shown}' is not a number; expected {what}")),
     }
 }
 
-/// A count: finite, ≥ 0.
+/// The exact value a plain decimal (as [`parse_number`] accepts it: digits, at
+/// most one point, an optional exponent) is written with.
+#[derive(Debug, PartialEq, Eq)]
+enum Written {
+    /// A whole number, `None` when it is beyond `u128`.
+    Whole(Option<u128>),
+    /// A number with a nonzero fractional part.
+    Fraction,
+}
+
+fn written_value(s: &str) -> Written {
+    let s = s.trim_start_matches(['+', '-']);
+    let (mantissa, exp) = s.split_once(['e', 'E']).unwrap_or((s, "0"));
+    let exp: i64 = exp.parse().unwrap_or(if exp.starts_with('-') {
+        i64::MIN / 2
+    } else {
+        i64::MAX / 2
+    });
+    let (int, frac) = mantissa.split_once('.').unwrap_or((mantissa, ""));
+    let digits: Vec<u8> = int.bytes().chain(frac.bytes()).collect();
+    if !digits.iter().all(u8::is_ascii_digit) {
+        return Written::Fraction;
+    }
+    // Digits from `point` on are after the decimal point.
+    let point = (int.len() as i64).saturating_add(exp);
+    let n = digits.len() as i64;
+    let split = point.clamp(0, n) as usize;
+    if digits[split..].iter().any(|&d| d != b'0') {
+        return Written::Fraction;
+    }
+    let mut value = Some(0u128);
+    for &d in &digits[..split] {
+        value = value.and_then(|v| v.checked_mul(10)?.checked_add(u128::from(d - b'0')));
+    }
+    // Zeros the exponent appends (none matter when the value is 0).
+    let mut zeros = point.saturating_sub(n).max(0);
+    while zeros > 0 && value.is_some_and(|v| v != 0) {
+        value = value.and_then(|v| v.checked_mul(10));
+        zeros -= 1;
+    }
+    Written::Whole(value)
+}
+
+/// A count: a whole number from 0 to [`MAX_EXACT_COUNT`] (2^53), stored
+/// exactly, or a finite number ≥ 0 with a fraction up to [`MAX_COUNT`]
+/// (1e15). A whole number above 2^53 is refused rather than rounded, however
+/// it is written (`9007199254740993`, `9.007199254740993e15`).
 pub(crate) fn parse_count(s: &str) -> std::result::Result<f64, String> {
     const WHAT: &str = "a count ≥ 0";
     let v = parse_number(s, WHAT)?;
+    let shown = shorten(s);
     if v < 0.0 {
-        Err(format!("'{s}' is negative; counts must be ≥ 0"))
-    } else if v > MAX_VALUE {
-        Err(format!("'{s}' is too large; expected {WHAT}"))
-    } else {
-        Ok(v)
+        return Err(format!("'{shown}' is negative; counts must be ≥ 0"));
+    }
+    if v <= MAX_COUNT {
+        // Whole numbers here are below 2^53, so exact; `+ 0.0` turns -0 into 0.
+        return Ok(v + 0.0);
+    }
+    // Near and above 2^53 the parsed value may be a rounding of what is
+    // written (9007199254740993 parses to 2^53): decide on the text.
+    match written_value(s) {
+        Written::Whole(Some(n)) if n <= u128::from(MAX_EXACT_COUNT) => Ok(n as f64),
+        Written::Whole(Some(n)) if (n as f64) as u128 != n => Err(format!(
+            "'{shown}' cannot be stored exactly (counts above 2^53 lose digits); {COUNT_RANGE}"
+        )),
+        Written::Whole(_) => Err(format!("'{shown}' is too large; {COUNT_RANGE}")),
+        Written::Fraction => Err(format!(
+            "'{shown}' is too large for a count with a fraction; {COUNT_RANGE}"
+        )),
     }
 }
 
-/// Sampling effort: finite, > 0.
+/// Sampling effort: finite, at least [`MIN_EFFORT`], at most 1e300.
 pub(crate) fn parse_effort(s: &str) -> std::result::Result<f64, String> {
     const WHAT: &str = "the sampling effort, a number > 0 in the protocol's unit";
     let v = parse_number(s, WHAT)?;
+    let shown = shorten(s);
     if v <= 0.0 {
-        Err(format!("'{s}' is not positive; effort must be > 0"))
+        Err(format!("'{shown}' is not positive; effort must be > 0"))
+    } else if v < MIN_EFFORT {
+        Err(format!(
+            "'{shown}' is below the smallest effort, {MIN_EFFORT:e} in the protocol's unit; \
+             is it a typing error? (a real effort this small needs a protocol with a smaller unit)"
+        ))
     } else if v > MAX_VALUE {
-        Err(format!("'{s}' is too large; expected {WHAT}"))
+        Err(format!("'{shown}' is too large; expected {WHAT}"))
     } else {
         Ok(v)
     }
@@ -647,7 +775,7 @@ pub(crate) fn parse_coordinate(
     let what = format!("{name} in decimal degrees between -{limit} and {limit} (or empty)");
     let v = parse_number(s, &what)?;
     if v.abs() > limit {
-        Err(format!("'{s}' is out of range; expected {what}"))
+        Err(format!("'{}' is out of range; expected {what}", shorten(s)))
     } else {
         Ok(Some(v))
     }
@@ -661,7 +789,8 @@ pub(crate) fn parse_replicate(s: &str) -> std::result::Result<i64, String> {
     match s.parse::<i64>() {
         Ok(v) if v >= 1 => Ok(v),
         _ => Err(format!(
-            "'{s}' is not a replicate number; expected a whole number ≥ 1 (or empty for 1)"
+            "'{}' is not a replicate number; expected a whole number ≥ 1 (or empty for 1)",
+            shorten(s)
         )),
     }
 }

@@ -527,6 +527,19 @@ Rhithrogena,E9,2,,,present,genus,Heptageniidae,
         "{err}"
     );
 
+    // Names are read by the rule of every import: a right-to-left override
+    // in a taxon name is refused with its code point.
+    let hostile = PARTNER_OCCURRENCES.replace("Rhithrogena,E2", "Rhithro\u{202e}gena,E2");
+    let err = refuse(
+        "bidi.zip",
+        &partner(PARTNER_META, PARTNER_EVENTS, &hostile),
+        &cm,
+    );
+    assert!(
+        err.contains("occ.csv line 6, term scientificName: contains U+202E"),
+        "{err}"
+    );
+
     // Without --create-missing, names the store lacks are listed.
     let err = refuse(
         "partner.zip",

@@ -15,7 +15,7 @@ use super::sampling::{
 };
 use super::{
     BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Table, Unique,
-    parse_count, parse_date, parse_effort, parse_replicate, parse_rows, parse_time,
+    parse_count, parse_date, parse_effort, parse_replicate, parse_rows, parse_time, shorten,
 };
 use crate::store::Result;
 use crate::store::sheet::Issues;
@@ -104,7 +104,8 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
                     row.issue(
                         "count",
                         format!(
-                            "empty; expected a count ≥ 0 for taxon '{taxon}' (write 0 if none)"
+                            "empty; expected a count ≥ 0 for taxon '{}' (write 0 if none)",
+                            shorten(taxon)
                         ),
                     );
                     None
@@ -194,18 +195,67 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
             }
         },
     );
-    for ev in &r.events {
-        if let (Some(empty), Some(listed)) = (ev.empty_line, ev.taxon_line) {
+    // A row saying nothing was found contradicts counts of the same event in the file.
+    let mut listed: HashMap<u32, Vec<u64>> = r
+        .events
+        .iter()
+        .enumerate()
+        .filter(|(_, ev)| ev.empty_line.is_some() && ev.taxon_line.is_some())
+        .map(|(e, _)| (e as u32, Vec::new()))
+        .collect();
+    if !listed.is_empty() {
+        for c in &r.rows {
+            if let Some(lines) = listed.get_mut(&c.event) {
+                lines.push(c.line);
+            }
+        }
+    }
+    for (e, ev) in r.events.iter().enumerate() {
+        if let (Some(empty), Some(lines)) = (ev.empty_line, listed.get(&(e as u32))) {
             issues.push(
                 empty,
                 "taxon",
                 format!(
-                    "empty taxon and count mean nothing was found, but line {listed} lists a taxon for the same event"
+                    "event {} has counts on {}; a row saying nothing was found contradicts them",
+                    r.describe(ev),
+                    line_list(lines)
                 ),
             );
         }
     }
     r
+}
+
+impl Records {
+    /// An event as the file gives it, for messages: `S08 2016-04-21 kick 1`.
+    fn describe(&self, ev: &RecordEvent) -> String {
+        format!(
+            "{} {} {} {}",
+            shorten(&self.sites.names[ev.site as usize]),
+            ev.date.text(),
+            shorten(&self.protocols.names[ev.protocol as usize]),
+            ev.replicate
+        )
+    }
+}
+
+/// "line 4" or "lines 4, 5" (the first ten, then how many more).
+fn line_list(lines: &[u64]) -> String {
+    const SHOWN: usize = 10;
+    let mut s = lines
+        .iter()
+        .take(SHOWN)
+        .map(u64::to_string)
+        .collect::<Vec<_>>()
+        .join(", ");
+    if lines.len() > SHOWN {
+        s.push_str(&format!(" and {} more", lines.len() - SHOWN));
+    }
+    if lines.len() == 1 {
+        format!("line {s}")
+    } else {
+        format!("lines {s}")
+    }
 }
 
 /// The code of a new event formed from a records file.
@@ -245,6 +295,9 @@ pub(crate) fn import_records(
              WHERE site_id = ?1 AND date = ?2 AND protocol_id = ?3 AND replicate = ?4",
         )?;
         let mut by_code = tx.prepare("SELECT 1 FROM event WHERE code = ?1")?;
+        let mut stored_counts = tx.prepare(
+            "SELECT COUNT(*), GROUP_CONCAT(DISTINCT import_batch_id) FROM count WHERE event_id = ?1",
+        )?;
         let mut codes = Unique::default();
         for (k, ev) in rec.events.iter().enumerate() {
             let (Some(site), Some(protocol)) =
@@ -266,16 +319,45 @@ pub(crate) fn import_records(
                             ev.first_line,
                             "effort",
                             format!(
-                                "event '{code}' is already stored{from} with effort {effort}, not {}; \
+                                "event '{}' is already stored{from} with effort {effort}, not {}; \
                                  one event has one effort",
+                                shorten(&code),
                                 ev.effort
                             ),
                         );
                         event_of.push(None);
-                    } else {
-                        stored_events.insert(id);
-                        event_of.push(Some(id));
+                        continue;
                     }
+                    // A row saying nothing was found contradicts counts already stored
+                    // (counts of the file for the event were reported while parsing).
+                    if let (Some(empty), None) = (ev.empty_line, ev.taxon_line) {
+                        let (n, batches): (i64, Option<String>) =
+                            stored_counts.query_row([id], |r| Ok((r.get(0)?, r.get(1)?)))?;
+                        if n > 0 {
+                            let by = batches.map_or(String::new(), |b| {
+                                let b = b.replace(',', ", ");
+                                if b.contains(',') {
+                                    format!(" by batches {b}")
+                                } else {
+                                    format!(" by batch {b}")
+                                }
+                            });
+                            issues.push(
+                                empty,
+                                "taxon",
+                                format!(
+                                    "event {} (stored as '{}') has {n} count(s) stored{by}; \
+                                     a row saying nothing was found contradicts them",
+                                    rec.describe(ev),
+                                    shorten(&code)
+                                ),
+                            );
+                            event_of.push(None);
+                            continue;
+                        }
+                    }
+                    stored_events.insert(id);
+                    event_of.push(Some(id));
                     continue;
                 }
             }
@@ -290,7 +372,10 @@ pub(crate) fn import_records(
                 issues.push(
                     ev.first_line,
                     "site",
-                    format!("the derived event code '{code}' is already used by another event; rename the site or protocol"),
+                    format!(
+                        "the derived event code '{}' is already used by another event; rename the site or protocol",
+                        shorten(&code)
+                    ),
                 );
                 event_of.push(None);
                 continue;

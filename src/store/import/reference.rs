@@ -11,7 +11,7 @@ use rusqlite::{Transaction, params};
 
 use super::{
     BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Table, Unique, parse_coordinate,
-    parse_rows,
+    parse_rows, shorten,
 };
 use crate::store::Result;
 use crate::store::sheet::Issues;
@@ -173,8 +173,9 @@ pub(crate) fn import_sites(
 pub(super) fn already_stored(what: &str, key: &str, batch: Option<i64>) -> String {
     let from = batch.map_or(String::new(), |b| format!(" (batch {b})"));
     format!(
-        "{what} '{key}' is already stored{from} with other values; an import cannot change it \
-         (undo that batch first, or leave the row as stored)"
+        "{what} '{}' is already stored{from} with other values; an import cannot change it \
+         (undo that batch first, or leave the row as stored)",
+        shorten(key)
     )
 }
 
@@ -325,13 +326,19 @@ pub(crate) fn parse_taxa(
             let opt = |c| Some(row.get(c).to_string()).filter(|s| !s.is_empty());
             let (parent, accepted) = (opt(c_parent), opt(c_accepted));
             if parent.as_deref() == Some(name) {
-                row.issue("parent", format!("'{name}' cannot be its own parent"));
+                row.issue(
+                    "parent",
+                    format!("'{}' cannot be its own parent", shorten(name)),
+                );
                 return;
             }
             if accepted.as_deref() == Some(name) {
                 row.issue(
                     "accepted",
-                    format!("'{name}' cannot be its own accepted name; leave it empty"),
+                    format!(
+                        "'{}' cannot be its own accepted name; leave it empty",
+                        shorten(name)
+                    ),
                 );
                 return;
             }
@@ -420,7 +427,10 @@ pub(crate) fn import_taxa(
                 issues.push(
                     row.line,
                     col,
-                    format!("taxon '{t}' is neither in this file nor in the store (add it, or use --create-missing)"),
+                    format!(
+                        "taxon '{}' is neither in this file nor in the store (add it, or use --create-missing)",
+                        shorten(t)
+                    ),
                 );
             }
         }
@@ -439,7 +449,11 @@ pub(crate) fn import_taxa(
             issues.push(
                 row.line,
                 "accepted",
-                format!("'{a}' is itself a synonym of '{aa}'; a synonym must point at an accepted name ('{aa}')"),
+                format!(
+                    "'{}' is itself a synonym of '{aa}'; a synonym must point at an accepted name ('{aa}')",
+                    shorten(a),
+                    aa = shorten(&aa)
+                ),
             );
         }
     }
@@ -463,7 +477,14 @@ pub(crate) fn import_taxa(
                 issues.push(
                     row.line,
                     "parent",
-                    format!("the parent chain loops: {}", chain.join(" → ")),
+                    format!(
+                        "the parent chain loops: {}",
+                        chain
+                            .iter()
+                            .map(|n| shorten(n))
+                            .collect::<Vec<_>>()
+                            .join(" → ")
+                    ),
                 );
                 in_cycle.extend(chain);
                 break;

@@ -12,6 +12,7 @@ use rusqlite::{OptionalExtension, Transaction, params};
 use super::{
     BatchMeta, Ids, ImportKind, ImportOptions, ImportReport, Interner, IsoDate, Replaced, Table,
     Unique, parse_count, parse_date, parse_effort, parse_replicate, parse_rows, parse_time,
+    shorten,
 };
 use crate::store::Result;
 use crate::store::sheet::Issues;
@@ -19,17 +20,24 @@ use crate::store::sheet::Issues;
 /// The message for a protocol the store does not know.
 fn unknown_protocol(code: &str, more: &str) -> String {
     format!(
-        "protocol '{code}' is not in the store{more}; import it first with `tally import protocols` \
-         (it cannot be created with --create-missing because a protocol needs an effort unit)"
+        "protocol '{}' is not in the store{more}; import it first with `tally import protocols` \
+         (it cannot be created with --create-missing because a protocol needs an effort unit)",
+        shorten(code)
     )
 }
 
 fn unknown_site(code: &str, more: &str) -> String {
-    format!("site '{code}' is not in the store{more}; import it first, or use --create-missing")
+    format!(
+        "site '{}' is not in the store{more}; import it first, or use --create-missing",
+        shorten(code)
+    )
 }
 
 fn unknown_taxon(name: &str, more: &str) -> String {
-    format!("taxon '{name}' is not in the store{more}; import it first, or use --create-missing")
+    format!(
+        "taxon '{}' is not in the store{more}; import it first, or use --create-missing",
+        shorten(name)
+    )
 }
 
 /// Resolve interned site names; unknown ones are created on request or reported once.
@@ -155,7 +163,7 @@ fn check_counts(
                 "taxon",
                 format!(
                     "taxon '{}' is listed twice for the same event (first on line {})",
-                    taxon_name(w[1].taxon),
+                    shorten(&taxon_name(w[1].taxon)),
                     w[0].line
                 ),
             );
@@ -188,7 +196,7 @@ fn check_counts(
                 format!(
                     "a count of '{}' for this event is already stored{from} (value {value}); \
                      use --replace to overwrite it",
-                    taxon_name(c.taxon)
+                    shorten(&taxon_name(c.taxon))
                 ),
             );
         }
@@ -442,8 +450,9 @@ pub(crate) fn import_events(
                     row.line,
                     "replicate",
                     format!(
-                        "event '{other}' is already stored for this site, date, protocol and replicate; \
-                         give a different replicate"
+                        "event '{}' is already stored for this site, date, protocol and replicate; \
+                         give a different replicate",
+                        shorten(&other)
                     ),
                 );
                 continue;
@@ -603,7 +612,8 @@ pub(crate) fn import_counts(
                     events.first_line[i],
                     "event",
                     format!(
-                        "event '{code}' is not in the store{}; import the events file first",
+                        "event '{}' is not in the store{}; import the events file first",
+                        shorten(code),
                         events.more_rows(i as u32)
                     ),
                 );

@@ -320,3 +320,484 @@ fn quoted_fields_may_hold_the_delimiter() {
         .unwrap();
     assert_eq!(name, "Bridge, upstream");
 }
+
+/// Import `text` as a records file with default options.
+fn records(s: &mut Store, text: &str) -> Result<ImportReport> {
+    import_bytes(
+        s,
+        ImportKind::Records,
+        "r.csv",
+        text.as_bytes(),
+        &ImportOptions::default(),
+    )
+}
+
+/// Import `text` as `kind`, expect it refused, check the store is unchanged,
+/// and return the problems.
+fn refused(s: &mut Store, kind: ImportKind, text: &str) -> Vec<RowIssueView> {
+    let before = s.content_dump().unwrap();
+    let (issues, _) = invalid(import_bytes(
+        s,
+        kind,
+        "f.csv",
+        text.as_bytes(),
+        &ImportOptions::default(),
+    ));
+    assert_eq!(s.content_dump().unwrap(), before, "a refused import wrote");
+    issues
+}
+
+#[test]
+fn effort_below_the_stated_minimum_is_refused() {
+    // IEEE 754 binary64: 5e-324 is the smallest subnormal, 2.2250738585072014e-308
+    // the smallest normal number; both are far below the minimum of 1e-9.
+    assert_eq!(MIN_EFFORT, 1e-9);
+    assert_eq!(parse_effort("1e-9"), Ok(1e-9));
+    assert_eq!(parse_effort("1e300"), Ok(1e300));
+    for bad in ["9.99e-10", "1e-300", "5e-324", "2.2250738585072014e-308"] {
+        let m = parse_effort(bad).unwrap_err();
+        assert!(m.contains("smallest effort, 1e-9"), "{bad}: {m}");
+    }
+    assert!(parse_effort("1.1e300").unwrap_err().contains("too large"));
+    assert!(parse_effort("0").unwrap_err().contains("not positive"));
+    let mut s = store();
+    let events =
+        "code,site,date,protocol,effort\nE1,A,2016-04-21,kick,3\nE2,A,2016-04-22,kick,1e-12\n";
+    let issues = refused(&mut s, ImportKind::Events, events);
+    assert_eq!(issues.len(), 1);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (3, "effort"));
+    assert_eq!(
+        issues[0].2,
+        "'1e-12' is below the smallest effort, 1e-9 in the protocol's unit; is it a typing \
+         error? (a real effort this small needs a protocol with a smaller unit)"
+    );
+    let rec = "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,5e-324,Baetis,1\n";
+    let issues = refused(&mut s, ImportKind::Records, rec);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "effort"));
+}
+
+#[test]
+fn counts_are_whole_up_to_2_pow_53_or_fractions_up_to_1e15() {
+    // IEEE 754 binary64 has a 53-bit significand: every integer up to
+    // 2^53 = 9007199254740992 is exact, 2^53 + 1 is not (it reads as 2^53).
+    assert_eq!(MAX_EXACT_COUNT, 9_007_199_254_740_992);
+    assert_eq!("9007199254740993".parse::<f64>(), Ok(9007199254740992.0));
+    assert_eq!(parse_count("9007199254740992"), Ok(9007199254740992.0));
+    assert_eq!(parse_count("90071992547409920e-1"), Ok(9007199254740992.0));
+    assert_eq!(parse_count("9007199254740991.000"), Ok(9007199254740991.0));
+    assert_eq!(parse_count("2e15"), Ok(2e15));
+    assert_eq!(parse_count("1e15"), Ok(1e15));
+    assert_eq!(parse_count("0.25"), Ok(0.25));
+    // -0 is stored as 0. IEEE 754: -0 == 0 but its sign bit is set.
+    assert!(parse_count("-0").unwrap().is_sign_positive());
+    for inexact in [
+        "9007199254740993",
+        "9.007199254740993e15",
+        "9007199254740993.0",
+        "12345678901234567890",
+    ] {
+        assert_eq!(
+            parse_count(inexact),
+            Err(format!(
+                "'{inexact}' cannot be stored exactly (counts above 2^53 lose digits); a count \
+                 is a whole number up to 9007199254740992 (2^53) or a number with a fraction up \
+                 to 1e15"
+            ))
+        );
+    }
+    // 2^54 and 1e16 are binary64 values, but above the stated range.
+    for big in ["18014398509481984", "1e16", "1e300", "1e39"] {
+        assert!(
+            parse_count(big)
+                .unwrap_err()
+                .starts_with(&format!("'{big}' is too large; ")),
+            "{big}"
+        );
+    }
+    assert_eq!(
+        parse_count("1e400"),
+        Err("'1e400' is too large; expected a count ≥ 0".to_string())
+    );
+    // A fraction is refused above 1e15, also where it rounds to a whole number.
+    for frac in [
+        "1000000000000000.5",
+        "9007199254740992.4",
+        "4503599627370496.5",
+    ] {
+        assert!(
+            parse_count(frac)
+                .unwrap_err()
+                .contains("too large for a count with a fraction"),
+            "{frac}"
+        );
+    }
+    let mut s = store();
+    let rec = "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,Baetis,1\n\
+               A,2016-04-21,kick,3,Old,9007199254740993\n";
+    let issues = refused(&mut s, ImportKind::Records, rec);
+    assert_eq!(issues.len(), 1);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (3, "count"));
+    assert!(issues[0].2.contains("cannot be stored exactly"));
+    // 2^53 itself goes in and comes back exactly.
+    let ok = "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,Baetis,9007199254740992\n";
+    records(&mut s, ok).unwrap();
+    let v: f64 = s
+        .conn()
+        .query_row("SELECT value FROM count", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(v, 9007199254740992.0);
+}
+
+#[test]
+fn names_are_stored_in_nfc_so_composed_and_decomposed_are_one() {
+    // Unicode Standard Annex #15: U+0065 U+0301 (e + combining acute) and U+00E9
+    // are canonically equivalent, and U+00E9 is their Normalization Form C.
+    let mut s = store();
+    let o = ImportOptions::default();
+    let sites = "code,name,latitude,longitude,ve\u{301}g\nCafe\u{301},Mill,,,moss\n";
+    import_bytes(&mut s, ImportKind::Sites, "s.csv", sites.as_bytes(), &o).unwrap();
+    let (code, key): (String, String) = s
+        .conn()
+        .query_row(
+            "SELECT s.code, a.key FROM site s JOIN site_attribute a ON a.site_id = s.id \
+             WHERE a.value = 'moss'",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    assert_eq!((code.as_str(), key.as_str()), ("Caf\u{e9}", "v\u{e9}g"));
+    // The composed spelling finds the site stored from the decomposed one.
+    let rec = "site,date,protocol,effort,taxon,count\nCaf\u{e9},2016-04-21,kick,3,Baetis,2\n";
+    assert_eq!(records(&mut s, rec).unwrap().written, 1);
+    // Both spellings in one file are one code, listed twice.
+    let twice = "code,name,latitude,longitude\nX\u{e9},a,,\nXe\u{301},b,,\n";
+    let issues = refused(&mut s, ImportKind::Sites, twice);
+    assert_eq!(
+        issues,
+        [(
+            3,
+            "code".to_string(),
+            "site 'X\u{e9}' is listed twice (first on line 2)".to_string()
+        )]
+    );
+}
+
+#[test]
+fn control_zero_width_and_bidirectional_characters_are_refused() {
+    // The characters are named as in the Unicode Standard (U+202E RIGHT-TO-LEFT
+    // OVERRIDE is one of the explicit formatting characters of Unicode Standard
+    // Annex #9); refusing them in names: common practice, no source.
+    let mut s = store();
+    let issues = refused(
+        &mut s,
+        ImportKind::Sites,
+        "code,name,latitude,longitude\nC,Mil\u{202E}l pool,,\n",
+    );
+    assert_eq!(
+        issues,
+        [(
+            2,
+            "name".to_string(),
+            "contains U+202E (right-to-left override) at character 4; names may not hold \
+             control, zero-width or bidirectional characters"
+                .to_string()
+        )]
+    );
+    for (field, code, name, at) in [
+        ("Bae\u{200B}tis", "U+200B", "zero width space", 4),
+        ("\u{2066}Baetis", "U+2066", "left-to-right isolate", 1),
+        ("Baetis\u{061C}", "U+061C", "arabic letter mark", 7),
+        ("\"Bae\ttis\"", "U+0009", "tab", 4),
+        ("Bae\u{90}tis", "U+0090", "control character", 4),
+        ("Ba\u{FEFF}etis", "U+FEFF", "zero width no-break space", 3),
+    ] {
+        let rec = format!("site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,{field},1\n");
+        let issues = refused(&mut s, ImportKind::Records, &rec);
+        assert_eq!(issues.len(), 1, "{field:?}: {issues:?}");
+        assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "taxon"));
+        assert!(
+            issues[0]
+                .2
+                .starts_with(&format!("contains {code} ({name}) at character {at}; ")),
+            "{field:?}: {}",
+            issues[0].2
+        );
+    }
+    // In the header (an attribute key), on line 1 and by position.
+    let issues = refused(
+        &mut s,
+        ImportKind::Sites,
+        "code,name,latitude,longitude,hab\u{200D}itat\nC,c,,,x\n",
+    );
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (1, "#5"));
+    assert!(
+        issues[0]
+            .2
+            .starts_with("the column name contains U+200D (zero width joiner)")
+    );
+    // Notes follow the same rule (a line feed inside quotes too).
+    let events = "code,site,date,protocol,effort,notes\nE1,A,2016-04-21,kick,3,\"high\nwater\"\n";
+    let issues = refused(&mut s, ImportKind::Events, events);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "notes"));
+    assert!(
+        issues[0]
+            .2
+            .starts_with("contains U+000A (line feed) at character 5; notes")
+    );
+}
+
+#[test]
+fn names_and_notes_are_limited_in_length() {
+    // The limits are the project's choice (common practice, no source); they are
+    // counted in characters of the NFC form that is stored.
+    assert_eq!((MAX_NAME_CHARS, MAX_NOTES_CHARS), (200, 2000));
+    let mut s = store();
+    let sites = |name: &str| format!("code,name,latitude,longitude\nC,{name},,\n");
+    // 200 decomposed letters are 400 characters as written and 200 in NFC.
+    let ok = "e\u{301}".repeat(200);
+    let o = ImportOptions::default();
+    import_bytes(
+        &mut s,
+        ImportKind::Sites,
+        "s.csv",
+        sites(&ok).as_bytes(),
+        &o,
+    )
+    .unwrap();
+    let long = "x".repeat(201);
+    let issues = refused(&mut s, ImportKind::Sites, &sites(&long).replace("C,", "D,"));
+    assert_eq!(
+        issues,
+        [(
+            2,
+            "name".to_string(),
+            format!(
+                "'{}…' is 201 characters long; names hold at most 200 characters",
+                "x".repeat(77)
+            )
+        )]
+    );
+    let events = |notes: &str| {
+        format!("code,site,date,protocol,effort,notes\nE1,A,2016-04-21,kick,3,{notes}\n")
+    };
+    let issues = refused(&mut s, ImportKind::Events, &events(&"n".repeat(2001)));
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "notes"));
+    assert!(
+        issues[0]
+            .2
+            .ends_with("is 2001 characters long; notes hold at most 2000 characters")
+    );
+    let r = import_bytes(
+        &mut s,
+        ImportKind::Events,
+        "e.csv",
+        events(&"n".repeat(2000)).as_bytes(),
+        &o,
+    )
+    .unwrap();
+    assert_eq!(r.written, 1);
+}
+
+#[test]
+fn messages_quote_at_most_80_characters_of_a_value() {
+    // The limit of 80 characters: common practice, no source.
+    assert_eq!(MAX_QUOTED_CHARS, 80);
+    let eighty = "é".repeat(80);
+    assert_eq!(crate::store::sheet::shorten(&eighty), eighty.as_str());
+    assert_eq!(
+        crate::store::sheet::shorten(&"é".repeat(81)),
+        format!("{}…", "é".repeat(77))
+    );
+    let mib = "9".repeat(1 << 20);
+    for m in [
+        parse_date(&mib).unwrap_err(),
+        parse_time(&mib).unwrap_err(),
+        parse_replicate(&mib).unwrap_err(),
+        parse_count(&format!("{mib}x")).unwrap_err(),
+        parse_effort(&format!("1e{mib}")).unwrap_err(),
+        parse_coordinate(&mib, "latitude", 90.0).unwrap_err(),
+    ] {
+        assert!(m.chars().count() < 250, "{} characters", m.len());
+        assert!(
+            m.contains(&format!("'{}…'", &mib[..77])) || m.contains("'1e"),
+            "{m}"
+        );
+    }
+    // A 1 MiB name in a file is refused without being echoed whole.
+    let mut s = store();
+    let file = format!(
+        "code,name,latitude,longitude\nC,{},,\n",
+        "n".repeat(1 << 20)
+    );
+    let issues = refused(&mut s, ImportKind::Sites, &file);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "name"));
+    assert!(issues[0].2.len() < 200, "{}", issues[0].2.len());
+}
+
+#[test]
+fn nothing_found_contradicts_counts_of_the_same_event() {
+    // docs/data-model.md, "Tables": an event where nothing was found is one row
+    // with empty taxon and count; with counts it is not such an event.
+    let mut s = store();
+    let rec = "site,date,protocol,effort,taxon,count\nB,2016-04-21,kick,3,,\n\
+               A,2016-04-21,kick,3,,\nA,2016-04-21,kick,3,Baetis,2\nA,2016-04-21,kick,3,Old,1\n";
+    let issues = refused(&mut s, ImportKind::Records, rec);
+    assert_eq!(
+        issues,
+        [(
+            3,
+            "taxon".to_string(),
+            "event A 2016-04-21 kick 1 has counts on lines 4, 5; a row saying nothing was found \
+             contradicts them"
+                .to_string()
+        )]
+    );
+    // Counts already stored for the event contradict a later "nothing found".
+    let counts = "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,Baetis,2\n";
+    let batch = records(&mut s, counts).unwrap().batch_id;
+    let issues = refused(
+        &mut s,
+        ImportKind::Records,
+        "site,date,protocol,effort,taxon,count\nA,2016-04-22,kick,3,,\nA,2016-04-21,kick,3,,\n",
+    );
+    assert_eq!(
+        issues,
+        [(
+            3,
+            "taxon".to_string(),
+            format!(
+                "event A 2016-04-21 kick 1 (stored as 'A-2016-04-21-kick-1') has 1 count(s) \
+                 stored by batch {batch}; a row saying nothing was found contradicts them"
+            )
+        )]
+    );
+    // A stored event without counts may be said to have had nothing found.
+    let empty = "site,date,protocol,effort,taxon,count\nB,2016-04-22,kick,2,,\n";
+    records(&mut s, empty).unwrap();
+    assert_eq!(records(&mut s, empty).unwrap().written, 0);
+}
+
+#[test]
+fn cr_only_line_ends_give_the_right_line_numbers() {
+    // Lone CR ends lines in files saved by the classic Mac OS; RFC 4180 asks for
+    // CRLF. Reading all three: common practice, no source.
+    let mut s = store();
+    let rec = "site,date,protocol,effort,taxon,count\rA,2016-04-21,kick,3,Baetis,12\r\
+               A,2016-02-30,kick,3,Old,1\r\rA,2016-04-21,kick,3,Baetidae,-1\r";
+    let issues = refused(&mut s, ImportKind::Records, rec);
+    assert_eq!(
+        issues
+            .iter()
+            .map(|i| (i.0, i.1.as_str()))
+            .collect::<Vec<_>>(),
+        [(3, "date"), (5, "count")]
+    );
+    // Mixed line ends count one line each.
+    let mixed = "site,date,protocol,effort,taxon,count\r\nA,2016-04-21,kick,3,Baetis,12\r\
+                 A,2016-04-21,kick,3,Old,1\nA,2016-04-21,kick,3,Baetis,2\r\n";
+    let issues = refused(&mut s, ImportKind::Records, mixed);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (4, "taxon"));
+    let ok = "site,date,protocol,effort,taxon,count\rA,2016-04-21,kick,3,Baetis,12\r\
+              A,2016-04-21,kick,3,Old,1\r";
+    assert_eq!(records(&mut s, ok).unwrap().counts, 2);
+}
+
+#[test]
+fn files_above_the_size_limit_are_refused_before_reading() {
+    // 2 GiB: the project's choice (common practice, no source).
+    assert_eq!(MAX_FILE_BYTES, 2_147_483_648);
+    let mut s = store();
+    let before = s.content_dump().unwrap();
+    let file = tempfile::NamedTempFile::new().unwrap();
+    // A sparse file: its size is in the metadata, its bytes are never read.
+    file.as_file().set_len(MAX_FILE_BYTES + 1).unwrap();
+    let r = import_path(
+        &mut s,
+        ImportKind::Records,
+        file.path(),
+        &ImportOptions::default(),
+    );
+    match r {
+        Err(StoreError::Refused(m)) => {
+            assert!(
+                m.contains("is 2147483649 bytes, more than the 2147483648 bytes (2 GiB)"),
+                "{m}"
+            );
+            assert!(m.contains("split it into smaller files"), "{m}");
+        }
+        other => panic!("expected a refusal, got {other:?}"),
+    }
+    assert_eq!(s.content_dump().unwrap(), before);
+    // At the limit's other side a small file is read as usual.
+    file.as_file().set_len(0).unwrap();
+    std::fs::write(
+        file.path(),
+        "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,Baetis,12\n",
+    )
+    .unwrap();
+    let r = import_path(
+        &mut s,
+        ImportKind::Records,
+        file.path(),
+        &ImportOptions::default(),
+    )
+    .unwrap();
+    assert_eq!(r.counts, 1);
+}
+
+/// A small valid records file for the fuzz test.
+const FUZZ_BASE: &str = "site,date,protocol,effort,taxon,count,replicate\n\
+                         A,2016-04-21,kick,3,Baetis,12,1\nA,2016-04-21,kick,3,Old,1.5,1\n\
+                         B,2016-04-22,kick,2,,,1\n";
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+
+    /// Mutated bytes of a valid records file: the import succeeds or is refused
+    /// as invalid, never panics, and a refusal leaves the store as it was.
+    /// Fuzzing with a fixed budget: common practice, no source.
+    #[test]
+    fn mutated_records_files_import_or_fail_cleanly(
+        edits in proptest::collection::vec(
+            (
+                proptest::prelude::any::<proptest::sample::Index>(),
+                proptest::prop_oneof![
+                    proptest::prelude::any::<u8>(),
+                    proptest::sample::select(b",;\t\r\n\" .-e0123456789\xcc\x81\xe2\x80\xae".to_vec()),
+                ],
+                0u8..3,
+            ),
+            1..12,
+        ),
+        create_missing in proptest::prelude::any::<bool>(),
+    ) {
+        let mut bytes = FUZZ_BASE.as_bytes().to_vec();
+        for (at, byte, op) in edits {
+            match op {
+                0 if !bytes.is_empty() => {
+                    let i = at.index(bytes.len());
+                    bytes[i] = byte;
+                }
+                1 => {
+                    let i = at.index(bytes.len() + 1);
+                    bytes.insert(i, byte);
+                }
+                _ if !bytes.is_empty() => {
+                    bytes.remove(at.index(bytes.len()));
+                }
+                _ => {}
+            }
+        }
+        let mut s = store();
+        let before = s.content_dump().unwrap();
+        let opts = ImportOptions { create_missing, ..ImportOptions::default() };
+        match import_bytes(&mut s, ImportKind::Records, "fuzz.csv", &bytes, &opts) {
+            Ok(_) => {}
+            Err(StoreError::Invalid { issues, total, .. }) => {
+                proptest::prop_assert!(total >= issues.len() && !issues.is_empty());
+                proptest::prop_assert_eq!(s.content_dump().unwrap(), before);
+            }
+            Err(other) => proptest::prop_assert!(false, "unexpected error {other:?}"),
+        }
+    }
+}
