@@ -221,27 +221,65 @@ pub fn import_bytes(
     bytes: &[u8],
     opts: &ImportOptions,
 ) -> Result<ImportReport> {
-    let mut issues = Issues::default();
+    if kind == ImportKind::Dwca {
+        return Err(StoreError::Refused(
+            "a Darwin Core archive is a zip file, not a CSV file: use `tally import dwca FILE.zip`"
+                .into(),
+        ));
+    }
     let meta = BatchMeta {
         kind,
         file: file_name.to_string(),
         sha256: hex(&Sha256::digest(bytes)),
         imported_at: chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
     };
-    let tx = store
-        .conn_mut()
-        .transaction_with_behavior(TransactionBehavior::Immediate)?;
+    // The file is parsed and checked before the store is touched, inside a
+    // deferred transaction: the write lock is taken only by the first write,
+    // so another writer is not kept waiting while a large file is read. When
+    // another writer committed in between (SQLite then refuses the upgrade of
+    // the read snapshot, SQLITE_BUSY_SNAPSHOT), the import runs once more
+    // holding the lock from the start, so what it checked is what it writes.
+    let mut attempt = 0;
+    loop {
+        let behavior = if attempt == 0 {
+            TransactionBehavior::Deferred
+        } else {
+            TransactionBehavior::Immediate
+        };
+        match import_once(store, kind, file_name, bytes, opts, &meta, behavior) {
+            Err(StoreError::Sqlite(e))
+                if attempt == 0
+                    && e.sqlite_error_code() == Some(rusqlite::ErrorCode::DatabaseBusy) =>
+            {
+                attempt += 1;
+            }
+            other => return other,
+        }
+    }
+}
+
+/// One try of [`import_bytes`] in a transaction of `behavior`.
+fn import_once(
+    store: &mut Store,
+    kind: ImportKind,
+    file_name: &str,
+    bytes: &[u8],
+    opts: &ImportOptions,
+    meta: &BatchMeta,
+    behavior: TransactionBehavior,
+) -> Result<ImportReport> {
+    let mut issues = Issues::default();
+    let tx = store.conn_mut().transaction_with_behavior(behavior)?;
     let report = match kind {
-        ImportKind::Sites => reference::import_sites(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Protocols => reference::import_protocols(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Taxa => reference::import_taxa(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Events => sampling::import_events(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Counts => sampling::import_counts(&tx, &meta, bytes, opts, &mut issues)?,
-        ImportKind::Records => records::import_records(&tx, &meta, bytes, opts, &mut issues)?,
+        ImportKind::Sites => reference::import_sites(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Protocols => reference::import_protocols(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Taxa => reference::import_taxa(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Events => sampling::import_events(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Counts => sampling::import_counts(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Records => records::import_records(&tx, meta, bytes, opts, &mut issues)?,
         ImportKind::Dwca => {
             return Err(StoreError::Refused(
-                "a Darwin Core archive is a zip file, not a CSV file: use `tally import dwca FILE.zip`"
-                    .into(),
+                "a Darwin Core archive is read by `tally import dwca`".into(),
             ));
         }
     };

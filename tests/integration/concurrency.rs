@@ -56,6 +56,34 @@ fn a_writer_waits_for_a_short_lock() {
 }
 
 #[test]
+fn an_import_whose_checks_went_stale_runs_again_under_the_lock() {
+    // Another writer adds a site and commits while the import has read the
+    // store but not yet written: the import must not write on what it read
+    // (SQLite refuses the stale snapshot), so it runs again holding the lock.
+    let env = TestEnv::with_demo_data();
+    let file = env.write("sites.csv", SITES);
+    let lock = hold_lock(&env);
+    lock.execute("INSERT INTO site(code) VALUES ('X2')", [])
+        .unwrap();
+    let release = std::thread::spawn(move || {
+        std::thread::sleep(Duration::from_millis(700));
+        lock.execute_batch("COMMIT").unwrap();
+    });
+    let (code, _, err) = env.run(["import", "sites", file.to_str().unwrap()]);
+    release.join().unwrap();
+    assert_eq!(code, 0, "{err}");
+    let n: i64 = rusqlite::Connection::open(&env.db)
+        .unwrap()
+        .query_row(
+            "SELECT count(*) FROM site WHERE code IN ('X1', 'X2')",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(n, 2);
+}
+
+#[test]
 fn an_analysis_that_cannot_store_its_run_prints_it_anyway() {
     let env = TestEnv::with_demo_data();
     let args = [
