@@ -19,7 +19,8 @@ use zip::write::SimpleFileOptions;
 
 use super::eml::{self, Contact, Licence};
 use super::{EVENT_TERMS, HIGHER_RANKS, INDIVIDUALS, OCCURRENCE_TERMS, meta};
-use crate::store::exchange::{ExchangeEvent, ExchangeTaxon};
+use crate::store::exchange::ExchangeEvent;
+use crate::store::taxa::integrity::Node;
 use crate::store::{Selection, Store, StoreError};
 
 /// What can go wrong while writing an archive.
@@ -82,11 +83,11 @@ pub struct ExportFigures {
 /// The taxonomy as the archive needs it: accepted names, ranks and the
 /// higher classification.
 struct Names {
-    by_id: HashMap<i64, ExchangeTaxon>,
+    by_id: HashMap<i64, Node>,
 }
 
 impl Names {
-    fn new(taxa: Vec<ExchangeTaxon>) -> Names {
+    fn new(taxa: Vec<Node>) -> Names {
         Names {
             by_id: taxa.into_iter().map(|t| (t.id, t)).collect(),
         }

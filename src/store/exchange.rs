@@ -19,8 +19,9 @@ use std::collections::{BTreeMap, HashMap, HashSet};
 use rusqlite::{Transaction, TransactionBehavior, params};
 
 use super::import::reference::{TaxonRow, taxonomy_issues};
-use super::import::{BatchMeta, ImportKind, ImportReport, MAX_REPORTED_ISSUES};
+use super::import::{BatchMeta, ImportKind, ImportReport, MAX_REPORTED_ISSUES, commit_or_refuse};
 use super::sheet::Issues;
+use super::taxa::integrity::Node;
 use super::{Result, Selection, Store, StoreError};
 
 /// One stored event with everything an archive's event row says about it.
@@ -54,21 +55,6 @@ pub struct ExchangeEvent {
     pub replicate: i64,
     /// Notes.
     pub notes: String,
-}
-
-/// One stored taxon.
-#[derive(Debug, Clone)]
-pub struct ExchangeTaxon {
-    /// Row id.
-    pub id: i64,
-    /// Name.
-    pub name: String,
-    /// Rank ("" when unknown).
-    pub rank: String,
-    /// Parent taxon id.
-    pub parent: Option<i64>,
-    /// Accepted taxon id (for a synonym).
-    pub accepted: Option<i64>,
 }
 
 impl Store {
@@ -158,26 +144,15 @@ impl Store {
         Ok(rows)
     }
 
-    /// Every stored taxon.
+    /// Every stored taxon (the taxonomy as its rules see it).
     ///
     /// # Errors
     /// SQLite errors.
-    pub fn exchange_taxa(&self) -> Result<Vec<ExchangeTaxon>> {
-        let mut stmt = self
-            .conn()
-            .prepare("SELECT id, name, rank, parent_id, accepted_id FROM taxon ORDER BY id")?;
-        let rows = stmt
-            .query_map([], |r| {
-                Ok(ExchangeTaxon {
-                    id: r.get(0)?,
-                    name: r.get(1)?,
-                    rank: r.get(2)?,
-                    parent: r.get(3)?,
-                    accepted: r.get(4)?,
-                })
-            })?
-            .collect::<rusqlite::Result<Vec<_>>>()?;
-        Ok(rows)
+    pub fn exchange_taxa(&self) -> Result<Vec<Node>> {
+        Ok(super::taxa::load_taxonomy(self.conn())?
+            .nodes()
+            .cloned()
+            .collect())
     }
 
     /// The attributes of every site: code → key → value.
@@ -339,21 +314,7 @@ pub fn import_archive(
         .conn_mut()
         .transaction_with_behavior(TransactionBehavior::Immediate)?;
     let report = write_archive(&tx, data, create_missing, &mut issues)?;
-    match report {
-        Some(r) if issues.is_empty() => {
-            tx.commit()?;
-            Ok(r)
-        }
-        _ => {
-            drop(tx);
-            let (issues, total) = issues.first(MAX_REPORTED_ISSUES);
-            Err(StoreError::Invalid {
-                file: data.file.clone(),
-                issues,
-                total,
-            })
-        }
-    }
+    commit_or_refuse(tx, report, issues, &data.file)
 }
 
 /// Ids of a table by natural key, with the batch each row came from.

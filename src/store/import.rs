@@ -283,13 +283,27 @@ fn import_once(
             ));
         }
     };
+    commit_or_refuse(tx, report, issues, file_name)
+}
+
+/// The end of every import: commit when a report was made and no problem was
+/// found; otherwise roll back (dropping the transaction) and refuse with the
+/// first [`MAX_REPORTED_ISSUES`] problems and their total.
+///
+/// # Errors
+/// [`StoreError::Invalid`]; SQLite errors of the commit.
+pub(crate) fn commit_or_refuse<T>(
+    tx: Transaction<'_>,
+    report: Option<T>,
+    issues: Issues,
+    file_name: &str,
+) -> Result<T> {
     match report {
         Some(r) if issues.is_empty() => {
             tx.commit()?;
             Ok(r)
         }
         _ => {
-            // Dropping the transaction rolls back anything written.
             drop(tx);
             let (issues, total) = issues.first(MAX_REPORTED_ISSUES);
             Err(StoreError::Invalid {
