@@ -151,3 +151,50 @@ fn undo_reads_what_depends_on_a_batch_inside_its_transaction() {
     assert_eq!(code, 1, "{err}");
     assert!(err.contains("batch 5 (late.csv) holds 1"), "{err}");
 }
+
+#[test]
+fn readers_keep_reading_while_an_import_writes() {
+    // Readers see the store before or after the import, never half of it:
+    // every `summary` during the import succeeds and shows either count.
+    let env = TestEnv::with_demo_data();
+    let mut rows = String::from("site,date,protocol,effort,taxon,count\n");
+    for d in 0..2_000 {
+        for t in ["Baetis", "Gammarus", "Elmis", "Leuctra", "Asellus"] {
+            rows.push_str(&format!(
+                "S{:02},{}-{:02}-{:02},kick,3,{t},{}\n",
+                d % 18 + 1,
+                2040 + d / 300,
+                d % 300 / 25 + 1,
+                d % 25 + 1,
+                d % 9 + 1
+            ));
+        }
+    }
+    let file = env.write("more.csv", &rows);
+    let before = env.stdout(["summary"]);
+    let first = |s: &str| s.lines().next().unwrap_or("").to_string();
+    let bin = env!("CARGO_BIN_EXE_tally");
+    let mut import = std::process::Command::new(bin)
+        .args(["--db", env.db.to_str().unwrap(), "import", "records"])
+        .arg(&file)
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut seen = std::collections::BTreeSet::new();
+    loop {
+        let done = import.try_wait().unwrap().is_some();
+        let (code, out, err) = env.run(["summary"]);
+        assert_eq!(code, 0, "a reader failed during the import: {err}");
+        seen.insert(first(&out));
+        if done {
+            break;
+        }
+    }
+    assert!(import.wait().unwrap().success());
+    let after = first(&env.stdout(["summary"]));
+    assert!(
+        seen.iter().all(|s| *s == first(&before) || *s == after),
+        "{seen:?}"
+    );
+    assert_ne!(after, first(&before));
+}
