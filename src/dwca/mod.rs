@@ -84,5 +84,14 @@ pub const OCCURRENCE_TERMS: [&str; 16] = [
     "verbatimIdentification",
 ];
 
+/// Terms tally writes but does not store on import: an export makes them
+/// again from the events, the taxa and its options.
+pub const NOT_STORED: [&str; 4] = [
+    "samplingEffort",
+    "occurrenceID",
+    "basisOfRecord",
+    "verbatimIdentification",
+];
+
 /// The value of `organismQuantityType` for counts of individuals.
 pub const INDIVIDUALS: &str = "individuals";

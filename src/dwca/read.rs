@@ -29,7 +29,7 @@ use std::path::Path;
 use sha2::{Digest, Sha256};
 
 use super::meta::{self, FileSpec, Meta};
-use super::{HIGHER_RANKS, dwc_term};
+use super::{EVENT_TERMS, HIGHER_RANKS, NOT_STORED, OCCURRENCE_TERMS, dwc_term};
 use crate::store::exchange::{
     ArchiveCount, ArchiveData, ArchiveEvent, ArchiveProtocol, ArchiveSite, ArchiveTaxon,
 };
@@ -58,42 +58,19 @@ pub struct ReadNotes {
     pub grouping_rows: usize,
 }
 
-/// The core terms that are read.
-const EVENT_READ: &[&str] = &[
-    "eventID",
-    "parentEventID",
-    "eventDate",
-    "eventTime",
-    "locationID",
-    "locality",
-    "decimalLatitude",
-    "decimalLongitude",
-    "geodeticDatum",
-    "samplingProtocol",
-    "sampleSizeValue",
-    "sampleSizeUnit",
-    "eventRemarks",
-    "dynamicProperties",
-];
-
-/// The occurrence terms that are read. (`occurrenceID`, `basisOfRecord` and
-/// `verbatimIdentification`, which tally writes, are not stored: an export
-/// makes them again from the event, the taxon and its options.)
-const OCCURRENCE_READ: &[&str] = &[
-    "eventID",
-    "scientificName",
-    "taxonRank",
-    "kingdom",
-    "phylum",
-    "class",
-    "order",
-    "family",
-    "genus",
-    "individualCount",
-    "organismQuantity",
-    "organismQuantityType",
-    "occurrenceStatus",
-];
+/// True when the import stores the Darwin Core term `term` of a core
+/// (`event`) or an occurrence file: the terms tally writes
+/// ([`EVENT_TERMS`], [`OCCURRENCE_TERMS`]) except those an export makes again
+/// from what is stored ([`NOT_STORED`]), and `parentEventID`, which marks
+/// grouping rows.
+fn is_read(term: &str, event: bool) -> bool {
+    let written = if event {
+        &EVENT_TERMS[..]
+    } else {
+        &OCCURRENCE_TERMS[..]
+    };
+    (written.contains(&term) && !NOT_STORED.contains(&term)) || (event && term == "parentEventID")
+}
 
 /// Read the archive at `path`.
 ///
@@ -268,11 +245,11 @@ pub fn read_bytes(file: &str, bytes: &[u8]) -> Result<(ArchiveData, ReadNotes)> 
     let (Some(core_format), Some(occ_format)) = (core_format, occ_format) else {
         return Err(invalid(file, issues));
     };
-    for (table, read) in [(&core, EVENT_READ), (&occ, OCCURRENCE_READ)] {
+    for (table, event) in [(&core, true), (&occ, false)] {
         for f in &table.spec.fields {
             let term = dwc_term(&f.term).unwrap_or(&f.term);
             let label = format!("{}: {term}", table.part);
-            if !read.contains(&term) && !notes.terms_not_stored.contains(&label) {
+            if !is_read(term, event) && !notes.terms_not_stored.contains(&label) {
                 notes.terms_not_stored.push(label);
             }
         }
@@ -518,17 +495,13 @@ fn read_rows(
     // The columns of the terms tally stores are read by the rule of every
     // import (trimmed, NFC, no control, zero-width or bidirectional
     // characters, limited length: `store::sheet::clean_field`).
-    let read: &[&str] = if dwc_term(&spec.row_type) == Some("Event") {
-        EVENT_READ
-    } else {
-        OCCURRENCE_READ
-    };
+    let event = dwc_term(&spec.row_type) == Some("Event");
     let mut kinds: Vec<Option<(FieldKind, String)>> = Vec::new();
     for f in &spec.fields {
         let (Some(i), Some(term)) = (f.index, dwc_term(&f.term)) else {
             continue;
         };
-        if !read.contains(&term) {
+        if !is_read(term, event) {
             continue;
         }
         if kinds.len() <= i {
