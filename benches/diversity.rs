@@ -39,6 +39,7 @@ fn matrix(rows: usize) -> CountMatrix {
             label: format!("S{:05}/{}", i / 20, 2000 + (i % 20) as i32),
             site: format!("S{:05}", i / 20),
             attributes: BTreeMap::new(),
+            attribute_changes: Default::default(),
             year: 2000 + (i % 20) as i32,
             last_year: 2000 + (i % 20) as i32,
             season: None,

@@ -41,7 +41,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         let m = r.removed;
         writeln!(
             out,
-            "removed batch {} ({}): {}, {}, {}, {}, {}{}",
+            "removed batch {} ({}): {}, {}, {}, {}, {}, {}{}",
             r.batch_id,
             r.file,
             crate::words::count(m.sites, "site", "sites"),
@@ -49,6 +49,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             crate::words::count(m.taxa, "taxon", "taxa"),
             crate::words::count(m.events, "event", "events"),
             crate::words::count(m.counts, "count", "counts"),
+            crate::words::count(m.attributes, "attribute value", "attribute values"),
             if r.restored > 0 {
                 format!(
                     "; {} put back",
@@ -70,7 +71,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                         "id": b.id, "kind": b.kind, "file": b.file, "content_sha256": b.content_sha256,
                         "imported_at": b.imported_at, "rows": b.rows, "created": b.created,
                         "sites": b.stored.sites, "protocols": b.stored.protocols, "taxa": b.stored.taxa,
-                        "events": b.stored.events, "counts": b.stored.counts,
+                        "events": b.stored.events, "counts": b.stored.counts, "attributes": b.stored.attributes,
                     })
                 })
                 .collect();
@@ -89,6 +90,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 "taxa",
                 "events",
                 "counts",
+                "attributes",
                 "content_sha256",
                 "created",
             ])?;
@@ -105,6 +107,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     s.taxa.to_string(),
                     s.events.to_string(),
                     s.counts.to_string(),
+                    s.attributes.to_string(),
                     b.content_sha256.clone(),
                     b.created.join("; "),
                 ])?;

@@ -145,7 +145,8 @@ pub fn load_demo(store: &mut Store) -> anyhow::Result<()> {
         .with_context(|| format!("importing demo file {name}"))?;
         super::note(&format!(
             "imported {name}: {} rows (batch {})",
-            report.rows, report.batch_id
+            report.rows,
+            report.batch()
         ));
     }
     Ok(())

@@ -24,6 +24,8 @@ pub enum KindArg {
     Counts,
     /// site,date,protocol,effort,taxon,count [+ replicate,time] (field sheets)
     Records,
+    /// site,key,value,from: site attribute values and the date each holds from
+    Attributes,
     /// A Darwin Core archive (zip) of sampling events: Event core, Occurrence extension
     Dwca,
 }
@@ -37,6 +39,7 @@ impl From<KindArg> for ImportKind {
             KindArg::Events => ImportKind::Events,
             KindArg::Counts => ImportKind::Counts,
             KindArg::Records => ImportKind::Records,
+            KindArg::Attributes => ImportKind::Attributes,
             KindArg::Dwca => ImportKind::Dwca,
         }
     }
@@ -58,6 +61,10 @@ pub struct Args {
     /// Overwrite counts already stored for the same event and taxon.
     #[arg(long)]
     pub replace: bool,
+    /// A cumulative file: skip rows identical to stored ones, refuse rows that
+    /// contradict them, import the rest.
+    #[arg(long)]
+    pub skip_existing: bool,
     /// Field delimiter: ',', ';' or 'tab' [default: detected from the header line].
     #[arg(long, value_parser = parse_delimiter)]
     pub delimiter: Option<u8>,
@@ -83,6 +90,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     let opts = ImportOptions {
         create_missing: args.create_missing,
         replace: args.replace,
+        skip_existing: args.skip_existing,
         delimiter: args.delimiter,
     };
     let kind = ImportKind::from(args.kind);
@@ -93,6 +101,15 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         e @ (StoreError::Invalid { .. } | StoreError::Io { .. }) => anyhow!(e),
         e => anyhow!(e).context(format!("importing {}", args.file.display())),
     })?;
+    let Some(batch) = report.batch_id else {
+        writeln!(
+            out,
+            "nothing new in {}: {} already stored; no batch recorded",
+            report.file,
+            crate::words::count(report.unchanged, "row", "rows")
+        )?;
+        return Ok(());
+    };
     store.checkpoint()?;
     let mut parts = Vec::new();
     match kind {
@@ -103,13 +120,30 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 crate::words::noun(&report.written, "event", "events")
             ));
             parts.push(crate::words::count(report.counts, "count", "counts"));
+            // Every event of a counts file is stored; a records file names both.
+            if report.counts_on_stored_events > 0 {
+                parts.push(format!(
+                    "{} on events already stored",
+                    crate::words::count(report.counts_on_stored_events, "count", "counts")
+                ));
+            }
         }
         ImportKind::Counts => parts.push(crate::words::count(report.counts, "count", "counts")),
         _ => parts.push(format!("{} new {kind}", report.written)),
     }
-    if report.unchanged > 0 {
-        parts.push(format!("{} unchanged", report.unchanged));
-    }
+    // A cumulative import says first how the rows divide: new, or identical.
+    let rows_new = if args.skip_existing {
+        format!(
+            "{} new, {} identical to the store (skipped); ",
+            crate::words::count(report.rows.saturating_sub(report.unchanged), "row", "rows"),
+            report.unchanged
+        )
+    } else {
+        if report.unchanged > 0 {
+            parts.push(format!("{} unchanged", report.unchanged));
+        }
+        String::new()
+    };
     if report.replaced > 0 {
         parts.push(format!("{} replaced", report.replaced));
     }
@@ -118,10 +152,10 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
     }
     writeln!(
         out,
-        "imported {} of {kind} from {} as batch {}: {}",
+        "imported {} of {kind} from {} as batch {}: {rows_new}{}",
         crate::words::count(report.rows, "row", "rows"),
         report.file,
-        report.batch_id,
+        batch,
         parts.join(", ")
     )?;
     for c in &report.created {
@@ -132,10 +166,10 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
 
 /// `tally import dwca FILE.zip`: read the archive, then write it as one batch.
 fn archive(args: &Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result<()> {
-    if args.replace || args.delimiter.is_some() {
+    if args.replace || args.skip_existing || args.delimiter.is_some() {
         anyhow::bail!(
-            "--replace and --delimiter are for CSV files; an archive brings new events only, \
-             and its meta.xml declares its delimiters"
+            "--replace, --skip-existing and --delimiter are for CSV files; an archive brings \
+             new events only, and its meta.xml declares its delimiters"
         );
     }
     let (data, notes) = crate::dwca::read::read_path(&args.file)?;
@@ -157,7 +191,7 @@ fn archive(args: &Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Resul
         "imported {} from {} as batch {}: {}, {}{}",
         crate::words::count(b.rows, "row", "rows"),
         b.file,
-        b.batch_id,
+        b.batch(),
         crate::words::count(b.written, "event", "events"),
         crate::words::count(b.counts, "count", "counts"),
         if created.is_empty() {

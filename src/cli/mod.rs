@@ -33,6 +33,7 @@ pub mod runs;
 pub mod selection;
 pub mod selections;
 pub mod shell;
+pub mod sites;
 pub mod summary;
 pub mod taxa;
 pub mod trend;
@@ -98,6 +99,8 @@ pub enum Command {
     Summary(summary::Args),
     /// Taxonomy upkeep: list, tree, rename, merge, move, undo, history.
     Taxa(taxa::Args),
+    /// Sites and their attribute histories: list, show, set, history, undo.
+    Sites(sites::Args),
     /// Check the store: schema, file integrity, foreign keys, taxonomy, batches.
     Check(check::Args),
     /// Copy the store to a new file while it is in use.
@@ -164,6 +167,7 @@ pub fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Batches(args) => batches::run(args, &mut open_store(&db)?, &mut out),
         Command::Summary(args) => summary::run(args, &mut open_store(&db)?, &mut out),
         Command::Taxa(args) => taxa::run(args, &mut open_store(&db)?, &mut out),
+        Command::Sites(args) => sites::run(args, &mut open_store(&db)?, &mut out),
         Command::Check(args) => check::run(args, &mut open_store(&db)?, &mut out),
         Command::Backup(args) => backup::run(args, &mut open_store(&db)?, &mut out),
         Command::Export(args) => export::run(args, &open_store(&db)?, &mut out),

@@ -66,6 +66,33 @@ pub struct TaxonRecord {
     pub accepted_id: Option<i64>,
 }
 
+/// One value of a site attribute and the first date on which it holds; it
+/// holds until the next value of the same key.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord)]
+pub struct AttributeValue {
+    /// First date (ISO 8601) on which the value holds; `None` for "since always".
+    pub from: Option<String>,
+    /// The value.
+    pub value: String,
+}
+
+/// The value in force on `date` (ISO 8601) in a history sorted by `from`
+/// ("since always" first): the last value whose `from` is on or before the
+/// date, or `None` when the date is before the first dated value and the key
+/// has no "since always" value. The one rule for "in force"
+/// (docs/data-model.md, "Site attributes that change").
+pub fn value_on<'a>(history: &'a [AttributeValue], date: &str) -> Option<&'a str> {
+    entry_on(history, date).map(|a| a.value.as_str())
+}
+
+/// The entry of `history` in force on `date` (see [`value_on`]).
+fn entry_on<'a>(history: &'a [AttributeValue], date: &str) -> Option<&'a AttributeValue> {
+    history
+        .iter()
+        .rev()
+        .find(|a| a.from.as_deref().is_none_or(|f| f <= date))
+}
+
 /// Everything assembly needs, as plain rows.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Records {
@@ -75,8 +102,9 @@ pub struct Records {
     pub counts: Vec<CountRecord>,
     /// The whole taxonomy (synonym and parent chains may leave the selection).
     pub taxa: Vec<TaxonRecord>,
-    /// Site code → attribute key → value, for the selected sites.
-    pub site_attributes: BTreeMap<String, BTreeMap<String, String>>,
+    /// Site code → attribute key → history (sorted by `from`, "since always"
+    /// first), for the selected sites.
+    pub site_attributes: BTreeMap<String, BTreeMap<String, Vec<AttributeValue>>>,
 }
 
 /// Assembly options (the part of a selection that is not a row filter).
@@ -213,6 +241,75 @@ struct Row {
     effort: f64,
     units: BTreeSet<String>,
     protocols: BTreeSet<String>,
+    /// Attribute key → the runs of equal values over the row's events in date
+    /// order: the entry in force (`None`: no value), first and last event date.
+    attributes: BTreeMap<String, Vec<(Option<AttributeValue>, String, String)>>,
+}
+
+impl Row {
+    /// Record the attribute values in force on the date of one more event
+    /// (events come in date order within a row).
+    fn note_attributes(
+        &mut self,
+        history: Option<&BTreeMap<String, Vec<AttributeValue>>>,
+        date: &str,
+    ) {
+        let Some(history) = history else { return };
+        for (key, values) in history {
+            let now = entry_on(values, date).cloned();
+            let runs = self.attributes.entry(key.clone()).or_default();
+            match runs.last_mut() {
+                Some(last)
+                    if last.0.as_ref().map(|a| &a.value) == now.as_ref().map(|a| &a.value) =>
+                {
+                    last.2 = date.to_string();
+                }
+                _ => runs.push((now, date.to_string(), date.to_string())),
+            }
+        }
+    }
+
+    /// The attributes with one value over the row, and the keys that changed
+    /// within it with the change in words.
+    fn attributes(&self) -> (BTreeMap<String, String>, BTreeMap<String, String>) {
+        let mut single = BTreeMap::new();
+        let mut changed = BTreeMap::new();
+        for (key, runs) in &self.attributes {
+            match runs.as_slice() {
+                [(Some(v), _, _)] => {
+                    single.insert(key.clone(), v.value.clone());
+                }
+                [(None, _, _)] | [] => {}
+                _ => {
+                    // "degraded (events 2014-05-04), then restored from 2014-06-01 (events 2014-10-06)"
+                    let words: Vec<String> = runs
+                        .iter()
+                        .enumerate()
+                        .map(|(i, (v, a, b))| {
+                            let value = match v {
+                                None => "no value".to_string(),
+                                Some(AttributeValue {
+                                    from: Some(f),
+                                    value,
+                                }) if i > 0 => {
+                                    format!("{value} from {f}")
+                                }
+                                Some(v) => v.value.clone(),
+                            };
+                            let events = if a == b {
+                                a.clone()
+                            } else {
+                                format!("{a}..{b}")
+                            };
+                            format!("{value} (events {events})")
+                        })
+                        .collect();
+                    changed.insert(key.clone(), words.join(", then "));
+                }
+            }
+        }
+        (single, changed)
+    }
 }
 
 /// Build the count matrix from selected rows.
@@ -366,10 +463,12 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
                 effort: 0.0,
                 units: BTreeSet::new(),
                 protocols: BTreeSet::new(),
+                attributes: BTreeMap::new(),
             });
             rows.len() - 1
         });
         let r = &mut rows[idx];
+        r.note_attributes(records.site_attributes.get(&e.site), &e.date);
         r.year = r.year.min(year);
         r.last_year = r.last_year.max(year);
         if e.date < r.first_date {
@@ -504,14 +603,12 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         .iter()
         .map(|&i| {
             let r = &rows[i];
+            let (attributes, attribute_changes) = r.attributes();
             SampleMeta {
                 label: r.label.clone(),
                 site: r.site.clone(),
-                attributes: records
-                    .site_attributes
-                    .get(&r.site)
-                    .cloned()
-                    .unwrap_or_default(),
+                attributes,
+                attribute_changes,
                 year: r.year,
                 last_year: r.last_year,
                 season: r.season.clone(),

@@ -57,8 +57,18 @@ pub struct SampleMeta {
     pub label: String,
     /// Site code.
     pub site: String,
-    /// Site attributes (habitat, reach, …), key → value.
+    /// Site attributes (habitat, reach, …) in force on the dates of the row's
+    /// events, key → value. A key whose value changed between the row's events
+    /// is not here but in `attribute_changes`.
     pub attributes: BTreeMap<String, String>,
+    /// Site attribute keys whose value changed between the events pooled into
+    /// the row, key → the change in words (`degraded (events 2014-05-04), then
+    /// restored from 2014-06-01 (events 2014-10-06)`). Using such a key
+    /// (`--by`, strata, covariates) is refused: the row pools both sides of
+    /// the change. Rules in
+    /// docs/matrices.md, "Site attributes that change".
+    #[serde(skip_serializing_if = "BTreeMap::is_empty")]
+    pub attribute_changes: BTreeMap<String, String>,
     /// Year of the sample: the calendar year, except that with a `--months`
     /// window wrapping the year end (and for meteorological winter in
     /// `site-season` rows) it is the year in which the season began. For rows
@@ -164,7 +174,7 @@ impl CountMatrix {
         let keys: BTreeSet<&String> = self
             .samples
             .iter()
-            .flat_map(|s| s.attributes.keys())
+            .flat_map(|s| s.attributes.keys().chain(s.attribute_changes.keys()))
             .collect();
         for k in keys {
             if !BUILTIN_FIELDS.contains(&k.as_str()) {
@@ -220,6 +230,17 @@ impl CountMatrix {
                 "events_pooled" => s.events_pooled.to_string(),
                 key => match s.attributes.get(key) {
                     Some(v) => v.clone(),
+                    None if s.attribute_changes.contains_key(key) => {
+                        return Err(unavailable(
+                            &s.label,
+                            &format!(
+                                "the row pools events before and after site {} changed its '{key}' ({}); \
+                                 choose a unit that does not span the change (--unit event or site-season), \
+                                 or select dates on one side of it with --from/--to",
+                                s.site, s.attribute_changes[key]
+                            ),
+                        ));
+                    }
                     None if self.field_names().iter().any(|n| n == key) => {
                         return Err(unavailable(
                             &s.label,
@@ -328,6 +349,7 @@ impl CountMatrix {
             match (first, last) {
                 (Some(a), Some(b)) if a == b => {
                     let mut m = s.clone();
+                    replaced |= m.attribute_changes.remove("period").is_some();
                     replaced |= m
                         .attributes
                         .insert("period".into(), Self::period_label(*a))
@@ -375,6 +397,40 @@ impl CountMatrix {
             values,
             notes,
         })
+    }
+
+    /// For each site attribute key of the rows, the SHA-256 (lowercase hex) of
+    /// what the rows hold for it: for each row in order, its label's and then
+    /// its value's byte length (u64 little-endian) and bytes, the value written
+    /// `=VALUE`, `~CHANGE` for a key that changed within the row, or `-` when
+    /// the row's site has no value. A stored run keeps these beside the
+    /// fingerprint (which hashes no attribute), so that `runs verify` can say
+    /// which attribute history changed since the run.
+    pub fn attribute_digests(&self) -> BTreeMap<String, String> {
+        let keys: BTreeSet<&String> = self
+            .samples
+            .iter()
+            .flat_map(|s| s.attributes.keys().chain(s.attribute_changes.keys()))
+            .collect();
+        keys.into_iter()
+            .map(|k| {
+                let mut h = Sha256::new();
+                let mut text = |s: &str| {
+                    h.update((s.len() as u64).to_le_bytes());
+                    h.update(s.as_bytes());
+                };
+                for s in &self.samples {
+                    text(&s.label);
+                    match (s.attributes.get(k), s.attribute_changes.get(k)) {
+                        (Some(v), _) => text(&format!("={v}")),
+                        (None, Some(c)) => text(&format!("~{c}")),
+                        (None, None) => text("-"),
+                    }
+                }
+                let hex: String = h.finalize().iter().map(|b| format!("{b:02x}")).collect();
+                (k.clone(), hex)
+            })
+            .collect()
     }
 
     /// SHA-256 (lowercase hex) of a canonical serialisation of the row labels,
@@ -431,6 +487,7 @@ mod tests {
                 label: l.clone(),
                 site: String::new(),
                 attributes: BTreeMap::new(),
+                attribute_changes: Default::default(),
                 year: 2000,
                 last_year: 2000,
                 season: None,

@@ -47,6 +47,8 @@ pub struct BatchRows {
     pub events: i64,
     /// Counts.
     pub counts: i64,
+    /// Site attribute values (of an attributes file).
+    pub attributes: i64,
 }
 
 /// What undoing a batch removed.
@@ -66,7 +68,8 @@ const ROWS_SQL: &str = "SELECT (SELECT COUNT(*) FROM site WHERE import_batch_id 
      (SELECT COUNT(*) FROM protocol WHERE import_batch_id = ?1), \
      (SELECT COUNT(*) FROM taxon WHERE import_batch_id = ?1), \
      (SELECT COUNT(*) FROM event WHERE import_batch_id = ?1), \
-     (SELECT COUNT(*) FROM count WHERE import_batch_id = ?1)";
+     (SELECT COUNT(*) FROM count WHERE import_batch_id = ?1), \
+     (SELECT COUNT(*) FROM site_attribute WHERE import_batch_id = ?1)";
 
 fn batch_rows(conn: &rusqlite::Connection, id: i64) -> Result<BatchRows> {
     Ok(conn.query_row(ROWS_SQL, [id], |r| {
@@ -76,6 +79,7 @@ fn batch_rows(conn: &rusqlite::Connection, id: i64) -> Result<BatchRows> {
             taxa: r.get(2)?,
             events: r.get(3)?,
             counts: r.get(4)?,
+            attributes: r.get(5)?,
         })
     })?)
 }
@@ -87,7 +91,7 @@ fn notes(json: &str) -> BatchNotes {
 }
 
 /// Dependency queries: (SQL giving (dependent batch id, number of rows), how to say it).
-const DEPENDENTS: [(&str, &str); 7] = [
+const DEPENDENTS: [(&str, &str); 8] = [
     (
         "SELECT c.import_batch_id, COUNT(*) FROM count c JOIN event e ON e.id = c.event_id \
          WHERE e.import_batch_id = ?1 AND c.import_batch_id IS NOT ?1 GROUP BY 1 ORDER BY 1",
@@ -123,7 +127,20 @@ const DEPENDENTS: [(&str, &str); 7] = [
          WHERE json_extract(r.value, '$.batch') = ?1 GROUP BY 1 ORDER BY 1",
         "overwritten counts of this batch (--replace)",
     ),
+    (
+        "SELECT a.import_batch_id, COUNT(*) FROM site_attribute a JOIN site s ON s.id = a.site_id \
+         WHERE s.import_batch_id = ?1 AND a.import_batch_id IS NOT NULL AND a.import_batch_id IS NOT ?1 \
+         GROUP BY 1 ORDER BY 1",
+        "attribute values at sites of this batch",
+    ),
 ];
+
+/// Corrections (`tally sites set`, not undone) of attribute values that batch
+/// `?1` brought: undoing the batch would drop them silently.
+const CORRECTED: &str = "SELECT c.id FROM site_change c JOIN site s ON s.code = c.site_code \
+     JOIN site_attribute a ON a.site_id = s.id AND a.key = c.key AND a.valid_from = c.valid_from \
+     WHERE a.import_batch_id = ?1 AND c.field = 'attribute' AND c.undoes IS NULL \
+     AND NOT EXISTS (SELECT 1 FROM site_change u WHERE u.undoes = c.id) ORDER BY c.id";
 
 impl Store {
     /// Every import batch, oldest first.
@@ -216,6 +233,10 @@ impl Store {
         }
         tx.execute("DELETE FROM event WHERE import_batch_id = ?1", [id])?;
         tx.execute(
+            "DELETE FROM site_attribute WHERE import_batch_id = ?1",
+            [id],
+        )?;
+        tx.execute(
             "UPDATE taxon SET parent_id = NULL, accepted_id = NULL WHERE import_batch_id = ?1",
             [id],
         )?;
@@ -255,6 +276,17 @@ fn dependents(conn: &rusqlite::Connection, id: i64) -> Result<Vec<String>> {
             };
             reasons.push(format!("{who} holds {n} {how}"));
         }
+    }
+    let corrected: Vec<String> = conn
+        .prepare(CORRECTED)?
+        .query_map([id], |r| r.get::<_, i64>(0))?
+        .map(|r| r.map(|i| i.to_string()))
+        .collect::<rusqlite::Result<_>>()?;
+    if !corrected.is_empty() {
+        reasons.push(format!(
+            "site corrections {} changed values of this batch (undo them with `tally sites undo`)",
+            corrected.join(", ")
+        ));
     }
     Ok(reasons)
 }

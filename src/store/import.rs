@@ -34,6 +34,7 @@ use super::{Result, Store, StoreError};
 
 pub use super::sheet::{MAX_NAME_CHARS, MAX_NOTES_CHARS, MAX_QUOTED_CHARS};
 
+mod attributes;
 mod records;
 pub(crate) mod reference;
 mod sampling;
@@ -58,6 +59,9 @@ pub enum ImportKind {
     /// The field-sheet long format `site,date,protocol,effort,taxon,count`
     /// plus optional `replicate,time`.
     Records,
+    /// `site,key,value,from`: site attribute values and the date from which
+    /// each holds (empty: since always).
+    Attributes,
     /// A Darwin Core archive of sampling events (a zip file, not a CSV file;
     /// read by `crate::dwca` and written by [`crate::store::exchange`]).
     Dwca,
@@ -65,13 +69,14 @@ pub enum ImportKind {
 
 impl ImportKind {
     /// Every kind of CSV file, in the order files are usually imported.
-    pub const ALL: [ImportKind; 6] = [
+    pub const ALL: [ImportKind; 7] = [
         ImportKind::Sites,
         ImportKind::Protocols,
         ImportKind::Taxa,
         ImportKind::Events,
         ImportKind::Counts,
         ImportKind::Records,
+        ImportKind::Attributes,
     ];
 
     /// The kind's name as stored in `import_batch.kind` and typed on the command line.
@@ -83,6 +88,7 @@ impl ImportKind {
             ImportKind::Events => "events",
             ImportKind::Counts => "counts",
             ImportKind::Records => "records",
+            ImportKind::Attributes => "attributes",
             ImportKind::Dwca => "dwca",
         }
     }
@@ -104,6 +110,7 @@ impl ImportKind {
             ImportKind::Events => &["code", "site", "date", "protocol", "effort"],
             ImportKind::Counts => &["event", "taxon", "count"],
             ImportKind::Records => &["site", "date", "protocol", "effort", "taxon", "count"],
+            ImportKind::Attributes => &["site", "key", "value", "from"],
             ImportKind::Dwca => &[],
         }
     }
@@ -133,6 +140,10 @@ pub struct ImportOptions {
     pub create_missing: bool,
     /// Overwrite counts of an (event, taxon) already stored instead of refusing.
     pub replace: bool,
+    /// A cumulative file: rows identical to stored ones are skipped, a row
+    /// contradicting a stored one is refused, and a file that adds nothing
+    /// records no batch (see [`ImportReport::batch_id`]).
+    pub skip_existing: bool,
     /// The delimiter; detected from the header line (comma, semicolon, tab) when `None`.
     pub delimiter: Option<u8>,
 }
@@ -140,8 +151,9 @@ pub struct ImportOptions {
 /// What an import wrote.
 #[derive(Debug, Clone, Serialize)]
 pub struct ImportReport {
-    /// The batch the rows belong to.
-    pub batch_id: i64,
+    /// The batch the rows belong to; `None` when a cumulative import
+    /// (`skip_existing`) found nothing new, so no batch was recorded.
+    pub batch_id: Option<i64>,
     /// The kind of file.
     pub kind: ImportKind,
     /// The file name as given.
@@ -156,10 +168,27 @@ pub struct ImportReport {
     pub written: usize,
     /// Count rows written (counts and records files).
     pub counts: usize,
+    /// Of `counts`, those written on events stored before this import (a
+    /// cumulative file adding taxa to a stored event).
+    pub counts_on_stored_events: usize,
     /// Stored counts overwritten because of `replace`.
     pub replaced: usize,
     /// Rows identical to what is already stored, left as they were.
     pub unchanged: usize,
+}
+
+impl ImportReport {
+    /// True when the import would write nothing but its batch row: no row of
+    /// the file's kind, no count, nothing created or overwritten.
+    pub fn adds_nothing(&self) -> bool {
+        self.written == 0 && self.counts == 0 && self.created.is_empty() && self.replaced == 0
+    }
+
+    /// The batch of a report made by `BatchMeta::insert`, for the writes that follow it.
+    pub(crate) fn batch(&self) -> i64 {
+        self.batch_id
+            .expect("invariant: BatchMeta::insert sets the batch; only import_once clears it, after every write")
+    }
 }
 
 /// The largest file [`import_path`] reads: 2 GiB. A file is read whole into
@@ -277,12 +306,28 @@ fn import_once(
         ImportKind::Events => sampling::import_events(&tx, meta, bytes, opts, &mut issues)?,
         ImportKind::Counts => sampling::import_counts(&tx, meta, bytes, opts, &mut issues)?,
         ImportKind::Records => records::import_records(&tx, meta, bytes, opts, &mut issues)?,
+        ImportKind::Attributes => {
+            attributes::import_attributes(&tx, meta, bytes, opts, &mut issues)?
+        }
         ImportKind::Dwca => {
             return Err(StoreError::Refused(
                 "a Darwin Core archive is read by `tally import dwca`".into(),
             ));
         }
     };
+    // A cumulative file that adds nothing leaves no batch behind: the batch row
+    // written with the report is rolled back with the transaction.
+    if let Some(r) = report.as_ref()
+        && opts.skip_existing
+        && issues.is_empty()
+        && r.adds_nothing()
+    {
+        drop(tx);
+        return Ok(ImportReport {
+            batch_id: None,
+            ..r.clone()
+        });
+    }
     commit_or_refuse(tx, report, issues, file_name)
 }
 
@@ -372,7 +417,7 @@ impl BatchMeta {
             ],
         )?;
         Ok(ImportReport {
-            batch_id: tx.last_insert_rowid(),
+            batch_id: Some(tx.last_insert_rowid()),
             kind: self.kind,
             file: self.file.clone(),
             rows,
@@ -380,6 +425,7 @@ impl BatchMeta {
             created: notes.created,
             written: 0,
             counts: 0,
+            counts_on_stored_events: 0,
             unchanged: 0,
         })
     }

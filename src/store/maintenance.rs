@@ -696,7 +696,8 @@ mod tests {
         assert_eq!(made_by("index", "count_taxon").as_deref(), Some("1"));
         assert_eq!(made_by("table", "saved_selection").as_deref(), Some("2"));
         assert_eq!(made_by("table", "taxon_change").as_deref(), Some("4"));
-        assert_eq!(made_by("table", "import_batch").as_deref(), Some("5"));
+        assert_eq!(made_by("table", "import_batch").as_deref(), Some("6"));
+        assert_eq!(made_by("table", "site_change").as_deref(), Some("6"));
         assert_eq!(made_by("table", "nothing"), None);
     }
 

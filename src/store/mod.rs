@@ -18,6 +18,7 @@ pub mod query;
 pub mod runs;
 pub mod selections;
 pub(crate) mod sheet;
+pub mod sites;
 pub mod summary;
 pub mod taxa;
 #[doc(hidden)]

@@ -21,7 +21,9 @@ use serde::{Deserialize, Serialize};
 
 use super::{Result, Store, StoreError};
 use crate::matrix::Unit;
-use crate::matrix::assemble::{AssemblyOptions, CountRecord, EventRecord, Records, TaxonRecord};
+use crate::matrix::assemble::{
+    AssemblyOptions, AttributeValue, CountRecord, EventRecord, Records, TaxonRecord,
+};
 
 /// A selection of the store and the shape of the matrix built from it.
 ///
@@ -286,7 +288,12 @@ impl Selection {
             params.extend(vals.iter().map(|v| Value::Text(v.to_string())));
             out.push(Filter {
                 name: format!("--site-where {k}={}", vals.join("|")),
-                sql: format!("e.site_id IN (SELECT site_id FROM site_attribute WHERE key = ? AND value IN ({marks}))"),
+                // The value in force on the event's date (`matrix::value_on`):
+                // the latest value of the key from on or before the date.
+                sql: format!(
+                    "(SELECT a.value FROM site_attribute a WHERE a.site_id = e.site_id AND a.key = ? \
+                     AND a.valid_from <= e.date ORDER BY a.valid_from DESC LIMIT 1) IN ({marks})"
+                ),
                 params,
             });
         }
@@ -438,20 +445,16 @@ impl Store {
         }
 
         let sites: HashSet<&str> = events.iter().map(|e| e.site.as_str()).collect();
-        let mut site_attributes: BTreeMap<String, BTreeMap<String, String>> = BTreeMap::new();
-        {
-            let mut stmt = conn.prepare(
-                "SELECT s.code, a.key, a.value FROM site_attribute a JOIN site s ON s.id = a.site_id ORDER BY 1, 2",
-            )?;
-            let mut rows = stmt.query([])?;
-            while let Some(r) = rows.next()? {
-                let code: String = r.get(0)?;
-                if sites.contains(code.as_str()) {
-                    site_attributes
-                        .entry(code)
-                        .or_default()
-                        .insert(r.get(1)?, r.get(2)?);
-                }
+        let mut site_attributes: BTreeMap<String, BTreeMap<String, Vec<AttributeValue>>> =
+            BTreeMap::new();
+        for (code, key, value) in self.attribute_histories()? {
+            if sites.contains(code.as_str()) {
+                site_attributes
+                    .entry(code)
+                    .or_default()
+                    .entry(key)
+                    .or_default()
+                    .push(value);
             }
         }
         Ok(Records {

@@ -3,6 +3,8 @@
 //! one per row in `run_value`, so a number can be followed across runs
 //! (`tally runs series`).
 
+use std::collections::BTreeMap;
+
 use rusqlite::{OptionalExtension, params};
 use serde::Serialize;
 
@@ -29,6 +31,10 @@ pub struct NewRun {
     pub result: serde_json::Value,
     /// Headline numbers (name, value); `None` for a value that could not be computed.
     pub values: Vec<(String, Option<f64>)>,
+    /// Digest of the site attributes in force on the matrix rows, key →
+    /// SHA-256 (`Prepared::attribute_digests`), so that `runs verify` notices
+    /// a later change of an attribute history.
+    pub attributes: BTreeMap<String, String>,
 }
 
 /// A stored run.
@@ -58,6 +64,9 @@ pub struct RunRecord {
     pub result: serde_json::Value,
     /// Headline numbers.
     pub values: Vec<(String, Option<f64>)>,
+    /// Digest of the site attributes in force on the rows, key → SHA-256;
+    /// `None` for runs stored before tally recorded it.
+    pub attributes: Option<BTreeMap<String, String>>,
 }
 
 /// One point of a series: a stored number and the run it came from.
@@ -105,8 +114,8 @@ impl Store {
         {
             let mut run_stmt = tx.prepare(
                 "INSERT INTO run (kind, selection, parameters, seed, fingerprint, tool_version, \
-                 created_at, period_start, period_end, result) \
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
+                 created_at, period_start, period_end, result, attributes) \
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
             )?;
             let mut value_stmt =
                 tx.prepare("INSERT INTO run_value (run_id, name, value) VALUES (?1, ?2, ?3)")?;
@@ -122,6 +131,8 @@ impl Store {
                     run.period_start,
                     run.period_end,
                     run.result.to_string(),
+                    serde_json::to_string(&run.attributes)
+                        .map_err(|e| StoreError::Refused(e.to_string()))?,
                 ])?;
                 let id = tx.last_insert_rowid();
                 for (name, value) in &run.values {
@@ -144,7 +155,7 @@ impl Store {
             .conn()
             .query_row(
                 "SELECT id, kind, selection, parameters, seed, fingerprint, tool_version, \
-                 created_at, period_start, period_end, result FROM run WHERE id = ?1",
+                 created_at, period_start, period_end, result, attributes FROM run WHERE id = ?1",
                 params![id],
                 |r| {
                     Ok((
@@ -159,6 +170,7 @@ impl Store {
                         r.get::<_, Option<String>>(8)?,
                         r.get::<_, Option<String>>(9)?,
                         r.get::<_, String>(10)?,
+                        r.get::<_, Option<String>>(11)?,
                     ))
                 },
             )
@@ -189,6 +201,7 @@ impl Store {
             period_end: row.9,
             result: json(&row.10),
             values,
+            attributes: row.11.and_then(|a| serde_json::from_str(&a).ok()),
         })
     }
 
@@ -315,6 +328,7 @@ mod tests {
             parameters: serde_json::json!({"permutations": 99}),
             seed: Some(u64::MAX - 3),
             fingerprint: "ab".repeat(32),
+            attributes: Default::default(),
             period_start: Some("2010-01-01".into()),
             period_end: Some(end.into()),
             result: serde_json::json!({"p_value": 0.01}),

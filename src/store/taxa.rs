@@ -140,11 +140,11 @@ struct Record<'a> {
     focus: Option<i64>,
 }
 
-fn now() -> String {
+pub(crate) fn now() -> String {
     chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
 }
 
-fn require_reason(reason: &str) -> Result<()> {
+pub(crate) fn require_reason(reason: &str) -> Result<()> {
     if reason.trim().is_empty() {
         return Err(StoreError::Refused(
             "a reason is required (--reason TEXT); it is recorded with the change".into(),

@@ -544,6 +544,7 @@ mod tests {
                 label: format!("{site}/{i}"),
                 site: site.to_string(),
                 attributes: [("treatment".to_string(), treatment.to_string())].into(),
+                attribute_changes: Default::default(),
                 year: 2000 + i as i32,
                 last_year: 2000 + i as i32,
                 season: None,

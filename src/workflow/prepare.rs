@@ -27,6 +27,13 @@ impl Prepared {
         self.matrix.fingerprint()
     }
 
+    /// The digests of the site attributes in force on the rows, key → SHA-256
+    /// ([`CountMatrix::attribute_digests`]): stored with a run beside the
+    /// fingerprint.
+    pub fn attribute_digests(&self) -> std::collections::BTreeMap<String, String> {
+        self.matrix.attribute_digests()
+    }
+
     /// First and last event dates covered by the matrix (ISO 8601).
     pub fn period(&self) -> (Option<String>, Option<String>) {
         let s = &self.matrix.samples;

@@ -76,6 +76,7 @@ pub fn save(store: &mut Store, runs: &[ToSave<'_>]) -> Result<Vec<i64>> {
             parameters: r.parameters.clone(),
             seed: r.seed,
             fingerprint: r.prepared.fingerprint(),
+            attributes: r.prepared.attribute_digests(),
             period_start,
             period_end,
             result: r.result.clone(),
@@ -115,6 +116,11 @@ pub struct VerifyReport {
     pub fingerprint: String,
     /// Whether the two fingerprints are equal.
     pub fingerprint_matches: bool,
+    /// Site attribute keys whose values in force on the rows differ from
+    /// those the run was stored with (an attribute history changed since:
+    /// `sites set`, `import attributes`); empty when they agree or when the
+    /// run was stored before tally recorded them.
+    pub attributes_changed: Vec<String>,
     /// Leaves of the result and stored values compared.
     pub compared: usize,
     /// What differs.
@@ -127,7 +133,8 @@ pub struct VerifyReport {
     pub max_relative_difference: Option<f64>,
     /// Version of tally that stored the run.
     pub stored_by: String,
-    /// True when the fingerprint matches and no number differs.
+    /// True when the fingerprint matches, no site attribute in force on the
+    /// rows changed and no number differs.
     pub identical: bool,
 }
 
@@ -252,6 +259,19 @@ pub fn verify(store: &Store, id: i64) -> Result<VerifyReport> {
         }
     }
     let fingerprint_matches = fingerprint == r.fingerprint;
+    let attributes_changed: Vec<String> = match &r.attributes {
+        None => Vec::new(),
+        Some(stored) => {
+            let now = prepared.attribute_digests();
+            let mut keys: Vec<&String> = stored.keys().chain(now.keys()).collect();
+            keys.sort();
+            keys.dedup();
+            keys.into_iter()
+                .filter(|k| stored.get(*k) != now.get(*k))
+                .cloned()
+                .collect()
+        }
+    };
     let numbers_differing = differences.iter().filter(|d| !d.text_only).count();
     let max_relative_difference = differences
         .iter()
@@ -263,13 +283,14 @@ pub fn verify(store: &Store, id: i64) -> Result<VerifyReport> {
     Ok(VerifyReport {
         run_id: id,
         kind: r.kind,
-        identical: fingerprint_matches && numbers_differing == 0,
+        identical: fingerprint_matches && attributes_changed.is_empty() && numbers_differing == 0,
         numbers_differing,
         max_relative_difference,
         stored_by: r.tool_version,
         stored_fingerprint: r.fingerprint,
         fingerprint,
         fingerprint_matches,
+        attributes_changed,
         compared,
         differences,
     })

@@ -103,6 +103,7 @@ fn synthetic(values: DMatrix<f64>, groups: &[&str]) -> CountMatrix {
             label: format!("s{i}"),
             site: format!("s{i}"),
             attributes: BTreeMap::from([("group".to_string(), groups[i].to_string())]),
+            attribute_changes: Default::default(),
             year: 2000 + i as i32,
             last_year: 2000 + i as i32,
             season: None,

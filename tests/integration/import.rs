@@ -435,7 +435,15 @@ fn the_examples_in_the_data_model_guide_import() {
         .skip(1)
         .map(|b| b.split("```").next().unwrap())
         .collect();
-    let kinds = ["sites", "protocols", "taxa", "events", "counts", "records"];
+    let kinds = [
+        "sites",
+        "attributes",
+        "protocols",
+        "taxa",
+        "events",
+        "counts",
+        "records",
+    ];
     assert_eq!(blocks.len(), kinds.len());
     let env = TestEnv::new();
     env.stdout(["init"]);
@@ -456,4 +464,58 @@ fn the_examples_in_the_data_model_guide_import() {
     ] {
         assert!(dump.contains(code), "{code}");
     }
+}
+
+#[test]
+fn a_cumulative_season_file_imports_its_new_rows_once() {
+    let env = base_store();
+    let batches = |env: &TestEnv| -> usize {
+        let v: serde_json::Value =
+            serde_json::from_str(&env.stdout(["batches", "--format", "json"])).unwrap();
+        v.as_array().unwrap().len()
+    };
+    let early = "site,date,protocol,effort,taxon,count\n\
+                 S01,2016-05-02,kick,3,Baetis,4\nS02,2016-05-03,kick,3,,\n";
+    let p = env.write("season.csv", early);
+    let p = p.to_str().unwrap();
+    let (code, _, err) = env.run(["import", "records", p, "--skip-existing"]);
+    assert_eq!(code, 0, "{err}");
+    let first = env.dump();
+    let n = batches(&env);
+    // Later the same file has grown by one taxon on a stored event and one visit.
+    env.write(
+        "season.csv",
+        &format!("{early}S01,2016-05-02,kick,3,Heptageniidae,1\nS01,2016-06-02,kick,3,Baetis,2\n"),
+    );
+    let (code, _, err) = env.run(["import", "records", p, "--skip-existing"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("2 rows new, 2 identical to the store (skipped)")
+            && err.contains("1 new event, 2 counts, 1 count on events already stored"),
+        "{err}"
+    );
+    assert_eq!(batches(&env), n + 1);
+    let second = env.dump();
+    let (code, _, err) = env.run(["import", "records", p, "--skip-existing"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("nothing new in") && err.contains("4 rows already stored"),
+        "{err}"
+    );
+    assert_eq!(
+        batches(&env),
+        n + 1,
+        "a file adding nothing records no batch"
+    );
+    assert_eq!(env.dump(), second);
+    // Without the flag the stored rows are refused, and the message says how.
+    let (code, _, err) = env.run(["import", "records", p]);
+    assert_eq!(code, 1);
+    assert!(
+        err.contains("line 2, column taxon") && err.contains("--skip-existing"),
+        "{err}"
+    );
+    assert_eq!(env.dump(), second);
+    env.stdout(["batches", "undo", &(n + 1).to_string()]);
+    assert_eq!(env.dump(), first);
 }

@@ -112,6 +112,7 @@ fn runs_stored_without_a_typed_spec_are_not_replayable() {
             }),
             seed: Some(3),
             fingerprint: String::new(),
+            attributes: Default::default(),
             period_start: None,
             period_end: None,
             result: serde_json::json!({}),

@@ -67,7 +67,7 @@ impl Render for Counts<'_> {
 
 /// One sample's metadata as a JSON object.
 fn sample_json(s: &SampleMeta) -> Value {
-    json!({
+    let mut v = json!({
         "label": s.label,
         "site": s.site,
         "year": s.year,
@@ -80,7 +80,13 @@ fn sample_json(s: &SampleMeta) -> Value {
         "effort_unit": s.effort_unit,
         "protocol": s.protocol,
         "attributes": s.attributes,
-    })
+    });
+    // Keys whose value changed between the events pooled into the row
+    // (docs/matrices.md, "Site attributes that change").
+    if !s.attribute_changes.is_empty() {
+        v["attribute_changes"] = json!(s.attribute_changes);
+    }
+    v
 }
 
 /// A number for people: whole numbers as they are, others to 4 decimals.
@@ -100,7 +106,12 @@ fn text_rows(m: &CountMatrix, meta: bool, fmt: fn(f64) -> String) -> Vec<Vec<Str
     let attr_keys: Vec<String> = m
         .samples
         .iter()
-        .flat_map(|s| s.attributes.keys().cloned())
+        .flat_map(|s| {
+            s.attributes
+                .keys()
+                .chain(s.attribute_changes.keys())
+                .cloned()
+        })
         .collect::<BTreeSet<_>>()
         .into_iter()
         .collect();
@@ -139,11 +150,14 @@ fn text_rows(m: &CountMatrix, meta: bool, fmt: fn(f64) -> String) -> Vec<Vec<Str
                 s.effort_unit.clone(),
                 s.protocol.clone(),
             ]);
-            r.extend(
-                attr_keys
-                    .iter()
-                    .map(|k| s.attributes.get(k).cloned().unwrap_or_default()),
-            );
+            r.extend(attr_keys.iter().map(|k| {
+                // A changing key shows the change in words.
+                s.attributes
+                    .get(k)
+                    .or_else(|| s.attribute_changes.get(k))
+                    .cloned()
+                    .unwrap_or_default()
+            }));
         }
         r.extend((0..m.values.ncols()).map(|j| fmt(m.values[(i, j)])));
         rows.push(r);

@@ -24,11 +24,24 @@ fn short(v: &Value) -> String {
 
 /// Why a run is not reproduced, for the error that ends the command.
 pub fn not_reproduced(rep: &VerifyReport) -> String {
-    match (rep.fingerprint_matches, rep.numbers_differing) {
-        (false, 0) => "the data fingerprint changed".to_string(),
-        (false, k) => format!("the data fingerprint changed and {k} stored numbers differ"),
-        (true, k) => format!("{k} stored numbers differ"),
+    let mut parts = Vec::new();
+    if !rep.fingerprint_matches {
+        parts.push("the data fingerprint changed".to_string());
     }
+    if !rep.attributes_changed.is_empty() {
+        parts.push(format!(
+            "the history of site attribute {} changed",
+            rep.attributes_changed.join(", ")
+        ));
+    }
+    if rep.numbers_differing > 0 || parts.is_empty() {
+        parts.push(crate::words::count(
+            rep.numbers_differing,
+            "stored number differs",
+            "stored numbers differ",
+        ));
+    }
+    parts.join(" and ")
 }
 
 impl Render for VerifyReport {
@@ -45,6 +58,14 @@ impl Render for VerifyReport {
                 out,
                 "data: CHANGED — the selection now gives a different matrix (fingerprint stored {}, now {})",
                 self.stored_fingerprint, self.fingerprint
+            )?;
+        }
+        if !self.attributes_changed.is_empty() {
+            writeln!(
+                out,
+                "site attributes: CHANGED — the values in force on the rows differ from when the run was stored, for {} \
+                 (an attribute history was corrected or extended since: see `tally sites history`)",
+                self.attributes_changed.join(", ")
             )?;
         }
         let texts = self.differences.len() - self.numbers_differing;
@@ -110,6 +131,9 @@ impl Render for VerifyReport {
         w.write_record(["path", "stored", "recomputed"])?;
         if !self.fingerprint_matches {
             w.write_record(["fingerprint", &self.stored_fingerprint, &self.fingerprint])?;
+        }
+        for k in &self.attributes_changed {
+            w.write_record([format!("attribute:{k}"), "stored".into(), "changed".into()])?;
         }
         for d in &self.differences {
             w.write_record([

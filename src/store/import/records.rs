@@ -29,9 +29,13 @@ struct RecordEvent {
     replicate: i64,
     effort: f64,
     time: Option<String>,
+    /// The first line giving the time.
+    time_line: Option<u64>,
     first_line: u64,
     /// The line of a row with empty taxon and count (nothing found).
     empty_line: Option<u64>,
+    /// How many such rows the event has.
+    empty_rows: usize,
     /// The first line listing a taxon.
     taxon_line: Option<u64>,
 }
@@ -147,8 +151,10 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
                     replicate,
                     effort,
                     time: time.clone(),
+                    time_line: time.as_ref().map(|_| line),
                     first_line: line,
                     empty_line: None,
+                    empty_rows: 0,
                     taxon_line: None,
                 });
             }
@@ -175,12 +181,16 @@ fn parse_records(bytes: &[u8], delimiter: Option<u8>, issues: &mut Issues) -> Re
                     );
                     return;
                 }
-                (None, Some(_)) => ev.time = time,
+                (None, Some(_)) => {
+                    ev.time = time;
+                    ev.time_line = Some(line);
+                }
                 _ => {}
             }
             match value {
                 None => {
                     ev.empty_line.get_or_insert(line);
+                    ev.empty_rows += 1;
                 }
                 Some(value) => {
                     ev.taxon_line.get_or_insert(line);
@@ -289,9 +299,10 @@ pub(crate) fn import_records(
     let mut event_of: Vec<Option<i64>> = Vec::with_capacity(rec.events.len());
     let mut new_events: Vec<(i64, String, usize)> = Vec::new();
     let mut stored_events = HashSet::new();
+    let mut unchanged = 0;
     {
         let mut by_key = tx.prepare(
-            "SELECT id, code, effort, import_batch_id FROM event \
+            "SELECT id, code, effort, time, import_batch_id FROM event \
              WHERE site_id = ?1 AND date = ?2 AND protocol_id = ?3 AND replicate = ?4",
         )?;
         let mut by_code = tx.prepare("SELECT 1 FROM event WHERE code = ?1")?;
@@ -307,12 +318,13 @@ pub(crate) fn import_records(
                 continue;
             };
             if !sites.is_new(site) {
-                let stored: Option<(i64, String, f64, Option<i64>)> = by_key
+                type Stored = (i64, String, f64, Option<String>, Option<i64>);
+                let stored: Option<Stored> = by_key
                     .query_row(params![site, ev.date.text(), protocol, ev.replicate], |r| {
-                        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+                        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
                     })
                     .optional()?;
-                if let Some((id, code, effort, batch)) = stored {
+                if let Some((id, code, effort, time, batch)) = stored {
                     if effort != ev.effort {
                         let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
                         issues.push(
@@ -323,6 +335,28 @@ pub(crate) fn import_records(
                                  one event has one effort",
                                 shorten(&code),
                                 ev.effort
+                            ),
+                        );
+                        event_of.push(None);
+                        continue;
+                    }
+                    // A cumulative file describes a stored event as stored: the
+                    // same time of day too (empty when the event has none).
+                    if opts.skip_existing && time != ev.time {
+                        let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
+                        let shown = |t: &Option<String>| {
+                            t.as_deref()
+                                .map_or("no time".to_string(), |t| format!("time '{t}'"))
+                        };
+                        issues.push(
+                            ev.time_line.unwrap_or(ev.first_line),
+                            "time",
+                            format!(
+                                "event '{}' is already stored{from} with {}, not {}; \
+                                 a cumulative import cannot change a stored event",
+                                shorten(&code),
+                                shown(&time),
+                                shown(&ev.time)
                             ),
                         );
                         event_of.push(None);
@@ -355,6 +389,8 @@ pub(crate) fn import_records(
                             event_of.push(None);
                             continue;
                         }
+                        // Nothing found, as stored: these rows add nothing.
+                        unchanged += ev.empty_rows;
                     }
                     stored_events.insert(id);
                     event_of.push(Some(id));
@@ -392,6 +428,7 @@ pub(crate) fn import_records(
         taxon_of: &taxon_of,
         taxa: &rec.taxa,
         stored_events: &stored_events,
+        unchanged,
         created,
         sites: &sites,
         taxon_ids: &taxa,

@@ -101,7 +101,9 @@ pub(crate) fn import_sites(
             "SELECT id, name, latitude, longitude, import_batch_id FROM site WHERE code = ?1",
         )?;
         let mut attrs =
-            tx.prepare("SELECT key, value FROM site_attribute WHERE site_id = ?1 ORDER BY key")?;
+            tx.prepare(
+                "SELECT key, value FROM site_attribute WHERE site_id = ?1 AND valid_from = '' ORDER BY key",
+            )?;
         for row in rows {
             let stored = find
                 .query_row([&row.code], |r| {

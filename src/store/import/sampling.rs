@@ -144,17 +144,28 @@ struct NewCount {
     line: u64,
 }
 
+/// What [`check_counts`] found among the counts of stored events.
+#[derive(Debug, Default)]
+struct Checked {
+    /// Stored values overwritten (`replace`), for the batch notes.
+    replaced: Vec<Replaced>,
+    /// Counts equal to the stored ones, dropped (`skip_existing`).
+    identical: usize,
+}
+
 /// Sort `counts` by (event, taxon), report pairs listed twice in the file, and
-/// compare with counts already stored for `stored_events`: a conflict is an
-/// issue unless `replace`, in which case the old value is returned for the batch notes.
+/// compare with counts already stored for `stored_events`. A stored count is
+/// overwritten with `replace` (its old value returned for the batch notes);
+/// with `skip_existing` an equal one is dropped from `counts` and a different
+/// one is refused (unless `replace`); otherwise any stored count is refused.
 fn check_counts(
     tx: &Transaction<'_>,
-    counts: &mut [NewCount],
+    counts: &mut Vec<NewCount>,
     stored_events: &HashSet<i64>,
     taxon_name: &dyn Fn(i64) -> String,
     opts: &ImportOptions,
     issues: &mut Issues,
-) -> Result<Vec<Replaced>> {
+) -> Result<Checked> {
     counts.sort_unstable_by_key(|c| (c.event, c.taxon, c.line));
     for w in counts.windows(2) {
         if w[0].event == w[1].event && w[0].taxon == w[1].taxon {
@@ -169,39 +180,69 @@ fn check_counts(
             );
         }
     }
-    let mut replaced = Vec::new();
+    let mut checked = Checked::default();
     if stored_events.is_empty() {
-        return Ok(replaced);
+        return Ok(checked);
     }
     let mut stmt = tx.prepare(
         "SELECT value, import_batch_id FROM count WHERE event_id = ?1 AND taxon_id = ?2",
     )?;
-    for c in counts.iter().filter(|c| stored_events.contains(&c.event)) {
-        let old: Option<(f64, Option<i64>)> = stmt
-            .query_row(params![c.event, c.taxon], |r| Ok((r.get(0)?, r.get(1)?)))
-            .optional()?;
-        let Some((value, batch)) = old else { continue };
-        if opts.replace {
-            replaced.push(Replaced {
+    let mut keep = Vec::with_capacity(counts.len());
+    for c in counts.iter() {
+        let old: Option<(f64, Option<i64>)> = if stored_events.contains(&c.event) {
+            stmt.query_row(params![c.event, c.taxon], |r| Ok((r.get(0)?, r.get(1)?)))
+                .optional()?
+        } else {
+            None
+        };
+        let Some((value, batch)) = old else {
+            keep.push(true);
+            continue;
+        };
+        let name = taxon_name(c.taxon);
+        let taxon = shorten(&name);
+        let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
+        if opts.skip_existing && value == c.value {
+            checked.identical += 1;
+            keep.push(false);
+        } else if opts.replace {
+            checked.replaced.push(Replaced {
                 event: c.event,
                 taxon: c.taxon,
                 value,
                 batch,
             });
+            keep.push(true);
+        } else if opts.skip_existing {
+            issues.push(
+                c.line,
+                "count",
+                format!(
+                    "'{taxon}' is stored for this event with count {value}{from}, not {}; \
+                     a cumulative import never changes a stored count (correct the file, \
+                     or use --replace to overwrite it)",
+                    c.value
+                ),
+            );
+            keep.push(true);
         } else {
-            let from = batch.map_or(String::new(), |b| format!(" by batch {b}"));
             issues.push(
                 c.line,
                 "taxon",
                 format!(
-                    "a count of '{}' for this event is already stored{from} (value {value}); \
-                     use --replace to overwrite it",
-                    shorten(&taxon_name(c.taxon))
+                    "a count of '{taxon}' for this event is already stored{from} (value {value}); \
+                     use --skip-existing to import only the rows not yet stored (a cumulative file), \
+                     or --replace to overwrite stored counts"
                 ),
             );
+            keep.push(true);
         }
     }
-    Ok(replaced)
+    if checked.identical > 0 {
+        let mut keep = keep.into_iter();
+        counts.retain(|_| keep.next().unwrap_or(true));
+    }
+    Ok(checked)
 }
 
 /// Rows per multi-row INSERT when writing counts (4 parameters each).
@@ -421,21 +462,32 @@ pub(crate) fn import_events(
                 })
                 .optional()?;
             if let Some(s) = stored {
-                let same = s.0 == row.site
-                    && s.1 == row.date.text()
-                    && s.2 == row.protocol
-                    && s.3 == row.effort
-                    && s.4 == row.time
-                    && s.5 == row.replicate
-                    && s.6 == row.notes;
-                if same {
-                    unchanged += 1;
-                } else {
-                    issues.push(
+                let opt = |t: &Option<String>| t.clone().unwrap_or_default();
+                // The first column whose value differs from the stored event's.
+                let differs = [
+                    ("site", s.0 != row.site, s.0.clone()),
+                    ("date", s.1 != row.date.text(), s.1.clone()),
+                    ("protocol", s.2 != row.protocol, s.2.clone()),
+                    ("effort", s.3 != row.effort, s.3.to_string()),
+                    ("time", s.4 != row.time, opt(&s.4)),
+                    ("replicate", s.5 != row.replicate, s.5.to_string()),
+                    ("notes", s.6 != row.notes, s.6.clone()),
+                ]
+                .into_iter()
+                .find(|(_, differs, _)| *differs);
+                match differs {
+                    None => unchanged += 1,
+                    Some((column, _, stored)) => issues.push(
                         row.line,
-                        "code",
-                        super::reference::already_stored("event", &row.code, s.7),
-                    );
+                        column,
+                        format!(
+                            "event '{}' is already stored{} with {column} '{}'; an import cannot \
+                             change a stored event (undo that batch first, or leave the row as stored)",
+                            shorten(&row.code),
+                            s.7.map_or(String::new(), |b| format!(" (batch {b})")),
+                            shorten(&stored)
+                        ),
+                    ),
                 }
                 continue;
             }
@@ -464,7 +516,7 @@ pub(crate) fn import_events(
         return Ok(None);
     }
     let mut report = meta.insert(tx, total, created, Vec::new())?;
-    write_created(tx, &sites, &Ids::empty(), report.batch_id)?;
+    write_created(tx, &sites, &Ids::empty(), report.batch())?;
     let mut ins = tx.prepare(
         "INSERT INTO event(code, site_id, date, time, protocol_id, effort, replicate, notes, import_batch_id) \
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
@@ -511,6 +563,9 @@ pub(super) struct Counted<'a> {
     pub(super) taxa: &'a Interner,
     /// Events already stored, whose counts may clash with stored ones.
     pub(super) stored_events: &'a HashSet<i64>,
+    /// Rows found identical to the store before the counts are checked (a
+    /// records file's nothing-found rows of stored events without counts).
+    pub(super) unchanged: usize,
     /// Sites and taxa created on the way (`ImportReport::created`).
     pub(super) created: Vec<String>,
     /// Site and taxon ids, with the ones to create.
@@ -555,15 +610,22 @@ pub(super) fn finish_counts(
             .get(&id)
             .map_or_else(|| id.to_string(), |n| n.to_string())
     };
-    let replaced = check_counts(tx, &mut counts, c.stored_events, &name, opts, issues)?;
+    let checked = check_counts(tx, &mut counts, c.stored_events, &name, opts, issues)?;
     if !issues.is_empty() {
         return Ok(None);
     }
-    let mut report = meta.insert(tx, c.total, c.created, replaced)?;
-    write_created(tx, c.sites, c.taxon_ids, report.batch_id)?;
-    report.written = write_events(report.batch_id)?;
-    write_counts(tx, &counts, report.batch_id, opts.replace)?;
+    let mut report = meta.insert(tx, c.total, c.created, checked.replaced)?;
+    let batch = report.batch();
+    write_created(tx, c.sites, c.taxon_ids, batch)?;
+    report.written = write_events(batch)?;
+    write_counts(tx, &counts, batch, opts.replace)?;
     report.counts = counts.len();
+    report.counts_on_stored_events = counts
+        .iter()
+        .filter(|n| c.stored_events.contains(&n.event))
+        .count()
+        - report.replaced;
+    report.unchanged = c.unchanged + checked.identical;
     Ok(Some(report))
 }
 
@@ -629,6 +691,7 @@ pub(crate) fn import_counts(
         taxon_of: &taxon_of,
         taxa: &taxa,
         stored_events: &stored_events,
+        unchanged: 0,
         created,
         sites: &Ids::empty(),
         taxon_ids: &taxon_ids,

@@ -176,10 +176,10 @@ fn replace_overwrites_and_undo_puts_the_old_value_back() {
     assert_eq!(v, 15.0);
     // The first batch cannot go while the second overwrote its count.
     assert!(matches!(
-        s.undo_batch(r.batch_id - 1),
+        s.undo_batch(r.batch() - 1),
         Err(StoreError::Refused(_))
     ));
-    let u = s.undo_batch(r.batch_id).unwrap();
+    let u = s.undo_batch(r.batch()).unwrap();
     assert_eq!(u.restored, 1);
     assert_eq!(s.content_dump().unwrap(), after_first);
 }
@@ -654,7 +654,7 @@ fn nothing_found_contradicts_counts_of_the_same_event() {
     );
     // Counts already stored for the event contradict a later "nothing found".
     let counts = "site,date,protocol,effort,taxon,count\nA,2016-04-21,kick,3,Baetis,2\n";
-    let batch = records(&mut s, counts).unwrap().batch_id;
+    let batch = records(&mut s, counts).unwrap().batch();
     let issues = refused(
         &mut s,
         ImportKind::Records,
@@ -800,4 +800,157 @@ proptest::proptest! {
             Err(other) => proptest::prop_assert!(false, "unexpected error {other:?}"),
         }
     }
+}
+
+/// Import `text` as `kind` as a cumulative file (`skip_existing`).
+fn cumulative(s: &mut Store, kind: ImportKind, text: &str) -> Result<ImportReport> {
+    let o = ImportOptions {
+        skip_existing: true,
+        ..ImportOptions::default()
+    };
+    import_bytes(s, kind, "season.csv", text.as_bytes(), &o)
+}
+
+/// The stored counts as (event code, taxon name, value), sorted.
+fn stored_counts(s: &Store) -> Vec<(String, String, f64)> {
+    s.conn()
+        .prepare(
+            "SELECT e.code, t.name, c.value FROM count c JOIN event e ON e.id = c.event_id \
+             JOIN taxon t ON t.id = c.taxon_id ORDER BY 1, 2",
+        )
+        .unwrap()
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
+        .unwrap()
+        .collect::<rusqlite::Result<_>>()
+        .unwrap()
+}
+
+const SEASON: &str = "site,date,protocol,effort,taxon,count\n\
+                      A,2016-04-21,kick,3,Baetis,12\nA,2016-04-21,kick,3,Old,1\n\
+                      B,2016-04-22,kick,2,,\n";
+
+#[test]
+fn a_growing_records_file_brings_only_its_new_rows() {
+    let mut s = store();
+    let first = cumulative(&mut s, ImportKind::Records, SEASON).unwrap();
+    assert_eq!((first.written, first.counts, first.unchanged), (2, 2, 0));
+    let after_first = s.content_dump().unwrap();
+    // The same season later: counts written differently ("12.0", "1e0") are
+    // the same values; one taxon added to a stored event, one new event.
+    let grown = "site,date,protocol,effort,taxon,count\n\
+                 A,2016-04-21,kick,3,Baetis,12.0\nA,2016-04-21,kick,3,Old,1e0\n\
+                 B,2016-04-22,kick,2,,\nA,2016-04-21,kick,3,Baetidae,4\n\
+                 A,2016-05-19,kick,3,Baetis,7\n";
+    let second = cumulative(&mut s, ImportKind::Records, grown).unwrap();
+    assert_eq!(
+        (
+            second.rows,
+            second.unchanged,
+            second.written,
+            second.counts,
+            second.counts_on_stored_events
+        ),
+        (5, 3, 1, 2, 1)
+    );
+    let mut expected = vec![
+        (
+            "A-2016-04-21-kick-1".to_string(),
+            "Baetidae".to_string(),
+            4.0,
+        ),
+        (
+            "A-2016-04-21-kick-1".to_string(),
+            "Baetis".to_string(),
+            12.0,
+        ),
+        ("A-2016-04-21-kick-1".to_string(), "Old".to_string(), 1.0),
+        ("A-2016-05-19-kick-1".to_string(), "Baetis".to_string(), 7.0),
+    ];
+    expected.sort_by(|a, b| a.partial_cmp(b).unwrap());
+    assert_eq!(stored_counts(&s), expected);
+    // Twice is once: the second time nothing is new and no batch is recorded.
+    let after_second = s.content_dump().unwrap();
+    let again = cumulative(&mut s, ImportKind::Records, grown).unwrap();
+    assert_eq!((again.batch_id, again.unchanged), (None, 5));
+    assert_eq!(s.content_dump().unwrap(), after_second);
+    // Undoing the second batch removes its rows only: the first file's store.
+    let u = s.undo_batch(second.batch()).unwrap();
+    assert_eq!((u.removed.events, u.removed.counts), (1, 2));
+    assert_eq!(s.content_dump().unwrap(), after_first);
+}
+
+#[test]
+fn a_cumulative_file_contradicting_the_store_is_refused_whole() {
+    let mut s = store();
+    cumulative(&mut s, ImportKind::Records, SEASON).unwrap();
+    let before = s.content_dump().unwrap();
+    // Line 2 has another count for a stored taxon, line 3 a new row (which
+    // alone would import), line 4 another effort for the stored event B.
+    let text = "site,date,protocol,effort,taxon,count\n\
+                A,2016-04-21,kick,3,Baetis,13\nA,2016-06-01,kick,3,Baetis,2\n\
+                B,2016-04-22,kick,5,Baetis,1\n";
+    let (issues, _) = invalid(cumulative(&mut s, ImportKind::Records, text));
+    let at: Vec<(u64, &str)> = issues.iter().map(|i| (i.0, i.1.as_str())).collect();
+    assert_eq!(at, [(2, "count"), (4, "effort")], "{issues:?}");
+    assert!(issues[0].2.contains("with count 12"), "{}", issues[0].2);
+    assert_eq!(s.content_dump().unwrap(), before);
+    // A time of day the stored event lacks contradicts it too (line 3).
+    let text = "site,date,protocol,effort,taxon,count,time\n\
+                A,2016-04-21,kick,3,Baetis,12,\nA,2016-04-21,kick,3,Old,1,09:30\n";
+    let (issues, _) = invalid(cumulative(&mut s, ImportKind::Records, text));
+    assert_eq!(
+        (issues[0].0, issues[0].1.as_str()),
+        (3, "time"),
+        "{issues:?}"
+    );
+    assert_eq!(s.content_dump().unwrap(), before);
+    // The stored event B (nothing found) gains a count: a new row, allowed.
+    let text = "site,date,protocol,effort,taxon,count\nB,2016-04-22,kick,2,Baetis,1\n";
+    let r = cumulative(&mut s, ImportKind::Records, text).unwrap();
+    assert_eq!((r.written, r.counts_on_stored_events), (0, 1));
+}
+
+#[test]
+fn without_skip_existing_a_stored_count_is_refused_pointing_to_it() {
+    let mut s = store();
+    records(&mut s, SEASON).unwrap();
+    let issues = refused(&mut s, ImportKind::Records, SEASON);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (2, "taxon"));
+    assert!(issues[0].2.contains("--skip-existing"), "{}", issues[0].2);
+}
+
+#[test]
+fn cumulative_events_and_counts_files_skip_identical_rows_and_name_the_contradiction() {
+    let mut s = store();
+    let events = "code,site,date,protocol,effort\nE1,A,2016-06-21,kick,3\n";
+    cumulative(&mut s, ImportKind::Events, events).unwrap();
+    let grown =
+        "code,site,date,protocol,effort\nE1,A,2016-06-21,kick,3.0\nE2,B,2016-06-22,kick,3\n";
+    let r = cumulative(&mut s, ImportKind::Events, grown).unwrap();
+    assert_eq!((r.written, r.unchanged), (1, 1));
+    let before = s.content_dump().unwrap();
+    let changed =
+        "code,site,date,protocol,effort\nE1,A,2016-06-21,kick,2\nE2,A,2016-06-22,kick,3\n";
+    let (issues, _) = invalid(cumulative(&mut s, ImportKind::Events, changed));
+    let at: Vec<(u64, &str)> = issues.iter().map(|i| (i.0, i.1.as_str())).collect();
+    assert_eq!(at, [(2, "effort"), (3, "site")]);
+    assert_eq!(s.content_dump().unwrap(), before);
+
+    let counts = "event,taxon,count\nE1,Baetis,3\n";
+    cumulative(&mut s, ImportKind::Counts, counts).unwrap();
+    let grown = "event,taxon,count\nE1,Baetis,3\nE2,Baetis,1\n";
+    let r = cumulative(&mut s, ImportKind::Counts, grown).unwrap();
+    assert_eq!((r.counts, r.unchanged), (1, 1));
+    let before = s.content_dump().unwrap();
+    let (issues, _) = invalid(cumulative(
+        &mut s,
+        ImportKind::Counts,
+        "event,taxon,count\nE1,Baetis,3\nE2,Baetis,2\nE2,Old,1\n",
+    ));
+    assert_eq!(issues.len(), 1);
+    assert_eq!((issues[0].0, issues[0].1.as_str()), (3, "count"));
+    assert_eq!(s.content_dump().unwrap(), before);
+    let r = cumulative(&mut s, ImportKind::Counts, grown).unwrap();
+    assert_eq!(r.batch_id, None);
+    assert_eq!(s.content_dump().unwrap(), before);
 }
