@@ -22,7 +22,7 @@
 //!   added up into one count (the import says how many were);
 //! - the place is `locationID`, or else the locality and coordinates.
 
-use std::collections::{BTreeMap, HashMap, HashSet};
+use std::collections::{BTreeMap, BTreeSet, HashMap, HashSet};
 use std::io::{Cursor, Read};
 use std::path::Path;
 
@@ -30,8 +30,9 @@ use sha2::{Digest, Sha256};
 
 use super::meta::{self, FileSpec, Meta};
 use super::{EVENT_TERMS, HIGHER_RANKS, NOT_STORED, OCCURRENCE_TERMS, dwc_term};
+use crate::matrix::assemble::AttributeValue;
 use crate::store::exchange::{
-    ArchiveCount, ArchiveData, ArchiveEvent, ArchiveProtocol, ArchiveSite, ArchiveTaxon,
+    ArchiveCount, ArchiveData, ArchiveEvent, ArchiveProtocol, ArchiveSite, ArchiveTaxon, History,
 };
 use crate::store::import::{
     MAX_REPORTED_ISSUES, parse_coordinate, parse_count, parse_date, parse_effort, parse_time,
@@ -665,6 +666,8 @@ fn time_of_day(t: &str) -> std::result::Result<Option<String>, String> {
 /// protocol code and the replicate number; `true` when other content was there.
 struct Dynamic {
     site: BTreeMap<String, String>,
+    /// `siteFrom`: for dated attribute values, the date they hold from.
+    site_from: BTreeMap<String, String>,
     protocol: Option<String>,
     replicate: Option<i64>,
     other: bool,
@@ -673,6 +676,7 @@ struct Dynamic {
 fn dynamic(text: &str) -> std::result::Result<Dynamic, String> {
     let mut d = Dynamic {
         site: BTreeMap::new(),
+        site_from: BTreeMap::new(),
         protocol: None,
         replicate: None,
         other: false,
@@ -697,6 +701,20 @@ fn dynamic(text: &str) -> std::result::Result<Dynamic, String> {
                         d.site
                             .insert(key.trim().to_string(), value.trim().to_string());
                     }
+                }
+            }
+            ("siteFrom", serde_json::Value::Object(a)) => {
+                for (key, value) in a {
+                    let date = value
+                        .as_str()
+                        .and_then(|t| parse_date(t.trim()).ok())
+                        .ok_or_else(|| {
+                            format!(
+                                "siteFrom of '{}' is {value}, not a date (YYYY-MM-DD)",
+                                key.trim()
+                            )
+                        })?;
+                    d.site_from.insert(key.trim().to_string(), date.text());
                 }
             }
             ("protocolCode", serde_json::Value::String(s)) if !s.trim().is_empty() => {
@@ -1002,6 +1020,8 @@ fn events(
     let mut sites: HashMap<String, usize> = HashMap::new();
     let mut protocols: HashMap<ArchiveProtocol, usize> = HashMap::new();
     let mut localities: HashMap<&str, HashSet<(String, String)>> = HashMap::new();
+    // The attribute values each site's events carry, for its history.
+    let mut seen_values: HashMap<String, Vec<SeenValues>> = HashMap::new();
     for (_, rec) in &core.rows {
         if core.get(rec, "locationID").is_empty() {
             localities
@@ -1091,7 +1111,7 @@ fn events(
         };
         if dynamic.as_ref().is_some_and(|d| d.other) {
             let label = format!(
-                "{}: dynamicProperties (other than site, protocolCode, replicate)",
+                "{}: dynamicProperties (other than site, siteFrom, protocolCode, replicate)",
                 core.part
             );
             if !notes.terms_not_stored.contains(&label) {
@@ -1137,8 +1157,17 @@ fn events(
             name: locality.to_string(),
             latitude: lat,
             longitude: lon,
-            attributes: dynamic.site.clone(),
+            attributes: BTreeMap::new(),
         };
+        seen_values
+            .entry(code.clone())
+            .or_default()
+            .push(SeenValues {
+                date: date.clone(),
+                line,
+                values: dynamic.site.clone(),
+                from: dynamic.site_from.clone(),
+            });
         match sites.get(&code) {
             None => {
                 sites.insert(code.clone(), data.sites.len());
@@ -1150,7 +1179,6 @@ fn events(
                     (first.name != site.name, "locality"),
                     (first.latitude != site.latitude, "decimalLatitude"),
                     (first.longitude != site.longitude, "decimalLongitude"),
-                    (first.attributes != site.attributes, "dynamicProperties"),
                 ];
                 for (d, term) in differs {
                     if d {
@@ -1159,13 +1187,8 @@ fn events(
                             line,
                             term,
                             format!(
-                                "site '{code}' is described otherwise on line {}; one site has one {}",
+                                "site '{code}' is described otherwise on line {}; one site has one value here",
                                 first.at.1,
-                                if term == "dynamicProperties" {
-                                    "set of attributes"
-                                } else {
-                                    "value here"
-                                }
                             ),
                         );
                     }
@@ -1196,7 +1219,115 @@ fn events(
         });
     }
 
+    for site in &mut data.sites {
+        if let Some(seen) = seen_values.get_mut(&site.code) {
+            match site_history(seen) {
+                Ok(h) => site.attributes = h,
+                Err((line, m)) => issues.push_in(
+                    &core.part,
+                    line,
+                    "dynamicProperties",
+                    format!("site '{}': {m}", site.code),
+                ),
+            }
+        }
+    }
     event_of
+}
+
+/// The site attribute values one event carries in `dynamicProperties`.
+struct SeenValues {
+    date: String,
+    line: u64,
+    values: BTreeMap<String, String>,
+    from: BTreeMap<String, String>,
+}
+
+/// A site's attribute history from the values its events carry
+/// (docs/data-model.md, "Events"): in date order, a key's first value holds
+/// since always when the site's earliest event carries it, and each new value
+/// holds from its `siteFrom` date or else from the date of the first event
+/// carrying it. A key that stops being given, a `siteFrom` after the event or
+/// not after the previous value's, or two dates for one value are refused:
+/// (line, message).
+fn site_history(seen: &mut [SeenValues]) -> std::result::Result<History, (u64, String)> {
+    seen.sort_by(|a, b| (&a.date, a.line).cmp(&(&b.date, b.line)));
+    let mut history: History = BTreeMap::new();
+    let keys: BTreeSet<&String> = seen.iter().flat_map(|s| s.values.keys()).collect();
+    for key in keys {
+        let mut values: Vec<AttributeValue> = Vec::new();
+        // The line that gave the value in force, for messages.
+        let mut given_on: Option<u64> = None;
+        for (i, s) in seen.iter().enumerate() {
+            let Some(value) = s.values.get(key) else {
+                if let Some(l) = given_on {
+                    return Err((
+                        s.line,
+                        format!(
+                            "attribute '{key}' is given on line {l} and not on this later event; \
+                             a value holds until the next value of its key, so every later event \
+                             carries one"
+                        ),
+                    ));
+                }
+                continue;
+            };
+            let from = s.from.get(key).cloned();
+            if from.as_deref().is_some_and(|f| f > s.date.as_str()) {
+                return Err((
+                    s.line,
+                    format!(
+                        "siteFrom of '{key}' is {} but the event is on {}; a value holds from \
+                         a date on or before the events that carry it",
+                        from.as_deref().unwrap_or_default(),
+                        s.date
+                    ),
+                ));
+            }
+            match values.last() {
+                Some(last) if &last.value == value => {
+                    if from.is_some() && from != last.from {
+                        return Err((
+                            s.line,
+                            format!(
+                                "'{key}' = '{value}' is given from {} here and from {} on line {}; \
+                                 one value has one date",
+                                from.as_deref().unwrap_or_default(),
+                                last.from.as_deref().unwrap_or("since always"),
+                                given_on.unwrap_or_default()
+                            ),
+                        ));
+                    }
+                }
+                last => {
+                    let from = match (from, last, i) {
+                        (Some(f), _, _) => Some(f),
+                        (None, None, 0) => None,
+                        (None, _, _) => Some(s.date.clone()),
+                    };
+                    if let (Some(last), Some(f)) = (last, &from)
+                        && last.from.as_deref().is_some_and(|l| l >= f.as_str())
+                    {
+                        return Err((
+                            s.line,
+                            format!(
+                                "'{key}' = '{value}' holds from {f}, not after the value before \
+                                 it (from {}); dates of one key follow each other",
+                                last.from.as_deref().unwrap_or_default()
+                            ),
+                        ));
+                    }
+                    values.push(AttributeValue {
+                        from,
+                        value: value.clone(),
+                    });
+                    given_on = Some(s.line);
+                }
+            }
+        }
+        history.insert(key.clone(), values);
+    }
+    Ok(history)
 }
 
 #[cfg(test)]
@@ -1239,6 +1370,76 @@ mod tests {
                 .contains("more than one day")
         );
         assert!(event_date("2016-02-30").is_err());
+    }
+
+    /// Histories read from the values events carry, worked out by hand from
+    /// the rule in docs/data-model.md, "Events".
+    #[test]
+    fn a_site_history_is_read_from_its_events_values() {
+        let seen = |date: &str, line, value: Option<&str>, from: Option<&str>| SeenValues {
+            date: date.into(),
+            line,
+            values: value
+                .map(|v| [("status".to_string(), v.to_string())].into())
+                .unwrap_or_default(),
+            from: from
+                .map(|f| [("status".to_string(), f.to_string())].into())
+                .unwrap_or_default(),
+        };
+        let v = |from: Option<&str>, value: &str| AttributeValue {
+            from: from.map(str::to_string),
+            value: value.into(),
+        };
+        // Out of file order; no siteFrom: since always, then from the first
+        // event with the new value.
+        let mut s = vec![
+            seen("2015-05-10", 4, Some("restored"), None),
+            seen("2013-05-10", 2, Some("degraded"), None),
+            seen("2014-09-10", 3, Some("restored"), None),
+        ];
+        assert_eq!(
+            site_history(&mut s).unwrap()["status"],
+            [v(None, "degraded"), v(Some("2014-09-10"), "restored")]
+        );
+        // siteFrom gives the exact date, also for the first value.
+        let mut s = vec![
+            seen("2013-05-10", 2, Some("degraded"), Some("2010-01-01")),
+            seen("2014-09-10", 3, Some("restored"), Some("2014-06-01")),
+        ];
+        assert_eq!(
+            site_history(&mut s).unwrap()["status"],
+            [
+                v(Some("2010-01-01"), "degraded"),
+                v(Some("2014-06-01"), "restored")
+            ]
+        );
+        // A key first given on a later event holds from that event.
+        let mut s = vec![
+            seen("2013-05-10", 2, None, None),
+            seen("2014-09-10", 3, Some("restored"), None),
+        ];
+        assert_eq!(
+            site_history(&mut s).unwrap()["status"],
+            [v(Some("2014-09-10"), "restored")]
+        );
+        // Refused: a key that stops, a siteFrom after its event, two dates for one value.
+        let mut s = vec![
+            seen("2013-05-10", 2, Some("degraded"), None),
+            seen("2014-09-10", 3, None, None),
+        ];
+        assert_eq!(site_history(&mut s).unwrap_err().0, 3);
+        let mut s = vec![seen("2013-05-10", 2, Some("degraded"), Some("2013-06-01"))];
+        assert!(site_history(&mut s).unwrap_err().1.contains("on or before"));
+        let mut s = vec![
+            seen("2013-05-10", 2, Some("degraded"), Some("2012-01-01")),
+            seen("2014-05-10", 3, Some("degraded"), Some("2013-01-01")),
+        ];
+        assert!(
+            site_history(&mut s)
+                .unwrap_err()
+                .1
+                .contains("one value has one date")
+        );
     }
 
     #[test]

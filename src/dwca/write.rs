@@ -19,7 +19,8 @@ use zip::write::SimpleFileOptions;
 
 use super::eml::{self, Contact, Licence};
 use super::{EVENT_TERMS, HIGHER_RANKS, INDIVIDUALS, OCCURRENCE_TERMS, meta};
-use crate::store::exchange::ExchangeEvent;
+use crate::matrix::assemble::entry_on;
+use crate::store::exchange::{ExchangeEvent, History};
 use crate::store::taxa::integrity::Node;
 use crate::store::{Selection, Store, StoreError};
 
@@ -140,17 +141,27 @@ fn number(v: f64) -> String {
     format!("{v}")
 }
 
-fn dynamic_properties(e: &ExchangeEvent, attrs: Option<&BTreeMap<String, String>>) -> String {
+/// The event's `dynamicProperties`: the site attribute values in force on the
+/// event's date (`site`), the dates from which the dated ones hold
+/// (`siteFrom`, so an archive keeps the history exactly), the protocol code
+/// and the replicate (docs/data-model.md, "Events").
+fn dynamic_properties(e: &ExchangeEvent, history: Option<&History>) -> String {
     let mut m = serde_json::Map::new();
-    if let Some(a) = attrs.filter(|a| !a.is_empty()) {
-        m.insert(
-            "site".into(),
-            serde_json::Value::Object(
-                a.iter()
-                    .map(|(k, v)| (k.clone(), serde_json::Value::String(v.clone())))
-                    .collect(),
-            ),
-        );
+    let mut values = serde_json::Map::new();
+    let mut from = serde_json::Map::new();
+    for (key, h) in history.into_iter().flatten() {
+        if let Some(v) = entry_on(h, &e.date) {
+            values.insert(key.clone(), serde_json::Value::String(v.value.clone()));
+            if let Some(f) = &v.from {
+                from.insert(key.clone(), serde_json::Value::String(f.clone()));
+            }
+        }
+    }
+    if !values.is_empty() {
+        m.insert("site".into(), serde_json::Value::Object(values));
+    }
+    if !from.is_empty() {
+        m.insert("siteFrom".into(), serde_json::Value::Object(from));
     }
     m.insert(
         "protocolCode".into(),

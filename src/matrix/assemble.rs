@@ -86,7 +86,7 @@ pub fn value_on<'a>(history: &'a [AttributeValue], date: &str) -> Option<&'a str
 }
 
 /// The entry of `history` in force on `date` (see [`value_on`]).
-fn entry_on<'a>(history: &'a [AttributeValue], date: &str) -> Option<&'a AttributeValue> {
+pub fn entry_on<'a>(history: &'a [AttributeValue], date: &str) -> Option<&'a AttributeValue> {
     history
         .iter()
         .rev()

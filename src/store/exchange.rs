@@ -23,6 +23,7 @@ use super::import::{BatchMeta, ImportKind, ImportReport, MAX_REPORTED_ISSUES, co
 use super::sheet::Issues;
 use super::taxa::integrity::Node;
 use super::{Result, Selection, Store, StoreError};
+use crate::matrix::assemble::AttributeValue;
 
 /// One stored event with everything an archive's event row says about it.
 #[derive(Debug, Clone)]
@@ -155,24 +156,27 @@ impl Store {
             .collect())
     }
 
-    /// The attributes of every site: code → key → value.
+    /// The attribute histories of every site: code → key → values, sorted by
+    /// the date each holds from ("since always" first).
     ///
     /// # Errors
     /// SQLite errors.
-    pub fn exchange_site_attributes(&self) -> Result<BTreeMap<String, BTreeMap<String, String>>> {
-        let mut stmt = self.conn().prepare(
-            "SELECT s.code, a.key, a.value FROM site_attribute a JOIN site s ON s.id = a.site_id",
-        )?;
-        let mut out: BTreeMap<String, BTreeMap<String, String>> = BTreeMap::new();
-        let mut rows = stmt.query([])?;
-        while let Some(r) = rows.next()? {
-            out.entry(r.get(0)?)
+    pub fn exchange_site_attributes(&self) -> Result<BTreeMap<String, History>> {
+        let mut out: BTreeMap<String, History> = BTreeMap::new();
+        for (site, key, value) in self.attribute_histories()? {
+            out.entry(site)
                 .or_default()
-                .insert(r.get(1)?, r.get(2)?);
+                .entry(key)
+                .or_default()
+                .push(value);
         }
         Ok(out)
     }
 }
+
+/// The attribute history of one site: key → values sorted by the date each
+/// holds from, "since always" first (docs/data-model.md, "Site attributes that change").
+pub type History = BTreeMap<String, Vec<AttributeValue>>;
 
 /// A place named by the archive's events.
 #[derive(Debug, Clone, PartialEq)]
@@ -187,8 +191,9 @@ pub struct ArchiveSite {
     pub latitude: Option<f64>,
     /// `decimalLongitude`.
     pub longitude: Option<f64>,
-    /// Site attributes carried in `dynamicProperties`.
-    pub attributes: BTreeMap<String, String>,
+    /// Site attribute histories, from the values carried in
+    /// `dynamicProperties` by the site's events.
+    pub attributes: History,
 }
 
 /// A sampling protocol named by the archive's events.
@@ -368,17 +373,24 @@ fn write_archive(
             stored_place.insert(r.get(0)?, (r.get(1)?, r.get(2)?, r.get(3)?));
         }
     }
-    let mut stored_attributes: HashMap<String, BTreeMap<String, String>> = HashMap::new();
+    let mut stored_attributes: HashMap<String, History> = HashMap::new();
     {
         let mut stmt = tx.prepare(
-            "SELECT s.code, a.key, a.value FROM site_attribute a JOIN site s ON s.id = a.site_id",
+            "SELECT s.code, a.key, a.valid_from, a.value FROM site_attribute a \
+             JOIN site s ON s.id = a.site_id ORDER BY s.code, a.key, a.valid_from",
         )?;
         let mut rows = stmt.query([])?;
         while let Some(r) = rows.next()? {
+            let from: String = r.get(2)?;
             stored_attributes
                 .entry(r.get(0)?)
                 .or_default()
-                .insert(r.get(1)?, r.get(2)?);
+                .entry(r.get(1)?)
+                .or_default()
+                .push(AttributeValue {
+                    from: (!from.is_empty()).then_some(from),
+                    value: r.get(3)?,
+                });
         }
     }
     let mut new_sites: Vec<&ArchiveSite> = Vec::new();
@@ -687,14 +699,19 @@ fn write_archive(
         let mut ins = tx.prepare(
             "INSERT INTO site(code, name, latitude, longitude, import_batch_id) VALUES (?1, ?2, ?3, ?4, ?5)",
         )?;
-        let mut attr =
-            tx.prepare("INSERT INTO site_attribute(site_id, key, value) VALUES (?1, ?2, ?3)")?;
+        let mut attr = tx.prepare(
+            "INSERT INTO site_attribute(site_id, key, valid_from, value, import_batch_id) \
+             VALUES (?1, ?2, ?3, ?4, ?5)",
+        )?;
         for s in &new_sites {
             ins.execute(params![s.code, s.name, s.latitude, s.longitude, batch])?;
             let id = tx.last_insert_rowid();
             site_id.insert(&s.code, id);
-            for (k, v) in &s.attributes {
-                attr.execute(params![id, k, v])?;
+            for (k, history) in &s.attributes {
+                for v in history {
+                    let from = v.from.as_deref().unwrap_or_default();
+                    attr.execute(params![id, k, from, v.value, batch])?;
+                }
             }
         }
     }

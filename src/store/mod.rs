@@ -339,6 +339,99 @@ mod tests {
             .unwrap();
     }
 
+    /// Migration V6 (attribute histories) on a populated V5 store: every row
+    /// of every other table is kept, each attribute becomes a "since always"
+    /// value, and the records a selection reads (and so every matrix) equal
+    /// those of a store made at the current version from the same rows.
+    #[test]
+    fn the_v6_migration_keeps_every_row_and_every_selection() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("v5.db");
+        let content = "INSERT INTO import_batch(id, kind, file, content_sha256, imported_at, rows) VALUES \
+               (1, 'sites', 's.csv', printf('%064d', 1), '2024-01-01T00:00:00Z', 2), \
+               (2, 'records', 'r.csv', printf('%064d', 2), '2024-01-02T00:00:00Z', 4); \
+             INSERT INTO site(id, code, import_batch_id) VALUES (1, 'S1', 1), (2, 'S2', 1); \
+             INSERT INTO site_attribute(site_id, key, value) VALUES \
+               (1, 'habitat', 'riffle'), (2, 'habitat', 'pool'), (2, 'reach', 'lower'); \
+             INSERT INTO protocol(id, code, effort_unit, import_batch_id) VALUES (1, 'kick', 'minutes', 2); \
+             INSERT INTO taxon(id, name, import_batch_id) VALUES (1, 'Baetis', 2), (2, 'Caenis', 2); \
+             INSERT INTO event(id, code, site_id, date, protocol_id, effort, import_batch_id) VALUES \
+               (1, 'E1', 1, '2020-04-01', 1, 3, 2), (2, 'E2', 2, '2020-04-02', 1, 2, 2); \
+             INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES \
+               (1, 1, 7, 2), (1, 2, 1, 2), (2, 2, 4, 2);";
+        let tables = |c: &Connection| -> Vec<String> {
+            let mut out = Vec::new();
+            for t in [
+                "import_batch",
+                "site",
+                "protocol",
+                "taxon",
+                "event",
+                "count",
+            ] {
+                let mut stmt = c.prepare(&format!("SELECT * FROM {t} ORDER BY 1")).unwrap();
+                let n = stmt.column_count();
+                let mut q = stmt.query([]).unwrap();
+                while let Some(r) = q.next().unwrap() {
+                    let cells: Vec<String> = (0..n)
+                        .map(|i| format!("{:?}", r.get::<_, rusqlite::types::Value>(i).unwrap()))
+                        .collect();
+                    out.push(format!("{t}: {}", cells.join("|")));
+                }
+            }
+            out
+        };
+        let before = {
+            let mut c = Connection::open(&path).unwrap();
+            c.pragma_update(None, "application_id", APPLICATION_ID)
+                .unwrap();
+            c.pragma_update(None, "foreign_keys", true).unwrap();
+            embedded::migrations::runner()
+                .set_target(refinery::Target::Version(5))
+                .run(&mut c)
+                .unwrap();
+            c.execute_batch(content).unwrap();
+            tables(&c)
+        };
+        let migrated = Store::open(&path).unwrap();
+        assert!(migrated.schema_version().unwrap() >= 6);
+        assert_eq!(tables(migrated.conn()), before);
+        let attrs: Vec<(i64, String, String, String)> = migrated
+            .conn()
+            .prepare("SELECT site_id, key, valid_from, value FROM site_attribute ORDER BY 1, 2")
+            .unwrap()
+            .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)))
+            .unwrap()
+            .collect::<rusqlite::Result<_>>()
+            .unwrap();
+        let since_always = |site, key: &str, value: &str| {
+            (site, key.to_string(), String::new(), value.to_string())
+        };
+        assert_eq!(
+            attrs,
+            [
+                since_always(1, "habitat", "riffle"),
+                since_always(2, "habitat", "pool"),
+                since_always(2, "reach", "lower"),
+            ]
+        );
+        let fresh = Store::open_in_memory().unwrap();
+        fresh.conn().execute_batch(content).unwrap();
+        for site_where in [
+            vec![],
+            vec![("habitat".to_string(), "riffle".to_string())],
+            vec![("reach".to_string(), "lower".to_string())],
+        ] {
+            let sel = Selection {
+                site_where: site_where.clone(),
+                ..Selection::default()
+            };
+            let a = migrated.select_records(&sel).unwrap();
+            assert_eq!(a, fresh.select_records(&sel).unwrap(), "{site_where:?}");
+            assert!(!a.events.is_empty(), "{site_where:?}");
+        }
+    }
+
     #[test]
     fn refuses_missing_and_foreign_files() {
         let dir = tempfile::tempdir().unwrap();

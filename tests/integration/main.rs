@@ -18,6 +18,7 @@ mod reference_models;
 mod report;
 mod runs_cli;
 mod shell;
+mod site_history;
 mod store_cli;
 mod taxa;
 mod trend_cli;
