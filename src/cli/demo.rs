@@ -133,6 +133,7 @@ pub fn load_demo(store: &mut Store) -> anyhow::Result<()> {
         ImportKind::Protocols,
         ImportKind::Taxa,
         ImportKind::Records,
+        ImportKind::Attributes,
     ];
     for ((name, text), kind) in files.files().into_iter().zip(kinds) {
         let report = import_bytes(

@@ -68,8 +68,16 @@ pub const PROTOCOLS_CSV: &str = include_str!("../../demo-data/protocols.csv");
 pub const TAXA_CSV: &str = include_str!("../../demo-data/taxa.csv");
 /// The committed `demo-data/records.csv`.
 pub const RECORDS_CSV: &str = include_str!("../../demo-data/records.csv");
+/// The committed `demo-data/attributes.csv`.
+pub const ATTRIBUTES_CSV: &str = include_str!("../../demo-data/attributes.csv");
 
-/// The four demo CSV files as text.
+/// Story 7: the lower-reach pool S14 (Pennick Sluice) is restored in 2014
+/// (attribute `status` from `degraded` to `restored`, from this date); the two
+/// other lower-reach pools stay `degraded`. The counts do not respond to it:
+/// the demo shows how an analysis by `status` reads the reach's 2016 decline.
+pub const RESTORED_FROM: &str = "2014-06-01";
+
+/// The five demo CSV files as text.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct DemoFiles {
     /// `sites.csv`: `code,name,latitude,longitude,reach,habitat`.
@@ -80,6 +88,8 @@ pub struct DemoFiles {
     pub taxa: String,
     /// `records.csv`: `site,date,protocol,effort,taxon,count,replicate`.
     pub records: String,
+    /// `attributes.csv`: `site,key,value,from` (story 7).
+    pub attributes: String,
 }
 
 impl DemoFiles {
@@ -90,16 +100,18 @@ impl DemoFiles {
             protocols: PROTOCOLS_CSV.to_string(),
             taxa: TAXA_CSV.to_string(),
             records: RECORDS_CSV.to_string(),
+            attributes: ATTRIBUTES_CSV.to_string(),
         }
     }
 
     /// `(file name, content)` pairs, in the order they should be imported.
-    pub fn files(&self) -> [(&'static str, &str); 4] {
+    pub fn files(&self) -> [(&'static str, &str); 5] {
         [
             ("sites.csv", &self.sites),
             ("protocols.csv", &self.protocols),
             ("taxa.csv", &self.taxa),
             ("records.csv", &self.records),
+            ("attributes.csv", &self.attributes),
         ]
     }
 }
@@ -651,7 +663,16 @@ pub fn generate_with_seed(seed: u64) -> DemoFiles {
         protocols: PROTOCOLS.to_string(),
         taxa: taxa_csv(),
         records,
+        attributes: attributes_csv(),
     }
+}
+
+/// `attributes.csv` (story 7): the lower-reach pools' `status` history.
+fn attributes_csv() -> String {
+    format!(
+        "site,key,value,from\nS14,status,degraded,\nS14,status,restored,{RESTORED_FROM}\n\
+         S16,status,degraded,\nS18,status,degraded,\n"
+    )
 }
 
 /// Expected individuals per unit effort of each taxon at `site` in one season

@@ -149,7 +149,7 @@ fn undo_reads_what_depends_on_a_batch_inside_its_transaction() {
     let (code, _, err) = env.run(["batches", "undo", "4"]);
     release.join().unwrap();
     assert_eq!(code, 1, "{err}");
-    assert!(err.contains("batch 5 (late.csv) holds 1"), "{err}");
+    assert!(err.contains("batch 6 (late.csv) holds 1"), "{err}");
 }
 
 #[test]

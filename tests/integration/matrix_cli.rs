@@ -177,7 +177,7 @@ fn unknown_names_in_a_selection_are_named_with_what_exists() {
     for (args, want) in [
         (
             vec!["--site-where", "reech=lower"],
-            "no site has the attribute 'reech'; attributes: habitat, reach (closest: 'reach')",
+            "no site has the attribute 'reech'; attributes: habitat, reach, status (closest: 'reach')",
         ),
         (
             vec!["--site-where", "reach=lowr"],

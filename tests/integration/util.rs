@@ -85,6 +85,7 @@ impl TestEnv {
                     ("protocols", "protocols.csv"),
                     ("taxa", "taxa.csv"),
                     ("records", "records.csv"),
+                    ("attributes", "attributes.csv"),
                 ] {
                     let path = root().join("demo-data").join(file);
                     env.stdout(["import", kind, path.to_str().expect("UTF-8 path")]);
