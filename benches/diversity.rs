@@ -55,6 +55,7 @@ fn matrix(rows: usize) -> CountMatrix {
         .map(|j| TaxonMeta {
             name: format!("Taxon{j:03}"),
             rank: "genus".into(),
+            unidentified: None,
         })
         .collect();
     CountMatrix {

@@ -136,6 +136,7 @@ pub fn dwca(
     let shaping: Vec<&str> = [
         (s.rank.is_some(), "--rank"),
         (s.min_occurrences.is_some(), "--min-occurrences"),
+        (s.identified_only, "--identified-only"),
         (s.unit.is_some(), "--unit"),
         (s.per_effort, "--per-effort"),
         (s.keep_empty, "--keep-empty"),
@@ -159,16 +160,18 @@ pub fn dwca(
     let mut sel = s.resolve(store)?;
     if sel.rank.is_some()
         || sel.min_occurrences.is_some()
+        || sel.identified_only
         || sel.unit.is_some()
         || sel.per_effort
         || sel.keep_empty
     {
         super::note(
-            "the saved selection's matrix settings (rank, minimum occurrences, unit, per effort, empty rows) do not apply to an archive; its event filters do",
+            "the saved selection's matrix settings (rank, minimum occurrences, identified only, unit, per effort, empty rows) do not apply to an archive; its event filters do",
         );
     }
     sel.rank = None;
     sel.min_occurrences = None;
+    sel.identified_only = false;
     sel.unit = None;
     sel.per_effort = false;
     sel.keep_empty = false;

@@ -67,6 +67,10 @@ pub struct SelectionArgs {
     /// Drop taxa present in fewer than N rows.
     #[arg(long, value_name = "N")]
     pub min_occurrences: Option<usize>,
+    /// With --rank, leave out the taxa recorded above the rank (kept as
+    /// "Name (unidentified)" columns otherwise).
+    #[arg(long)]
+    pub identified_only: bool,
     /// What one row of the matrix is [default: event; `trend` and, with --every,
     /// `diversity` pool per site and period].
     #[arg(long, value_enum)]
@@ -102,6 +106,7 @@ impl SelectionArgs {
             protocol: self.protocol.clone(),
             rank: self.rank.clone(),
             min_occurrences: self.min_occurrences,
+            identified_only: self.identified_only,
             unit: self.unit.map(Unit::from),
             per_effort: self.per_effort,
             keep_empty: self.keep_empty,

@@ -8,7 +8,9 @@
 //!
 //! Order of the steps (each documented in `docs/matrices.md`):
 //! 1. every recorded taxon is replaced by its accepted name (synonym chain);
-//! 2. with a rank, accepted taxa are rolled up the parent chain;
+//! 2. with a rank, accepted taxa are rolled up the parent chain; a taxon
+//!    recorded above the rank is kept as its own column named
+//!    `Name (unidentified)`, or left out with `identified_only`;
 //! 3. events are grouped into rows by unit and their counts and effort summed;
 //! 4. columns are the resulting taxa present (count > 0) in at least
 //!    `min_occurrences` rows (at least one), in byte order of name;
@@ -19,6 +21,7 @@ use std::collections::{BTreeMap, BTreeSet, HashMap};
 
 use nalgebra::DMatrix;
 
+use super::rank::rank_level;
 use super::{CountMatrix, MatrixError, SampleMeta, TaxonMeta, Unit};
 
 /// One selected sampling event, as the store returns it.
@@ -119,6 +122,9 @@ pub struct AssemblyOptions {
     pub rank: Option<String>,
     /// Drop taxa present in fewer rows than this.
     pub min_occurrences: Option<usize>,
+    /// With a rank, leave out the taxa recorded above it (kept as
+    /// `Name (unidentified)` columns otherwise).
+    pub identified_only: bool,
     /// Divide pooled counts by pooled effort.
     pub per_effort: bool,
     /// Keep rows whose every count is zero.
@@ -320,6 +326,8 @@ impl Row {
 ///
 /// # Errors
 /// [`MatrixError::UnknownRank`] when no taxon has the requested rank;
+/// [`MatrixError::RankNotInOrder`] with `identified_only` and a rank outside
+/// the rank order;
 /// [`MatrixError::MixedEffortUnits`] with `per_effort` over several effort
 /// units; [`MatrixError::Empty`] when no event, taxon or non-empty row is
 /// left; [`MatrixError::TaxonCycle`], [`MatrixError::UnknownTaxon`],
@@ -347,12 +355,18 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
                 available: ranks.into_iter().collect(),
             });
         }
+        if opts.identified_only && rank_level(rank).is_none() {
+            return Err(MatrixError::RankNotInOrder { rank: rank.clone() });
+        }
     }
 
     // Steps 1-2: recorded taxon id -> final taxon id, for the taxa that occur.
     let mut final_of: HashMap<i64, i64> = HashMap::new();
     let mut synonyms: BTreeSet<(String, String)> = BTreeSet::new();
     let mut unrolled: BTreeSet<String> = BTreeSet::new();
+    // Accepted taxa with no ancestor at the rank whose own rank is above it
+    // (docs/matrices.md, "How a matrix is assembled").
+    let mut above: BTreeSet<i64> = BTreeSet::new();
     let mut rolled = 0usize;
     for c in &records.counts {
         if final_of.contains_key(&c.taxon_id) {
@@ -378,7 +392,15 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
                     r
                 }
                 None => {
-                    unrolled.insert(tax.name(acc));
+                    let level = tax.get(acc).and_then(|t| rank_level(&t.rank));
+                    match (level, rank_level(rank)) {
+                        (Some(l), Some(r)) if l < r => {
+                            above.insert(acc);
+                        }
+                        _ => {
+                            unrolled.insert(tax.name(acc));
+                        }
+                    }
                     acc
                 }
             },
@@ -484,14 +506,22 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         row_of_event.insert(e.id, idx);
     }
 
-    // Dense accumulation over the final taxa, columns in byte order of name.
+    // Dense accumulation over the final taxa, columns in byte order of the
+    // column name.
+    let column_name = |id: i64| {
+        if above.contains(&id) {
+            format!("{}{}", tax.name(id), TaxonMeta::UNIDENTIFIED)
+        } else {
+            tax.name(id)
+        }
+    };
     let mut final_ids: Vec<i64> = final_of
         .values()
         .copied()
         .collect::<BTreeSet<_>>()
         .into_iter()
         .collect();
-    final_ids.sort_by_key(|a| tax.name(*a));
+    final_ids.sort_by_key(|a| column_name(*a));
     let col_of_final: HashMap<i64, usize> = final_ids
         .iter()
         .enumerate()
@@ -516,11 +546,48 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
                 .count()
         })
         .collect();
-    let keep_cols: Vec<usize> = (0..ncol).filter(|&j| occ[j] >= min_occ).collect();
+    // Columns of taxa recorded above the rank (present in some row).
+    let above_cols: Vec<usize> = (0..ncol)
+        .filter(|&j| occ[j] > 0 && above.contains(&final_ids[j]))
+        .collect();
+    let left_out = |j: &usize| opts.identified_only && above_cols.contains(j);
+    if let (Some(rank), true) = (&opts.rank, opts.identified_only && !above_cols.is_empty()) {
+        notes.push(identified_only_note(
+            rank,
+            &above_cols,
+            &final_ids,
+            &column_name,
+            &dense,
+            rows.len(),
+        ));
+    }
+    let keep_cols: Vec<usize> = (0..ncol)
+        .filter(|j| occ[*j] >= min_occ && !left_out(j))
+        .collect();
+    if let (Some(rank), false) = (&opts.rank, opts.identified_only) {
+        let kept: Vec<String> = keep_cols
+            .iter()
+            .filter(|j| above_cols.contains(j))
+            .map(|&j| column_name(final_ids[j]))
+            .collect();
+        if !kept.is_empty() {
+            notes.push(format!(
+                "{} recorded above rank {rank} kept as {}: {} (--identified-only leaves {} out)",
+                crate::words::count(kept.len(), "taxon", "taxa"),
+                if kept.len() == 1 {
+                    "its own column"
+                } else {
+                    "their own columns"
+                },
+                kept.join(", "),
+                if kept.len() == 1 { "it" } else { "them" }
+            ));
+        }
+    }
     if let Some(n) = opts.min_occurrences {
         let dropped: Vec<String> = (0..ncol)
-            .filter(|&j| occ[j] > 0 && occ[j] < min_occ)
-            .map(|j| tax.name(final_ids[j]))
+            .filter(|j| occ[*j] > 0 && occ[*j] < min_occ && !left_out(j))
+            .map(|j| column_name(final_ids[j]))
             .collect();
         if !dropped.is_empty() {
             notes.push(format!(
@@ -531,6 +598,14 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         }
     }
     if keep_cols.is_empty() {
+        if let (Some(rank), true) = (&opts.rank, (0..ncol).all(|j| occ[j] == 0 || left_out(&j))) {
+            return Err(MatrixError::Empty {
+                why: format!(
+                    "every taxon of the selection is recorded above rank {rank}, and \
+                     --identified-only leaves them out"
+                ),
+            });
+        }
         return Err(MatrixError::Empty {
             why: format!("no taxon is present in at least {min_occ} row(s) of the selection"),
         });
@@ -632,8 +707,9 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
                 .get(final_ids[j])
                 .expect("invariant: final ids come from the taxon list");
             TaxonMeta {
-                name: t.name.clone(),
+                name: column_name(final_ids[j]),
                 rank: t.rank.clone(),
+                unidentified: above.contains(&final_ids[j]).then(|| t.name.clone()),
             }
         })
         .collect();
@@ -643,6 +719,38 @@ pub fn assemble(records: &Records, opts: &AssemblyOptions) -> Result<CountMatrix
         values,
         notes,
     })
+}
+
+/// The note of `--identified-only`: the columns of taxa recorded above `rank`
+/// it leaves out, and what they held (counts as recorded, before any division
+/// by effort, over the rows before empty rows are dropped).
+fn identified_only_note(
+    rank: &str,
+    cols: &[usize],
+    final_ids: &[i64],
+    column_name: &dyn Fn(i64) -> String,
+    dense: &[f64],
+    nrows: usize,
+) -> String {
+    let ncol = final_ids.len();
+    let names: Vec<String> = cols.iter().map(|&j| column_name(final_ids[j])).collect();
+    let cells = || (0..nrows).flat_map(move |i| cols.iter().map(move |&j| dense[i * ncol + j]));
+    let total: f64 = cells().sum();
+    let whole = cells().all(|v| v.fract() == 0.0) && total < 9.0e15;
+    let samples = (0..nrows)
+        .filter(|&i| cols.iter().any(|&j| dense[i * ncol + j] > 0.0))
+        .count();
+    let held = if whole {
+        crate::words::count(total, "individual", "individuals")
+    } else {
+        format!("a total count of {total}")
+    };
+    format!(
+        "--identified-only: left out {} recorded above {rank} ({}): {held} in {}",
+        crate::words::count(names.len(), "taxon", "taxa"),
+        names.join(", "),
+        crate::words::count(samples, "sample", "samples")
+    )
 }
 
 #[cfg(test)]
@@ -740,5 +848,202 @@ mod tests {
             assemble(&r, &AssemblyOptions::default()),
             Err(MatrixError::Empty { .. })
         ));
+    }
+
+    /// Baetidae > Baetis > two species, a family with no lower records, and
+    /// a taxon of unknown rank; counts on the genus and the family are
+    /// unidentified at species rank.
+    fn unidentified_records() -> Records {
+        let ranked = |id, name: &str, rank: &str, parent| TaxonRecord {
+            rank: rank.into(),
+            ..taxon(id, name, parent, None)
+        };
+        let c = |event_id, taxon_id, value| CountRecord {
+            event_id,
+            taxon_id,
+            value,
+        };
+        let mut events: Vec<EventRecord> = (1..=4)
+            .map(|i| ev(i, "S", &format!("2020-05-0{i}")))
+            .collect();
+        events[2].effort = 2.0;
+        Records {
+            events,
+            counts: vec![
+                c(1, 3, 10.0),
+                c(1, 2, 3.0),
+                c(1, 5, 1.0),
+                c(2, 4, 2.0),
+                c(2, 5, 4.0),
+                c(2, 6, 7.0),
+                c(3, 2, 5.0),
+                c(3, 3, 1.0),
+                // Event 4 holds only an unidentified count.
+                c(4, 2, 2.0),
+            ],
+            taxa: vec![
+                ranked(1, "Baetidae", "family", None),
+                ranked(2, "Baetis", "genus", Some(1)),
+                ranked(3, "Baetis rhodani", "species", Some(2)),
+                ranked(4, "Baetis vernus", "species", Some(2)),
+                ranked(5, "Chironomidae", "Family", None),
+                ranked(6, "Oligochaeta", "", None),
+            ],
+            site_attributes: BTreeMap::new(),
+        }
+    }
+
+    fn at_species(identified_only: bool) -> AssemblyOptions {
+        AssemblyOptions {
+            rank: Some("species".into()),
+            identified_only,
+            ..Default::default()
+        }
+    }
+
+    fn names(m: &CountMatrix) -> Vec<&str> {
+        m.taxa.iter().map(|t| t.name.as_str()).collect()
+    }
+
+    #[test]
+    fn taxa_recorded_above_the_rank_are_named_unidentified() {
+        let r = unidentified_records();
+        let m = assemble(&r, &at_species(false)).unwrap();
+        // Byte order of the column name: " (" sorts before " r".
+        assert_eq!(
+            names(&m),
+            [
+                "Baetis (unidentified)",
+                "Baetis rhodani",
+                "Baetis vernus",
+                "Chironomidae (unidentified)",
+                "Oligochaeta",
+            ]
+        );
+        let taxa: Vec<&str> = m.taxa.iter().map(TaxonMeta::taxon_name).collect();
+        assert_eq!(
+            taxa,
+            [
+                "Baetis",
+                "Baetis rhodani",
+                "Baetis vernus",
+                "Chironomidae",
+                "Oligochaeta"
+            ]
+        );
+        let flags: Vec<bool> = m.taxa.iter().map(TaxonMeta::is_unidentified).collect();
+        assert_eq!(flags, [true, false, false, true, false]);
+        // The counts are the recorded ones, column by column.
+        assert_eq!(m.values.column(0).iter().sum::<f64>(), 3.0 + 5.0 + 2.0);
+        assert!(m.notes.iter().any(|n| n.contains(
+            "2 taxa recorded above rank species kept as their own columns: \
+             Baetis (unidentified), Chironomidae (unidentified) (--identified-only leaves them out)"
+        )));
+        // A taxon of unknown rank cannot be told to be above the rank: it
+        // stays under its own name, listed as before.
+        assert!(m.notes.iter().any(|n| n.contains(
+            "1 taxa have no ancestor at rank species and stay as they are: Oligochaeta"
+        )));
+        // At genus rank the genus is the rank itself; only the family is above it.
+        let g = assemble(
+            &r,
+            &AssemblyOptions {
+                rank: Some("Genus".into()),
+                ..Default::default()
+            },
+        )
+        .unwrap();
+        assert_eq!(
+            names(&g),
+            ["Baetis", "Chironomidae (unidentified)", "Oligochaeta"]
+        );
+        // Without a rank nothing is unidentified and names are the taxa's.
+        let plain = assemble(&r, &AssemblyOptions::default()).unwrap();
+        assert!(plain.taxa.iter().all(|t| !t.is_unidentified()));
+        assert!(names(&plain).contains(&"Baetis"));
+    }
+
+    #[test]
+    fn identified_only_leaves_out_the_unidentified_columns_and_says_what_they_held() {
+        let r = unidentified_records();
+        for per_effort in [false, true] {
+            let opts = |identified_only| AssemblyOptions {
+                per_effort,
+                ..at_species(identified_only)
+            };
+            let full = assemble(&r, &opts(false)).unwrap();
+            let raw = assemble(&r, &at_species(false)).unwrap();
+            let m = assemble(&r, &opts(true)).unwrap();
+            // Columns: those of the full matrix that are not unidentified.
+            let expected: Vec<&str> = full
+                .taxa
+                .iter()
+                .filter(|t| !t.is_unidentified())
+                .map(|t| t.name.as_str())
+                .collect();
+            assert_eq!(names(&m), expected);
+            // The note's figures, computed here from the matrix that keeps
+            // them (raw counts: the note counts individuals, not rates).
+            let cols: Vec<usize> = (0..raw.taxa.len())
+                .filter(|&j| raw.taxa[j].is_unidentified())
+                .collect();
+            let individuals: f64 = cols.iter().map(|&j| raw.values.column(j).sum()).sum();
+            let samples = (0..raw.values.nrows())
+                .filter(|&i| cols.iter().any(|&j| raw.values[(i, j)] > 0.0))
+                .count();
+            let listed: Vec<&str> = cols.iter().map(|&j| raw.taxa[j].name.as_str()).collect();
+            let note = format!(
+                "--identified-only: left out {} taxa recorded above species ({}): {} individuals in {} samples",
+                cols.len(),
+                listed.join(", "),
+                individuals,
+                samples
+            );
+            assert!(m.notes.contains(&note), "{note}\n{:?}", m.notes);
+            assert_eq!((cols.len(), individuals, samples), (2, 15.0, 4));
+            // Event 4 held only Baetis: with it left out the row is empty and dropped.
+            assert_eq!(m.samples.len(), 3);
+            assert!(
+                m.notes
+                    .iter()
+                    .any(|n| n.contains("rows with no organisms dropped") && n.contains("e4"))
+            );
+            assert!(!m.notes.iter().any(|n| n.contains("kept as")));
+        }
+    }
+
+    #[test]
+    fn identified_only_refuses_what_it_cannot_tell_or_leaves_nothing() {
+        let mut r = unidentified_records();
+        r.taxa[2].rank = "morphospecies".into();
+        assert!(matches!(
+            assemble(
+                &r,
+                &AssemblyOptions {
+                    rank: Some("morphospecies".into()),
+                    identified_only: true,
+                    ..Default::default()
+                }
+            ),
+            Err(MatrixError::RankNotInOrder { .. })
+        ));
+        // Only unidentified counts: nothing is left, and the error says why.
+        let mut r = unidentified_records();
+        r.counts.retain(|c| c.taxon_id == 2 || c.taxon_id == 5);
+        match assemble(&r, &at_species(true)) {
+            Err(MatrixError::Empty { why }) => assert!(why.contains("above rank species"), "{why}"),
+            other => panic!("{other:?}"),
+        }
+        // Counts that are not whole numbers are not called individuals.
+        let mut r = unidentified_records();
+        r.counts[1].value = 2.5;
+        let m = assemble(&r, &at_species(true)).unwrap();
+        assert!(
+            m.notes
+                .iter()
+                .any(|n| n.contains("a total count of 14.5 in 4 samples")),
+            "{:?}",
+            m.notes
+        );
     }
 }

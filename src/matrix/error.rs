@@ -22,6 +22,16 @@ pub enum MatrixError {
         /// The ranks present in the taxonomy.
         available: Vec<String>,
     },
+    /// `--identified-only` with a rank that is not in the rank order: which
+    /// taxa are above it cannot be told.
+    #[error(
+        "--identified-only: the rank '{rank}' is not in the rank order (docs/taxonomy.md), so \
+         which taxa are recorded above it cannot be told; roll up to a rank of the order"
+    )]
+    RankNotInOrder {
+        /// The rank asked for.
+        rank: String,
+    },
     /// The synonym or parent chain of a taxon loops.
     #[error("the {chain} chain of taxon '{name}' loops (`tally check` names the loop)")]
     TaxonCycle {

@@ -19,6 +19,7 @@ use sha2::{Digest, Sha256};
 
 pub mod assemble;
 pub mod error;
+pub mod rank;
 
 pub use error::MatrixError;
 
@@ -97,10 +98,34 @@ pub struct SampleMeta {
 /// Metadata of a matrix column.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct TaxonMeta {
-    /// Accepted (and, with `--rank`, rolled-up) taxon name.
+    /// The column name: the accepted (and, with `--rank`, rolled-up) taxon
+    /// name, or for a taxon recorded above the roll-up rank its name followed
+    /// by ` (unidentified)` (`Baetis (unidentified)`). Every output, the
+    /// fingerprint included, uses this name.
     pub name: String,
     /// Rank of the taxon.
     pub rank: String,
+    /// For a column of a taxon recorded above the roll-up rank, the taxon's
+    /// own name (`Baetis`); `None` for every other column, whose `name` is the
+    /// taxon's name. Rule in docs/matrices.md, "How a matrix is assembled".
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unidentified: Option<String>,
+}
+
+impl TaxonMeta {
+    /// The suffix of the column name of a taxon recorded above the roll-up rank.
+    pub const UNIDENTIFIED: &'static str = " (unidentified)";
+
+    /// The name of the stored taxon behind the column (`Baetis` for the
+    /// column `Baetis (unidentified)`).
+    pub fn taxon_name(&self) -> &str {
+        self.unidentified.as_deref().unwrap_or(&self.name)
+    }
+
+    /// Whether the column holds a taxon recorded above the roll-up rank.
+    pub fn is_unidentified(&self) -> bool {
+        self.unidentified.is_some()
+    }
 }
 
 /// A samples × taxa count matrix with metadata.
@@ -504,6 +529,7 @@ mod tests {
             .map(|t| TaxonMeta {
                 name: t.clone(),
                 rank: String::new(),
+                unidentified: None,
             })
             .collect();
         let values = DMatrix::from_fn(values.len(), values[0].len(), |i, j| values[i][j]);

@@ -50,6 +50,11 @@ pub struct Selection {
     pub rank: Option<String>,
     /// Drop taxa present in fewer rows than this.
     pub min_occurrences: Option<usize>,
+    /// With `rank`, leave out the taxa recorded above it
+    /// (`--identified-only`). Not written to JSON when off, so selections
+    /// saved and runs stored before the flag read and replay unchanged.
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    pub identified_only: bool,
     /// What one row is (`None`: not given; means `event`).
     pub unit: Option<Unit>,
     /// Divide pooled counts by pooled effort.
@@ -64,8 +69,9 @@ impl Selection {
     /// The rule, field by field: a flag given explicitly replaces the saved
     /// value; a flag not given keeps it. Lists (`sites`, `site_where`) given
     /// explicitly replace the saved list as a whole (they do not extend it).
-    /// The switches `per_effort` and `keep_empty` are on when either side has
-    /// them on (a saved switch cannot be turned off by omission).
+    /// The switches `identified_only`, `per_effort` and `keep_empty` are on
+    /// when either side has them on (a saved switch cannot be turned off by
+    /// omission).
     pub fn merge(saved: &Selection, explicit: &Selection) -> Selection {
         fn pick<T: Clone>(s: &Option<T>, e: &Option<T>) -> Option<T> {
             e.clone().or_else(|| s.clone())
@@ -88,6 +94,7 @@ impl Selection {
             protocol: pick(&saved.protocol, &explicit.protocol),
             rank: pick(&saved.rank, &explicit.rank),
             min_occurrences: pick(&saved.min_occurrences, &explicit.min_occurrences),
+            identified_only: saved.identified_only || explicit.identified_only,
             unit: pick(&saved.unit, &explicit.unit),
             per_effort: saved.per_effort || explicit.per_effort,
             keep_empty: saved.keep_empty || explicit.keep_empty,
@@ -144,6 +151,13 @@ impl Selection {
         if self.rank.as_deref().is_some_and(|r| r.trim().is_empty()) {
             return refuse("--rank: empty rank".into());
         }
+        if self.identified_only && self.rank.is_none() {
+            return refuse(
+                "--identified-only needs --rank RANK: a taxon is unidentified only with respect \
+                 to the rank a matrix is rolled up to"
+                    .into(),
+            );
+        }
         Ok(())
     }
 
@@ -159,6 +173,7 @@ impl Selection {
             months: self.months,
             rank: self.rank.clone(),
             min_occurrences: self.min_occurrences,
+            identified_only: self.identified_only,
             per_effort: self.per_effort,
             keep_empty: self.keep_empty,
         }
@@ -194,6 +209,9 @@ impl Selection {
         }
         if let Some(n) = self.min_occurrences {
             f.push(format!("--min-occurrences {n}"));
+        }
+        if self.identified_only {
+            f.push("--identified-only".into());
         }
         if let Some(u) = self.unit {
             f.push(format!("--unit {}", u.as_str()));
@@ -238,6 +256,9 @@ impl Selection {
         }
         if let Some(n) = self.min_occurrences {
             w.push(format!("taxa in at least {n} rows"));
+        }
+        if self.identified_only {
+            w.push("identified taxa only".into());
         }
         if let Some(u) = self.unit {
             w.push(
@@ -851,7 +872,11 @@ mod tests {
             ..Default::default()
         };
         let m = build(&s, &sel).unwrap();
-        assert_eq!(taxa(&m), ["Baetidae", "Heptageniidae", "Oligochaeta"]);
+        // Oligochaeta is a class, above family: its own column, marked.
+        assert_eq!(
+            taxa(&m),
+            ["Baetidae", "Heptageniidae", "Oligochaeta (unidentified)"]
+        );
         assert_eq!(
             rows(&m),
             vec![
@@ -867,9 +892,9 @@ mod tests {
             ]
         );
         assert!(
-            m.notes
-                .iter()
-                .any(|n| n.contains("no ancestor at rank family") && n.contains("Oligochaeta"))
+            m.notes.iter().any(
+                |n| n.contains("above rank family") && n.contains("Oligochaeta (unidentified)")
+            )
         );
         let bad = Selection {
             rank: Some("species".into()),

@@ -561,6 +561,7 @@ mod tests {
             taxa: vec![TaxonMeta {
                 name: "Baetis".into(),
                 rank: "genus".into(),
+                unidentified: None,
             }],
             values: DMatrix::from_element(rows.len(), 1, 1.0),
             notes: vec![],

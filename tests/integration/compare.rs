@@ -119,6 +119,7 @@ fn synthetic(values: DMatrix<f64>, groups: &[&str]) -> CountMatrix {
         .map(|j| TaxonMeta {
             name: format!("t{j}"),
             rank: "species".into(),
+            unidentified: None,
         })
         .collect();
     CountMatrix {

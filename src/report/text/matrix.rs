@@ -24,11 +24,13 @@ pub struct Counts<'a> {
 
 impl Counts<'_> {
     /// `unit`, `selection`, `samples` (metadata objects), `taxa`, `ranks`,
-    /// `values` (rows, `null` where undefined), `fingerprint`, `notes`.
+    /// `values` (rows, `null` where undefined), `fingerprint`, `notes`, and
+    /// `unidentified` (column name → stored taxon) when some column holds a
+    /// taxon recorded above the roll-up rank.
     pub fn json(&self) -> Value {
         let p = self.prepared;
         let m = &p.matrix;
-        json!({
+        let mut v = json!({
             "unit": p.unit().as_str(),
             "selection": p.selection,
             "samples": m.samples.iter().map(sample_json).collect::<Vec<_>>(),
@@ -39,7 +41,18 @@ impl Counts<'_> {
                 .collect::<Vec<_>>(),
             "fingerprint": m.fingerprint(),
             "notes": m.notes,
-        })
+        });
+        // Columns of taxa recorded above the roll-up rank: column name → the
+        // stored taxon (only when there are any, so other matrices print as before).
+        let unidentified: serde_json::Map<String, Value> = m
+            .taxa
+            .iter()
+            .filter_map(|t| Some((t.name.clone(), Value::from(t.unidentified.clone()?))))
+            .collect();
+        if !unidentified.is_empty() {
+            v["unidentified"] = Value::Object(unidentified);
+        }
+        v
     }
 }
 

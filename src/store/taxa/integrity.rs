@@ -16,42 +16,7 @@
 
 use std::collections::{BTreeMap, BTreeSet};
 
-/// The rank order, highest first; names on one line are the same level
-/// (compared trimmed and case-insensitively). A rank not listed here (or empty)
-/// is *unknown* and takes no part in the rank rule. Common practice of the
-/// zoological and botanical codes, no single source.
-pub const RANKS: &[&[&str]] = &[
-    &["domain"],
-    &["kingdom"],
-    &["subkingdom"],
-    &["phylum", "division"],
-    &["subphylum", "subdivision"],
-    &["superclass"],
-    &["class"],
-    &["subclass"],
-    &["infraclass"],
-    &["superorder"],
-    &["order"],
-    &["suborder"],
-    &["infraorder"],
-    &["superfamily"],
-    &["family"],
-    &["subfamily"],
-    &["tribe"],
-    &["subtribe"],
-    &["genus"],
-    &["subgenus"],
-    &["species"],
-    &["subspecies"],
-    &["variety"],
-    &["form"],
-];
-
-/// The level of a rank in [`RANKS`] (0 = highest), or `None` when unknown.
-pub fn rank_level(rank: &str) -> Option<usize> {
-    let r = rank.trim().to_ascii_lowercase();
-    RANKS.iter().position(|names| names.contains(&r.as_str()))
-}
+pub use crate::matrix::rank::{RANKS, rank_level};
 
 /// One taxon as the rules see it.
 #[derive(Debug, Clone, PartialEq, Eq)]
