@@ -443,6 +443,8 @@ fn the_examples_in_the_data_model_guide_import() {
         "events",
         "counts",
         "records",
+        // "Unidentified and higher-rank records": partial effort.
+        "records",
     ];
     assert_eq!(blocks.len(), kinds.len());
     let env = TestEnv::new();
@@ -452,10 +454,34 @@ fn the_examples_in_the_data_model_guide_import() {
         let (code, _, err) = env.run(["import", kind, path.to_str().unwrap(), "--create-missing"]);
         assert_eq!(code, 0, "{kind} example: {err}");
     }
-    // The records example names three events (codes as the guide says).
+    // The records example names three events (codes as the guide says), the
+    // partial-effort example two more.
     let s: serde_json::Value =
         serde_json::from_str(&env.stdout(["summary", "--format", "json"])).unwrap();
-    assert_eq!(s["events"], 2 + 3);
+    assert_eq!(s["events"], 2 + 3 + 2);
+    // Its figures per effort: 12 / 4 traps and 9 / 2.5 minutes.
+    let per = |protocol: &str| -> serde_json::Value {
+        let m: serde_json::Value = serde_json::from_str(&env.stdout([
+            "matrix",
+            "--protocol",
+            protocol,
+            "--from",
+            "2016-06-02",
+            "--per-effort",
+            "--format",
+            "json",
+        ]))
+        .unwrap();
+        let j = m["taxa"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .position(|t| t == "Baetis rhodani")
+            .unwrap();
+        m["values"][0][j].clone()
+    };
+    assert_eq!(per("emergence"), 3.0);
+    assert_eq!(per("kick"), 3.6);
     let dump = env.dump();
     for code in [
         "S07-2016-04-21-kick-1",

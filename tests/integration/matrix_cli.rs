@@ -201,3 +201,181 @@ fn unknown_names_in_a_selection_are_named_with_what_exists() {
     }
     assert_eq!(before, env.dump());
 }
+
+/// A family > genus > two species, a second family, counts on the species,
+/// on the genus ("Baetis sp.") and on the family.
+fn unidentified_store() -> TestEnv {
+    let env = TestEnv::new();
+    let s = Store::create(&env.db).unwrap();
+    add_protocol(&s, "kick", "minutes").unwrap();
+    add_site(&s, "S1", &[]).unwrap();
+    add_taxon(&s, "Baetidae", "family", None, None).unwrap();
+    add_taxon(&s, "Baetis", "genus", Some("Baetidae"), None).unwrap();
+    add_taxon(&s, "Baetis rhodani", "species", Some("Baetis"), None).unwrap();
+    add_taxon(&s, "Baetis vernus", "species", Some("Baetis"), None).unwrap();
+    add_taxon(&s, "Chironomidae", "family", None, None).unwrap();
+    let event = |code: &str, date: &str, counts: &[(&str, f64)]| {
+        add_event(&s, code, "S1", date, "kick", 2.0).unwrap();
+        for (taxon, n) in counts {
+            add_count(&s, code, taxon, *n).unwrap();
+        }
+    };
+    event(
+        "E1",
+        "2019-04-02",
+        &[("Baetis rhodani", 10.0), ("Baetis", 3.0)],
+    );
+    event(
+        "E2",
+        "2019-05-02",
+        &[("Baetis vernus", 2.0), ("Chironomidae", 4.0)],
+    );
+    event(
+        "E3",
+        "2019-06-02",
+        &[("Baetis rhodani", 1.0), ("Baetis vernus", 6.0)],
+    );
+    event(
+        "E4",
+        "2019-07-02",
+        &[("Baetis rhodani", 5.0), ("Baetis", 7.0)],
+    );
+    s.checkpoint().unwrap();
+    env
+}
+
+#[test]
+fn records_above_the_rank_are_unidentified_columns_and_identified_only_leaves_them_out() {
+    let env = unidentified_store();
+    let (code, out, err) = env.run(["matrix", "--rank", "species", "--format", "json"]);
+    assert_eq!(code, 0, "{err}");
+    let kept: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(
+        kept["taxa"],
+        serde_json::json!([
+            "Baetis (unidentified)",
+            "Baetis rhodani",
+            "Baetis vernus",
+            "Chironomidae (unidentified)"
+        ])
+    );
+    assert_eq!(
+        kept["unidentified"],
+        serde_json::json!({"Baetis (unidentified)": "Baetis", "Chironomidae (unidentified)": "Chironomidae"})
+    );
+    assert!(
+        err.contains("2 taxa recorded above rank species kept as their own columns"),
+        "{err}"
+    );
+    assert!(err.contains("--identified-only leaves them out"), "{err}");
+    // CSV and table use the same names.
+    let csv = env.stdout(["matrix", "--rank", "species", "--format", "csv"]);
+    assert!(
+        csv.lines()
+            .next()
+            .unwrap()
+            .contains("Baetis (unidentified)"),
+        "{csv}"
+    );
+    let table = env.stdout(["matrix", "--rank", "species"]);
+    assert!(table.contains("Chironomidae (unidentified)"), "{table}");
+    // Without --rank nothing is unidentified and the JSON has no such key.
+    let plain = json(&env, &["matrix", "--format", "json"]);
+    assert!(plain.get("unidentified").is_none());
+    assert!(plain["taxa"].as_array().unwrap().contains(&"Baetis".into()));
+
+    // The figures of the note, from the matrix that keeps the columns.
+    let values = kept["values"].as_array().unwrap();
+    let cols: Vec<usize> = kept["taxa"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .enumerate()
+        .filter(|(_, t)| t.as_str().unwrap().ends_with(" (unidentified)"))
+        .map(|(j, _)| j)
+        .collect();
+    let cell = |i: usize, j: usize| values[i][j].as_f64().unwrap();
+    let individuals: f64 = (0..values.len())
+        .flat_map(|i| cols.iter().map(move |&j| (i, j)))
+        .map(|(i, j)| cell(i, j))
+        .sum();
+    let samples = (0..values.len())
+        .filter(|&i| cols.iter().any(|&j| cell(i, j) > 0.0))
+        .count();
+    let (code, out, err) = env.run([
+        "matrix",
+        "--rank",
+        "species",
+        "--identified-only",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let only: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(
+        only["taxa"],
+        serde_json::json!(["Baetis rhodani", "Baetis vernus"])
+    );
+    assert!(only.get("unidentified").is_none());
+    let note = format!(
+        "--identified-only: left out 2 taxa recorded above species (Baetis (unidentified), \
+         Chironomidae (unidentified)): {individuals} individuals in {samples} samples"
+    );
+    assert!(err.contains(&note), "{note}\n{err}");
+    assert_eq!((individuals, samples), (14.0, 3));
+    assert_eq!(only["selection"]["identified_only"], true);
+    // A selection without the flag does not write it (saved and stored
+    // selections from before read the same).
+    assert!(kept["selection"].get("identified_only").is_none());
+
+    // A saved selection keeps it.
+    env.stdout([
+        "selections",
+        "save",
+        "named",
+        "--rank",
+        "species",
+        "--identified-only",
+    ]);
+    let saved = json(
+        &env,
+        &["matrix", "--selection", "named", "--format", "json"],
+    );
+    assert_eq!(saved["taxa"], only["taxa"]);
+    assert_eq!(saved["fingerprint"], only["fingerprint"]);
+
+    // A stored run records it, replays it and prints it back.
+    let (code, out, err) = env.run([
+        "diversity",
+        "--rank",
+        "species",
+        "--identified-only",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let run: serde_json::Value = serde_json::from_str(&out).unwrap();
+    let id = run["run_id"].to_string();
+    let verified = env.stdout(["runs", "verify", id.as_str()]);
+    assert!(
+        verified.contains("identical") || verified.contains("reproduced"),
+        "{verified}"
+    );
+    let shown = json(&env, &["runs", "show", id.as_str(), "--format", "json"]);
+    assert!(
+        shown["command"]
+            .as_str()
+            .unwrap()
+            .contains("--identified-only"),
+        "{shown}"
+    );
+
+    // Refusals: without a rank; in an archive export.
+    let (code, _, err) = env.run(["matrix", "--identified-only"]);
+    assert_eq!(code, 1);
+    assert!(err.contains("--identified-only needs --rank"), "{err}");
+    let zip = env.path("out.zip");
+    let (code, _, err) = env.run(["export", "dwca", zip.to_str().unwrap(), "--identified-only"]);
+    assert_eq!(code, 1);
+    assert!(err.contains("--identified-only"), "{err}");
+}
