@@ -263,31 +263,39 @@ mod tests {
         assert_eq!(fk, 1);
     }
 
+    /// Every row of `tables`, as text, table by table in id order.
+    fn table_rows(c: &Connection, tables: &[&str]) -> Vec<String> {
+        let mut out = Vec::new();
+        for t in tables {
+            let mut stmt = c.prepare(&format!("SELECT * FROM {t} ORDER BY 1")).unwrap();
+            let n = stmt.column_count();
+            let mut q = stmt.query([]).unwrap();
+            while let Some(r) = q.next().unwrap() {
+                let cells: Vec<String> = (0..n)
+                    .map(|i| format!("{:?}", r.get::<_, rusqlite::types::Value>(i).unwrap()))
+                    .collect();
+                out.push(format!("{t}: {}", cells.join("|")));
+            }
+        }
+        out
+    }
+
     #[test]
     fn the_v5_migration_keeps_every_batch_and_reference() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("v4.db");
-        let rows = |c: &Connection| -> Vec<String> {
-            let mut out = Vec::new();
-            for t in [
-                "import_batch",
-                "site",
-                "protocol",
-                "taxon",
-                "event",
-                "count",
-            ] {
-                let mut stmt = c.prepare(&format!("SELECT * FROM {t} ORDER BY 1")).unwrap();
-                let n = stmt.column_count();
-                let mut q = stmt.query([]).unwrap();
-                while let Some(r) = q.next().unwrap() {
-                    let cells: Vec<String> = (0..n)
-                        .map(|i| format!("{:?}", r.get::<_, rusqlite::types::Value>(i).unwrap()))
-                        .collect();
-                    out.push(format!("{t}: {}", cells.join("|")));
-                }
-            }
-            out
+        let rows = |c: &Connection| {
+            table_rows(
+                c,
+                &[
+                    "import_batch",
+                    "site",
+                    "protocol",
+                    "taxon",
+                    "event",
+                    "count",
+                ],
+            )
         };
         let before = {
             let mut c = Connection::open(&path).unwrap();
@@ -359,27 +367,18 @@ mod tests {
                (1, 'E1', 1, '2020-04-01', 1, 3, 2), (2, 'E2', 2, '2020-04-02', 1, 2, 2); \
              INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES \
                (1, 1, 7, 2), (1, 2, 1, 2), (2, 2, 4, 2);";
-        let tables = |c: &Connection| -> Vec<String> {
-            let mut out = Vec::new();
-            for t in [
-                "import_batch",
-                "site",
-                "protocol",
-                "taxon",
-                "event",
-                "count",
-            ] {
-                let mut stmt = c.prepare(&format!("SELECT * FROM {t} ORDER BY 1")).unwrap();
-                let n = stmt.column_count();
-                let mut q = stmt.query([]).unwrap();
-                while let Some(r) = q.next().unwrap() {
-                    let cells: Vec<String> = (0..n)
-                        .map(|i| format!("{:?}", r.get::<_, rusqlite::types::Value>(i).unwrap()))
-                        .collect();
-                    out.push(format!("{t}: {}", cells.join("|")));
-                }
-            }
-            out
+        let tables = |c: &Connection| {
+            table_rows(
+                c,
+                &[
+                    "import_batch",
+                    "site",
+                    "protocol",
+                    "taxon",
+                    "event",
+                    "count",
+                ],
+            )
         };
         let before = {
             let mut c = Connection::open(&path).unwrap();
