@@ -41,7 +41,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         let m = r.removed;
         writeln!(
             out,
-            "removed batch {} ({}): {}, {}, {}, {}, {}, {}{}",
+            "removed batch {} ({}): {}, {}, {}, {}, {}, {}, {}{}",
             r.batch_id,
             r.file,
             crate::words::count(m.sites, "site", "sites"),
@@ -50,6 +50,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             crate::words::count(m.events, "event", "events"),
             crate::words::count(m.counts, "count", "counts"),
             crate::words::count(m.attributes, "attribute value", "attribute values"),
+            crate::words::count(m.codes, "field code", "field codes"),
             if r.restored > 0 {
                 format!(
                     "; {} put back",
@@ -72,6 +73,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                         "imported_at": b.imported_at, "rows": b.rows, "created": b.created,
                         "sites": b.stored.sites, "protocols": b.stored.protocols, "taxa": b.stored.taxa,
                         "events": b.stored.events, "counts": b.stored.counts, "attributes": b.stored.attributes,
+                        "codes": b.stored.codes,
                     })
                 })
                 .collect();
@@ -91,6 +93,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                 "events",
                 "counts",
                 "attributes",
+                "codes",
                 "content_sha256",
                 "created",
             ])?;
@@ -108,6 +111,7 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
                     s.events.to_string(),
                     s.counts.to_string(),
                     s.attributes.to_string(),
+                    s.codes.to_string(),
                     b.content_sha256.clone(),
                     b.created.join("; "),
                 ])?;

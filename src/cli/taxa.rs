@@ -1,4 +1,6 @@
-//! `tally taxa list|tree|rename|merge|move|undo|history`: taxonomy upkeep.
+//! `tally taxa list|tree|code|rename|merge|move|undo|history`: taxonomy upkeep.
+//! Wherever a command names a taxon, a field code stands for it too
+//! (docs/taxonomy.md, "Field codes").
 //! Changes never rewrite counts: a merged name becomes a synonym and is counted
 //! under its accepted name by every query. Each change is checked against the
 //! taxonomy's rules first, recorded with its reason, and can be undone.
@@ -34,6 +36,16 @@ pub enum Action {
     },
     /// The parent hierarchy, indented; synonyms shown beside their accepted names.
     Tree,
+    /// Give a taxon a field code (2-6 letters or digits), or remove one with --remove.
+    Code {
+        /// The taxon (a name, or one of its codes).
+        taxon: String,
+        /// The code (any case; stored upper case).
+        code: String,
+        /// Remove the code instead of adding it.
+        #[arg(long)]
+        remove: bool,
+    },
     /// Give a taxon a new name (its counts follow).
     Rename {
         /// The current name.
@@ -224,6 +236,7 @@ fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyh
                 "rank",
                 "parent",
                 "accepted",
+                "codes",
                 "count_rows",
                 "first_year",
                 "last_year",
@@ -234,6 +247,7 @@ fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyh
                     t.rank.clone(),
                     t.parent.clone().unwrap_or_default(),
                     t.accepted.clone().unwrap_or_default(),
+                    t.codes.join(" "),
                     t.count_rows.to_string(),
                     t.first_year.map(|y| y.to_string()).unwrap_or_default(),
                     t.last_year.map(|y| y.to_string()).unwrap_or_default(),
@@ -247,6 +261,7 @@ fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyh
                 "rank",
                 "parent",
                 "counted as",
+                "codes",
                 "count rows",
                 "recorded",
             ]);
@@ -256,6 +271,7 @@ fn write_list(out: &mut dyn Write, taxa: &[TaxonRow], format: FormatArg) -> anyh
                     t.rank.clone(),
                     t.parent.clone().unwrap_or_default(),
                     t.accepted.clone().unwrap_or_else(|| "itself".into()),
+                    t.codes.join(" "),
                     t.count_rows.to_string(),
                     years(t),
                 ]);
@@ -278,16 +294,38 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
             return Ok(());
         }
         Action::History { format } => return write_history(out, &store.taxon_changes()?, format),
+        Action::Code {
+            taxon,
+            code,
+            remove,
+        } => {
+            let msg = if remove {
+                let c = store.remove_taxon_code(&taxon, &code)?;
+                format!("removed the field code {} of '{}'", c.code, c.taxon)
+            } else {
+                let c = store.add_taxon_code(&taxon, &code)?;
+                format!(
+                    "'{}' has the field code {}; imports and `tally taxa` commands accept it for the name",
+                    c.taxon, c.code
+                )
+            };
+            store.checkpoint()?;
+            note(&msg);
+            return Ok(());
+        }
         Action::Rename { from, to, reason } => {
             let c = store.rename_taxon(&from, &to, &reason)?;
-            let msg = format!("renamed taxon '{from}' to '{}'; its counts follow", c.to);
+            let msg = format!(
+                "renamed taxon '{}' to '{}'; its counts follow",
+                c.from, c.to
+            );
             (c, msg)
         }
         Action::Merge { from, into, reason } => {
             let c = store.merge_taxon(&from, &into, &reason)?;
             let msg = format!(
-                "'{from}' is now counted as '{}' in every matrix; no count was rewritten",
-                c.to
+                "'{}' is now counted as '{}' in every matrix; no count was rewritten",
+                c.from, c.to
             );
             (c, msg)
         }
@@ -299,8 +337,8 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         } => {
             let c = store.move_taxon(&taxon, parent.as_deref(), &reason)?;
             let msg = match parent {
-                Some(_) => format!("'{taxon}' now sits under '{}'", c.to),
-                None => format!("'{taxon}' now has no parent"),
+                Some(_) => format!("'{}' now sits under '{}'", c.from, c.to),
+                None => format!("'{}' now has no parent", c.from),
             };
             (c, msg)
         }

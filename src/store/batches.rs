@@ -49,6 +49,8 @@ pub struct BatchRows {
     pub counts: i64,
     /// Site attribute values (of an attributes file).
     pub attributes: i64,
+    /// Field codes of taxa (of a taxa file).
+    pub codes: i64,
 }
 
 /// What undoing a batch removed.
@@ -69,7 +71,8 @@ const ROWS_SQL: &str = "SELECT (SELECT COUNT(*) FROM site WHERE import_batch_id 
      (SELECT COUNT(*) FROM taxon WHERE import_batch_id = ?1), \
      (SELECT COUNT(*) FROM event WHERE import_batch_id = ?1), \
      (SELECT COUNT(*) FROM count WHERE import_batch_id = ?1), \
-     (SELECT COUNT(*) FROM site_attribute WHERE import_batch_id = ?1)";
+     (SELECT COUNT(*) FROM site_attribute WHERE import_batch_id = ?1), \
+     (SELECT COUNT(*) FROM taxon_code WHERE import_batch_id = ?1)";
 
 fn batch_rows(conn: &rusqlite::Connection, id: i64) -> Result<BatchRows> {
     Ok(conn.query_row(ROWS_SQL, [id], |r| {
@@ -80,6 +83,7 @@ fn batch_rows(conn: &rusqlite::Connection, id: i64) -> Result<BatchRows> {
             events: r.get(3)?,
             counts: r.get(4)?,
             attributes: r.get(5)?,
+            codes: r.get(6)?,
         })
     })?)
 }
@@ -91,7 +95,7 @@ fn notes(json: &str) -> BatchNotes {
 }
 
 /// Dependency queries: (SQL giving (dependent batch id, number of rows), how to say it).
-const DEPENDENTS: [(&str, &str); 8] = [
+const DEPENDENTS: [(&str, &str); 9] = [
     (
         "SELECT c.import_batch_id, COUNT(*) FROM count c JOIN event e ON e.id = c.event_id \
          WHERE e.import_batch_id = ?1 AND c.import_batch_id IS NOT ?1 GROUP BY 1 ORDER BY 1",
@@ -133,7 +137,18 @@ const DEPENDENTS: [(&str, &str); 8] = [
          GROUP BY 1 ORDER BY 1",
         "attribute values at sites of this batch",
     ),
+    (
+        "SELECT c.import_batch_id, COUNT(*) FROM taxon_code c JOIN taxon t ON t.id = c.taxon_id \
+         WHERE t.import_batch_id = ?1 AND c.import_batch_id IS NOT NULL AND c.import_batch_id IS NOT ?1 \
+         GROUP BY 1 ORDER BY 1",
+        "field codes of taxa of this batch",
+    ),
 ];
+
+/// Field codes added with `tally taxa code` to taxa that batch `?1` brought:
+/// undoing the batch would drop them silently.
+const CODED: &str = "SELECT c.code, t.name FROM taxon_code c JOIN taxon t ON t.id = c.taxon_id \
+     WHERE t.import_batch_id = ?1 AND c.import_batch_id IS NULL ORDER BY c.code";
 
 /// Corrections (`tally sites set`, not undone) of attribute values that batch
 /// `?1` brought: undoing the batch would drop them silently.
@@ -236,6 +251,7 @@ impl Store {
             "DELETE FROM site_attribute WHERE import_batch_id = ?1",
             [id],
         )?;
+        tx.execute("DELETE FROM taxon_code WHERE import_batch_id = ?1", [id])?;
         tx.execute(
             "UPDATE taxon SET parent_id = NULL, accepted_id = NULL WHERE import_batch_id = ?1",
             [id],
@@ -286,6 +302,18 @@ fn dependents(conn: &rusqlite::Connection, id: i64) -> Result<Vec<String>> {
         reasons.push(format!(
             "site corrections {} changed values of this batch (undo them with `tally sites undo`)",
             corrected.join(", ")
+        ));
+    }
+    let coded: Vec<(String, String)> = conn
+        .prepare(CODED)?
+        .query_map([id], |r| Ok((r.get(0)?, r.get(1)?)))?
+        .collect::<rusqlite::Result<_>>()?;
+    if !coded.is_empty() {
+        let list: Vec<String> = coded.iter().map(|(c, t)| format!("{c} ({t})")).collect();
+        reasons.push(format!(
+            "field code(s) {} were added with `tally taxa code` to taxa of this batch \
+             (remove them with `tally taxa code TAXON CODE --remove`)",
+            list.join(", ")
         ));
     }
     Ok(reasons)

@@ -520,6 +520,12 @@ fn write_archive(
             stored_rank.insert(r.get(0)?, (r.get(1)?, r.get(2)?));
         }
     }
+    let codes: HashMap<String, String> = {
+        let mut stmt = tx
+            .prepare("SELECT c.code, t.name FROM taxon_code c JOIN taxon t ON t.id = c.taxon_id")?;
+        stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?
+    };
     let mut new_taxa: Vec<&ArchiveTaxon> = Vec::new();
     let counted: HashSet<usize> = data.counts.iter().map(|c| c.taxon).collect();
     // The taxa the counts need: the counted ones and their classification
@@ -560,7 +566,13 @@ fn write_archive(
             }
             continue;
         }
-        if create_missing {
+        if let Ok(code) = crate::store::taxa::codes::parse_code(&t.name)
+            && let Some(owner) = codes.get(&code)
+        {
+            // A new name must not read like a field code (docs/taxonomy.md, "Field codes").
+            let message = crate::store::taxa::codes::name_is_code(&t.name, &code, owner);
+            issues.push_in(&t.at.0, t.at.1, "scientificName", message);
+        } else if create_missing {
             new_taxa.push(t);
             created.push(format!("taxon {}", t.name));
         } else if counted.contains(&k) {
@@ -581,6 +593,7 @@ fn write_archive(
                 rank: t.rank.clone(),
                 parent: t.parent.clone(),
                 accepted: None,
+                code: None,
             })
             .collect();
         let mut found = Issues::default();

@@ -120,6 +120,7 @@ impl ImportKind {
         match self {
             ImportKind::Events => &["time", "replicate", "notes"],
             ImportKind::Records => &["replicate", "time"],
+            ImportKind::Taxa => &["code"],
             _ => &[],
         }
     }
@@ -175,13 +176,19 @@ pub struct ImportReport {
     pub replaced: usize,
     /// Rows identical to what is already stored, left as they were.
     pub unchanged: usize,
+    /// Field codes written (taxa files; docs/taxonomy.md, "Field codes").
+    pub codes: usize,
 }
 
 impl ImportReport {
     /// True when the import would write nothing but its batch row: no row of
     /// the file's kind, no count, nothing created or overwritten.
     pub fn adds_nothing(&self) -> bool {
-        self.written == 0 && self.counts == 0 && self.created.is_empty() && self.replaced == 0
+        self.written == 0
+            && self.counts == 0
+            && self.codes == 0
+            && self.created.is_empty()
+            && self.replaced == 0
     }
 
     /// The batch of a report made by `BatchMeta::insert`, for the writes that follow it.
@@ -427,6 +434,7 @@ impl BatchMeta {
             counts: 0,
             counts_on_stored_events: 0,
             unchanged: 0,
+            codes: 0,
         })
     }
 }

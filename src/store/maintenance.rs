@@ -349,12 +349,13 @@ impl Store {
 }
 
 /// Tables whose rows carry an `import_batch_id`, with their row nouns.
-const BATCH_TABLES: [(&str, &str, &str); 5] = [
+const BATCH_TABLES: [(&str, &str, &str); 6] = [
     ("site", "site", "sites"),
     ("protocol", "protocol", "protocols"),
     ("taxon", "taxon", "taxa"),
     ("event", "event", "events"),
     ("count", "count", "counts"),
+    ("taxon_code", "field code", "field codes"),
 ];
 
 /// Record that check `what` could not run because of `e`; a damaged file is
@@ -698,6 +699,8 @@ mod tests {
         assert_eq!(made_by("table", "taxon_change").as_deref(), Some("4"));
         assert_eq!(made_by("table", "import_batch").as_deref(), Some("6"));
         assert_eq!(made_by("table", "site_change").as_deref(), Some("6"));
+        assert_eq!(made_by("table", "taxon_code").as_deref(), Some("7"));
+        assert_eq!(made_by("index", "taxon_code_batch").as_deref(), Some("7"));
         assert_eq!(made_by("table", "nothing"), None);
     }
 

@@ -10,6 +10,7 @@
 //! and one `taxon_change_effect` row per taxon it touched (values before and
 //! after), so that `undo` can put them back.
 
+pub mod codes;
 pub mod integrity;
 
 use rusqlite::{Connection, OptionalExtension, TransactionBehavior, params};
@@ -29,6 +30,8 @@ pub struct TaxonRow {
     pub parent: Option<String>,
     /// Accepted name, when this name is a synonym.
     pub accepted: Option<String>,
+    /// Field codes (upper case, sorted; docs/taxonomy.md, "Field codes").
+    pub codes: Vec<String>,
     /// Count rows recorded under this name.
     pub count_rows: i64,
     /// First year in which it was recorded.
@@ -242,13 +245,15 @@ impl Store {
     /// # Errors
     /// SQLite errors.
     pub fn taxa(&self) -> Result<Vec<TaxonRow>> {
+        let mut codes = codes::codes_by_taxon(self.conn())?;
         let mut stmt = self.conn().prepare(
             "SELECT t.name, t.rank, p.name, a.name, \
                     (SELECT COUNT(*) FROM count c WHERE c.taxon_id = t.id), \
                     (SELECT MIN(CAST(substr(e.date, 1, 4) AS INTEGER)) FROM count c \
                        JOIN event e ON e.id = c.event_id WHERE c.taxon_id = t.id), \
                     (SELECT MAX(CAST(substr(e.date, 1, 4) AS INTEGER)) FROM count c \
-                       JOIN event e ON e.id = c.event_id WHERE c.taxon_id = t.id) \
+                       JOIN event e ON e.id = c.event_id WHERE c.taxon_id = t.id), \
+                    t.id \
              FROM taxon t LEFT JOIN taxon p ON p.id = t.parent_id \
                           LEFT JOIN taxon a ON a.id = t.accepted_id \
              ORDER BY t.name",
@@ -260,6 +265,7 @@ impl Store {
                     rank: r.get(1)?,
                     parent: r.get(2)?,
                     accepted: r.get(3)?,
+                    codes: codes.remove(&r.get::<_, i64>(7)?).unwrap_or_default(),
                     count_rows: r.get(4)?,
                     first_year: r.get(5)?,
                     last_year: r.get(6)?,
@@ -277,25 +283,14 @@ impl Store {
         load_taxonomy(self.conn())
     }
 
-    fn taxon_id(&self, name: &str) -> Result<i64> {
-        self.conn()
-            .query_row("SELECT id FROM taxon WHERE name = ?1", params![name], |r| {
-                r.get(0)
-            })
-            .optional()?
-            .ok_or_else(|| StoreError::NotFound {
-                what: "taxon",
-                name: name.to_string(),
-            })
-    }
-
     /// Rename a taxon; its counts, children and synonyms follow.
     ///
     /// # Errors
     /// [`StoreError::NotFound`] for an unknown name; [`StoreError::Refused`]
     /// when the new name is empty or taken, or the reason is empty.
     pub fn rename_taxon(&mut self, from: &str, to: &str, reason: &str) -> Result<TaxonChange> {
-        let id = self.taxon_id(from)?;
+        let (id, from) = self.resolve_taxon(from)?;
+        let from = from.as_str();
         let to = to.trim();
         if to.is_empty() {
             return Err(StoreError::Refused("the new name is empty".into()));
@@ -305,7 +300,14 @@ impl Store {
                 "'{from}' has that name already; nothing to rename"
             )));
         }
-        if self.taxon_id(to).is_ok() {
+        if self
+            .conn()
+            .query_row("SELECT 1 FROM taxon WHERE name = ?1", params![to], |_| {
+                Ok(())
+            })
+            .optional()?
+            .is_some()
+        {
             return Err(StoreError::Refused(format!(
                 "a taxon named '{to}' exists already; use `tally taxa merge {from} {to}` to count one under the other"
             )));
@@ -341,8 +343,9 @@ impl Store {
     /// into its own descendant), or when the reason is empty.
     pub fn merge_taxon(&mut self, from: &str, into: &str, reason: &str) -> Result<TaxonChange> {
         require_reason(reason)?;
-        let from_id = self.taxon_id(from)?;
-        let into_id = self.taxon_id(into)?;
+        let (from_id, from) = self.resolve_taxon(from)?;
+        let (into_id, into) = self.resolve_taxon(into)?;
+        let (from, into) = (from.as_str(), into.as_str());
         let tax = self.taxonomy()?;
         let target_id = tax.accepted(into_id).unwrap_or(into_id);
         if target_id == from_id {
@@ -407,7 +410,8 @@ impl Store {
         reason: &str,
     ) -> Result<TaxonChange> {
         require_reason(reason)?;
-        let id = self.taxon_id(name)?;
+        let (id, name) = self.resolve_taxon(name)?;
+        let name = name.as_str();
         let tax = self.taxonomy()?;
         if let Some(a) = tax.get(id).and_then(|n| n.accepted) {
             let a = tax.get(a).map(|n| n.name.clone()).unwrap_or_default();
@@ -415,13 +419,15 @@ impl Store {
                 "'{name}' is a synonym of '{a}'; roll-up does not use a synonym's parent (move '{a}' instead)"
             )));
         }
-        let new_parent = match parent {
-            Some(p) => {
-                let pid = self.taxon_id(p)?;
-                Some(tax.accepted(pid).unwrap_or(pid))
-            }
+        // The parent as named (a code stands for its taxon's name).
+        let parent = match parent {
+            Some(p) => Some(self.resolve_taxon(p)?),
             None => None,
         };
+        let new_parent = parent
+            .as_ref()
+            .map(|(pid, _)| tax.accepted(*pid).unwrap_or(*pid));
+        let parent = parent.as_ref().map(|(_, n)| n.as_str());
         let parent_name = new_parent
             .and_then(|p| tax.get(p))
             .map(|n| n.name.clone())
@@ -600,6 +606,13 @@ impl Store {
                 return Err(StoreError::Refused(format!(
                     "{} would make two taxa named '{}'; nothing was changed",
                     rec.action, e.after.name
+                )));
+            }
+            if let Some((code, taxon)) = codes::code_named(&tx, &e.after.name)? {
+                return Err(StoreError::Refused(format!(
+                    "{}: {}; nothing was changed",
+                    rec.action,
+                    codes::name_is_code(&e.after.name, &code, &taxon)
                 )));
             }
         }

@@ -289,7 +289,7 @@ pub(crate) fn import_records(
     let mut taxa = Ids::load(tx, Table::Taxon)?;
     let site_of = resolve_sites(&rec.sites, &mut sites, opts, "site", issues, &mut created);
     let protocol_of = resolve_protocols(&rec.protocols, &protocols, issues);
-    let taxon_of = resolve_taxa(&rec.taxa, &mut taxa, opts, issues, &mut created);
+    let taxon_of = resolve_taxa(tx, &rec.taxa, &mut taxa, opts, issues, &mut created)?;
 
     // Events: reuse a stored one with the same key, or number a new one.
     let mut next_event: i64 =

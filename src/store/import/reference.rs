@@ -15,6 +15,7 @@ use super::{
 };
 use crate::store::Result;
 use crate::store::sheet::Issues;
+use crate::store::taxa::codes::{name_is_code, parse_code};
 use crate::store::taxa::integrity::{Node, ProblemKind, Taxonomy};
 use crate::store::taxa::load_taxonomy;
 
@@ -302,6 +303,8 @@ pub(crate) struct TaxonRow {
     pub rank: String,
     pub parent: Option<String>,
     pub accepted: Option<String>,
+    /// A field code (upper case), if the row gives one.
+    pub code: Option<String>,
 }
 
 /// Parse a taxa file (pure): forms only; names are checked against the store later.
@@ -312,19 +315,31 @@ pub(crate) fn parse_taxa(
 ) -> Vec<TaxonRow> {
     let mut out = Vec::new();
     let mut seen = Unique::default();
+    let mut seen_codes = Unique::default();
     parse_rows(
         bytes,
         delimiter,
         ImportKind::Taxa,
         issues,
-        |c| ["name", "rank", "parent", "accepted"].map(|n| c.col(n)),
-        |&[c_name, c_rank, c_parent, c_accepted], row| {
+        |c| ["name", "rank", "parent", "accepted", "code"].map(|n| c.col(n)),
+        |&[c_name, c_rank, c_parent, c_accepted, c_code], row| {
             let Some(name) = row.required(c_name, "empty; every taxon needs a name") else {
                 return;
             };
             if !seen.once(row, "name", "taxon", name) {
                 return;
             }
+            let code = match row.get(c_code) {
+                "" => None,
+                text => match parse_code(text) {
+                    Ok(code) if seen_codes.once(row, "code", "field code", &code) => Some(code),
+                    Ok(_) => return,
+                    Err(why) => {
+                        row.issue("code", why);
+                        return;
+                    }
+                },
+            };
             let opt = |c| Some(row.get(c).to_string()).filter(|s| !s.is_empty());
             let (parent, accepted) = (opt(c_parent), opt(c_accepted));
             if parent.as_deref() == Some(name) {
@@ -350,6 +365,7 @@ pub(crate) fn parse_taxa(
                 rank: row.get(c_rank).to_string(),
                 parent,
                 accepted,
+                code,
             });
         },
     );
@@ -393,8 +409,19 @@ pub(crate) fn import_taxa(
             );
         }
     }
-    // Rows already stored identically are dropped; conflicting ones are errors.
+    // Stored codes: code -> (taxon name, batch).
+    let stored_codes: HashMap<String, (String, Option<i64>)> = {
+        let mut stmt = tx.prepare(
+            "SELECT c.code, t.name, c.import_batch_id FROM taxon_code c \
+             JOIN taxon t ON t.id = c.taxon_id",
+        )?;
+        stmt.query_map([], |r| Ok((r.get(0)?, (r.get(1)?, r.get(2)?))))?
+            .collect::<rusqlite::Result<_>>()?
+    };
+    // Rows already stored identically are dropped (a row giving a new code of
+    // a stored taxon adds only the code); conflicting ones are errors.
     let mut fresh: Vec<TaxonRow> = Vec::new();
+    let mut code_only: Vec<TaxonRow> = Vec::new();
     let mut unchanged = 0;
     for row in rows {
         match stored.get(&row.name) {
@@ -402,7 +429,12 @@ pub(crate) fn import_taxa(
             Some(s)
                 if s.rank == row.rank && s.parent == row.parent && s.accepted == row.accepted =>
             {
-                unchanged += 1
+                match &row.code {
+                    Some(c) if stored_codes.get(c).is_none_or(|(t, _)| *t != row.name) => {
+                        code_only.push(row)
+                    }
+                    _ => unchanged += 1,
+                }
             }
             Some(s) => issues.push(
                 row.line,
@@ -420,6 +452,19 @@ pub(crate) fn import_taxa(
         for (col, target) in [("parent", &row.parent), ("accepted", &row.accepted)] {
             let Some(t) = target else { continue };
             if known(t) || created_set.contains(t) {
+                continue;
+            }
+            if let Some((owner, _)) = parse_code(t).ok().and_then(|c| stored_codes.get(&c)) {
+                issues.push(
+                    row.line,
+                    col,
+                    format!(
+                        "'{}' is a field code of '{}'; this column takes names (write '{}')",
+                        shorten(t),
+                        shorten(owner),
+                        shorten(owner)
+                    ),
+                );
                 continue;
             }
             if opts.create_missing {
@@ -498,6 +543,7 @@ pub(crate) fn import_taxa(
             cur = parent_of(&p);
         }
     }
+    code_issues(&fresh, &code_only, &stored, &stored_codes, issues);
     // The rules `tally check` applies (loops through synonyms, rank order),
     // tried on the stored taxonomy with this file's rows added.
     if issues.is_empty() {
@@ -531,9 +577,69 @@ pub(crate) fn import_taxa(
             ])?;
         }
     }
+    let mut code =
+        tx.prepare("INSERT INTO taxon_code(code, taxon_id, import_batch_id) VALUES (?1, ?2, ?3)")?;
+    for row in fresh.iter().chain(&code_only) {
+        if let Some(c) = &row.code {
+            code.execute(params![c, id(&row.name), report.batch_id])?;
+            report.codes += 1;
+        }
+    }
     report.written = fresh.len() + created_names.len();
     report.unchanged = unchanged;
     Ok(Some(report))
+}
+
+/// The field-code problems of a taxa file (docs/taxonomy.md, "Field codes"):
+/// a code that is another taxon's code already, a code that reads like a
+/// taxon name (stored or in the file), and a new name that reads like a
+/// stored code.
+fn code_issues(
+    fresh: &[TaxonRow],
+    code_only: &[TaxonRow],
+    stored: &HashMap<String, StoredTaxon>,
+    stored_codes: &HashMap<String, (String, Option<i64>)>,
+    issues: &mut Issues,
+) {
+    let mut names: HashMap<String, &str> = stored
+        .keys()
+        .map(|n| (n.to_ascii_uppercase(), n.as_str()))
+        .collect();
+    for row in fresh {
+        names.insert(row.name.to_ascii_uppercase(), &row.name);
+        if let Ok(c) = parse_code(&row.name)
+            && let Some((owner, _)) = stored_codes.get(&c)
+        {
+            issues.push(row.line, "name", name_is_code(&row.name, &c, owner));
+        }
+    }
+    for row in fresh.iter().chain(code_only) {
+        let Some(code) = &row.code else { continue };
+        if let Some((owner, batch)) = stored_codes.get(code)
+            && *owner != row.name
+        {
+            let from = batch.map_or(String::new(), |b| format!(" (batch {b})"));
+            issues.push(
+                row.line,
+                "code",
+                format!(
+                    "{code} is the code of '{}' already{from}; a code stands for one taxon \
+                     (use another code, or remove it there first with `tally taxa code`)",
+                    shorten(owner)
+                ),
+            );
+        } else if let Some(name) = names.get(code) {
+            issues.push(
+                row.line,
+                "code",
+                format!(
+                    "{code} reads like the taxon name '{}'; a code must not equal a name \
+                     (choose another code)",
+                    shorten(name)
+                ),
+            );
+        }
+    }
 }
 
 /// The problems the new rows would add to the stored taxonomy, each reported at

@@ -16,6 +16,7 @@ use super::{
 };
 use crate::store::Result;
 use crate::store::sheet::Issues;
+use crate::store::taxa::codes::{load_codes, resolve_with};
 
 /// The message for a protocol the store does not know.
 fn unknown_protocol(code: &str, more: &str) -> String {
@@ -71,17 +72,22 @@ pub(super) fn resolve_sites(
         .collect()
 }
 
+/// Resolve interned taxon names, or field codes (the one rule,
+/// `taxa::codes::resolve_with`: a name first, then a code); unknown ones are
+/// created on request or reported once.
 pub(super) fn resolve_taxa(
+    tx: &Transaction<'_>,
     names: &Interner,
     ids: &mut Ids,
     opts: &ImportOptions,
     issues: &mut Issues,
     created: &mut Vec<String>,
-) -> Vec<Option<i64>> {
-    (0..names.names.len() as u32)
+) -> Result<Vec<Option<i64>>> {
+    let codes = load_codes(tx)?;
+    Ok((0..names.names.len() as u32)
         .map(|i| {
             let name = &names.names[i as usize];
-            match ids.get(name) {
+            match resolve_with(name, |n| ids.get(n), |c| codes.get(c).copied()) {
                 Some(id) => Some(id),
                 None if opts.create_missing => {
                     created.push(format!("taxon {name}"));
@@ -97,7 +103,7 @@ pub(super) fn resolve_taxa(
                 }
             }
         })
-        .collect()
+        .collect())
 }
 
 pub(super) fn resolve_protocols(
@@ -663,7 +669,7 @@ pub(crate) fn import_counts(
     );
     let mut created = Vec::new();
     let mut taxon_ids = Ids::load(tx, Table::Taxon)?;
-    let taxon_of = resolve_taxa(&taxa, &mut taxon_ids, opts, issues, &mut created);
+    let taxon_of = resolve_taxa(tx, &taxa, &mut taxon_ids, opts, issues, &mut created)?;
     let mut event_of = Vec::with_capacity(events.names.len());
     {
         let mut find = tx.prepare("SELECT id FROM event WHERE code = ?1")?;

@@ -954,3 +954,156 @@ fn cumulative_events_and_counts_files_skip_identical_rows_and_name_the_contradic
     assert_eq!(r.batch_id, None);
     assert_eq!(s.content_dump().unwrap(), before);
 }
+
+/// docs/taxonomy.md, "Field codes": codes in a taxa file, and records using them.
+const CODED_TAXA: &str = "name,rank,parent,accepted,code\n\
+                          Baetidae,family,,,\nBaetis,genus,Baetidae,,bae\nOld,genus,Baetidae,Baetis,OL\n";
+
+#[test]
+fn taxa_files_bring_codes_that_records_and_counts_accept_for_names() {
+    let mut s = store();
+    let o = ImportOptions::default();
+    // The stored taxa again, two of them with codes: only the codes are new.
+    let r = import_bytes(
+        &mut s,
+        ImportKind::Taxa,
+        "codes.csv",
+        CODED_TAXA.as_bytes(),
+        &o,
+    )
+    .unwrap();
+    assert_eq!((r.written, r.codes, r.unchanged), (0, 2, 1));
+    let by_name = "site,date,protocol,effort,taxon,count\n\
+                   A,2016-04-21,kick,3,Baetis,12\nA,2016-04-21,kick,3,Old,1\n";
+    let by_code = "site,date,protocol,effort,taxon,count\n\
+                   A,2016-04-21,kick,3,BAE,12\nA,2016-04-21,kick,3,ol,1\n";
+    let mut named = s.content_dump().unwrap();
+    let b = import_bytes(&mut s, ImportKind::Records, "r.csv", by_name.as_bytes(), &o).unwrap();
+    named.push_str(
+        &stored_counts(&s)
+            .iter()
+            .map(|c| format!("{c:?}\n"))
+            .collect::<String>(),
+    );
+    s.undo_batch(b.batch()).unwrap();
+    let mut coded = s.content_dump().unwrap();
+    import_bytes(&mut s, ImportKind::Records, "r.csv", by_code.as_bytes(), &o).unwrap();
+    coded.push_str(
+        &stored_counts(&s)
+            .iter()
+            .map(|c| format!("{c:?}\n"))
+            .collect::<String>(),
+    );
+    assert_eq!(coded, named);
+    // A counts file too; a code that matches nothing is an unknown taxon.
+    let counts = "event,taxon,count\nA-2016-04-21-kick-1,bae,12\nA-2016-04-21-kick-1,BAEX,1\n";
+    let (issues, _) = invalid(import_bytes(
+        &mut s,
+        ImportKind::Counts,
+        "c.csv",
+        counts.as_bytes(),
+        &o,
+    ));
+    assert_eq!(issues.len(), 2, "{issues:?}");
+    assert!(issues[0].2.contains("already stored"), "{issues:?}");
+    assert_eq!((issues[1].0, issues[1].1.as_str()), (3, "taxon"));
+    assert!(
+        issues[1].2.starts_with("taxon 'BAEX' is not in the store"),
+        "{issues:?}"
+    );
+}
+
+#[test]
+fn taxa_files_refuse_bad_duplicate_and_ambiguous_codes_with_line_and_column() {
+    let mut s = store();
+    let o = ImportOptions::default();
+    import_bytes(
+        &mut s,
+        ImportKind::Taxa,
+        "codes.csv",
+        CODED_TAXA.as_bytes(),
+        &o,
+    )
+    .unwrap();
+    let before = s.content_dump().unwrap();
+    let text = "name,rank,parent,accepted,code\n\
+                A,,,,TOOLONG\nB,,,,B.R\nC,,,,cc\nD,,,,CC\nE,,,,BAE\nF,,,,BAETIS\nbae,,,,\nG,,OL,,\n";
+    let (issues, total) = invalid(import_bytes(
+        &mut s,
+        ImportKind::Taxa,
+        "bad.csv",
+        text.as_bytes(),
+        &o,
+    ));
+    let at: Vec<(u64, &str)> = issues.iter().map(|i| (i.0, i.1.as_str())).collect();
+    assert_eq!(
+        at,
+        [
+            (2, "code"),
+            (3, "code"),
+            (5, "code"),
+            (6, "code"),
+            (7, "code"),
+            (8, "name"),
+            (9, "parent"),
+        ],
+        "{issues:?}"
+    );
+    assert_eq!(total, 7);
+    assert!(issues[0].2.contains("7 character(s) long"), "{issues:?}");
+    assert!(issues[1].2.contains("holds '.'"), "{issues:?}");
+    assert!(
+        issues[2]
+            .2
+            .contains("field code 'CC' is listed twice (first on line 4)"),
+        "{issues:?}"
+    );
+    assert!(
+        issues[3]
+            .2
+            .contains("BAE is the code of 'Baetis' already (batch 4)"),
+        "{issues:?}"
+    );
+    assert!(
+        issues[4]
+            .2
+            .contains("BAETIS reads like the taxon name 'Baetis'"),
+        "{issues:?}"
+    );
+    assert!(
+        issues[5]
+            .2
+            .contains("'bae' is the field code BAE of 'Baetis'"),
+        "{issues:?}"
+    );
+    assert!(
+        issues[6]
+            .2
+            .contains("'OL' is a field code of 'Old'; this column takes names (write 'Old')"),
+        "{issues:?}"
+    );
+    assert_eq!(s.content_dump().unwrap(), before);
+}
+
+#[test]
+fn undoing_a_taxa_batch_removes_its_codes_and_waits_for_codes_added_later() {
+    let mut s = store();
+    let o = ImportOptions::default();
+    let before = s.content_dump().unwrap();
+    let text = "name,rank,parent,accepted,code\nHeptageniidae,family,,,HEP\nEcdyonurus,genus,Heptageniidae,,\n";
+    let r = import_bytes(&mut s, ImportKind::Taxa, "h.csv", text.as_bytes(), &o).unwrap();
+    assert_eq!((r.written, r.codes), (2, 1));
+    s.add_taxon_code("Ecdyonurus", "ECD").unwrap();
+    let m = match s.undo_batch(r.batch()) {
+        Err(StoreError::Refused(m)) => m,
+        other => panic!("expected a refusal, got {other:?}"),
+    };
+    assert!(
+        m.contains("field code(s) ECD (Ecdyonurus) were added with `tally taxa code`"),
+        "{m}"
+    );
+    s.remove_taxon_code("Ecdyonurus", "ecd").unwrap();
+    let u = s.undo_batch(r.batch()).unwrap();
+    assert_eq!((u.removed.taxa, u.removed.codes), (2, 1));
+    assert_eq!(s.content_dump().unwrap(), before);
+}
