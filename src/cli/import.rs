@@ -131,6 +131,13 @@ pub fn run(args: Args, store: &mut Store, out: &mut dyn Write) -> anyhow::Result
         ImportKind::Counts => parts.push(crate::words::count(report.counts, "count", "counts")),
         _ => parts.push(format!("{} new {kind}", report.written)),
     }
+    if report.codes > 0 {
+        parts.push(crate::words::count(
+            report.codes,
+            "field code",
+            "field codes",
+        ));
+    }
     // A cumulative import says first how the rows divide: new, or identical.
     let rows_new = if args.skip_existing {
         format!(

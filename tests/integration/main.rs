@@ -21,6 +21,7 @@ mod shell;
 mod site_history;
 mod store_cli;
 mod taxa;
+mod taxon_codes;
 mod trend_cli;
 mod util;
 mod verify;
