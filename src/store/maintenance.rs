@@ -138,10 +138,34 @@ impl Store {
             Ok(t) => report.taxonomy = t.problems().iter().map(ToString::to_string).collect(),
             Err(e) => not_checked(report, "taxonomy", e)?,
         }
+        match self.codes_reading_like_names() {
+            Ok(found) => report.taxonomy.extend(found),
+            Err(e) => not_checked(report, "field codes", e)?,
+        }
         if let Err(e) = self.batch_bookkeeping(report) {
             not_checked(report, "batches", e)?;
         }
         Ok(())
+    }
+
+    /// Field codes equal to a taxon name regardless of case, which the store
+    /// never writes (docs/taxonomy.md, "Field codes") but SQL by hand can.
+    fn codes_reading_like_names(&self) -> Result<Vec<String>> {
+        let mut stmt = self.conn().prepare(
+            "SELECT c.code, o.name, t.name FROM taxon_code c JOIN taxon o ON o.id = c.taxon_id \
+             JOIN taxon t ON upper(t.name) = c.code ORDER BY c.code, t.name",
+        )?;
+        let rows = stmt
+            .query_map([], |r| {
+                let (code, owner, name): (String, String, String) =
+                    (r.get(0)?, r.get(1)?, r.get(2)?);
+                Ok(format!(
+                    "field code {code} of {owner} reads like the taxon name {name}; \
+                     remove the code (`tally taxa code '{owner}' {code} --remove`) or rename the taxon"
+                ))
+            })?
+            .collect::<rusqlite::Result<Vec<_>>>()?;
+        Ok(rows)
     }
 
     /// `PRAGMA integrity_check(N)` or `quick_check(N)` into `report`.
@@ -689,6 +713,28 @@ mod tests {
         assert_ne!(
             normalise_sql("CHECK (kind IN ('A'))"),
             normalise_sql("CHECK (kind IN ('a'))")
+        );
+    }
+
+    #[test]
+    fn check_names_a_field_code_planted_equal_to_a_name() {
+        let s = Store::open_in_memory().unwrap();
+        crate::store::testing::add_taxon(&s, "Baetis", "genus", None, None).unwrap();
+        crate::store::testing::add_taxon(&s, "Nepa", "genus", None, None).unwrap();
+        s.conn()
+            .execute(
+                "INSERT INTO taxon_code(code, taxon_id) SELECT 'BAETIS', id FROM taxon WHERE name = 'Nepa'",
+                [],
+            )
+            .unwrap();
+        let r = s.check().unwrap();
+        assert!(!r.is_ok());
+        assert_eq!(
+            r.taxonomy,
+            [
+                "field code BAETIS of Nepa reads like the taxon name Baetis; remove the code \
+              (`tally taxa code 'Nepa' BAETIS --remove`) or rename the taxon"
+            ]
         );
     }
 
