@@ -190,7 +190,7 @@ pub fn write_archive<W: Write + Seek>(
     out: W,
 ) -> Result<ExportFigures, ExportError> {
     let names = Names::new(store.exchange_taxa()?);
-    let attributes = store.exchange_site_attributes()?;
+    let attributes = store.attribute_histories()?;
     let file = SimpleFileOptions::default().compression_method(zip::CompressionMethod::Deflated);
     let mut zip = zip::ZipWriter::new(out);
     let mut figures = ExportFigures::default();

@@ -79,6 +79,10 @@ pub struct AttributeValue {
     pub value: String,
 }
 
+/// The attribute history of one site: key → values sorted by the date each
+/// holds from, "since always" first.
+pub type History = BTreeMap<String, Vec<AttributeValue>>;
+
 /// The value in force on `date` (ISO 8601) in a history sorted by `from`
 /// ("since always" first): the last value whose `from` is on or before the
 /// date, or `None` when the date is before the first dated value and the key
@@ -107,7 +111,7 @@ pub struct Records {
     pub taxa: Vec<TaxonRecord>,
     /// Site code → attribute key → history (sorted by `from`, "since always"
     /// first), for the selected sites.
-    pub site_attributes: BTreeMap<String, BTreeMap<String, Vec<AttributeValue>>>,
+    pub site_attributes: BTreeMap<String, History>,
 }
 
 /// Assembly options (the part of a selection that is not a row filter).

@@ -14,7 +14,7 @@
 //! The mapping between the two is documented in `docs/data-model.md`
 //! ("Darwin Core archives").
 
-use std::collections::{BTreeMap, HashMap, HashSet};
+use std::collections::{HashMap, HashSet};
 
 use rusqlite::{Transaction, TransactionBehavior, params};
 
@@ -23,7 +23,6 @@ use super::import::{BatchMeta, ImportKind, ImportReport, MAX_REPORTED_ISSUES, co
 use super::sheet::Issues;
 use super::taxa::integrity::Node;
 use super::{Result, Selection, Store, StoreError};
-use crate::matrix::assemble::AttributeValue;
 
 /// One stored event with everything an archive's event row says about it.
 #[derive(Debug, Clone)]
@@ -155,28 +154,10 @@ impl Store {
             .cloned()
             .collect())
     }
-
-    /// The attribute histories of every site: code → key → values, sorted by
-    /// the date each holds from ("since always" first).
-    ///
-    /// # Errors
-    /// SQLite errors.
-    pub fn exchange_site_attributes(&self) -> Result<BTreeMap<String, History>> {
-        let mut out: BTreeMap<String, History> = BTreeMap::new();
-        for (site, key, value) in self.attribute_histories()? {
-            out.entry(site)
-                .or_default()
-                .entry(key)
-                .or_default()
-                .push(value);
-        }
-        Ok(out)
-    }
 }
 
-/// The attribute history of one site: key → values sorted by the date each
-/// holds from, "since always" first (docs/data-model.md, "Site attributes that change").
-pub type History = BTreeMap<String, Vec<AttributeValue>>;
+/// The attribute history of one site (docs/data-model.md, "Site attributes that change").
+pub use crate::matrix::assemble::History;
 
 /// A place named by the archive's events.
 #[derive(Debug, Clone, PartialEq)]
@@ -373,26 +354,7 @@ fn write_archive(
             stored_place.insert(r.get(0)?, (r.get(1)?, r.get(2)?, r.get(3)?));
         }
     }
-    let mut stored_attributes: HashMap<String, History> = HashMap::new();
-    {
-        let mut stmt = tx.prepare(
-            "SELECT s.code, a.key, a.valid_from, a.value FROM site_attribute a \
-             JOIN site s ON s.id = a.site_id ORDER BY s.code, a.key, a.valid_from",
-        )?;
-        let mut rows = stmt.query([])?;
-        while let Some(r) = rows.next()? {
-            let from: String = r.get(2)?;
-            stored_attributes
-                .entry(r.get(0)?)
-                .or_default()
-                .entry(r.get(1)?)
-                .or_default()
-                .push(AttributeValue {
-                    from: (!from.is_empty()).then_some(from),
-                    value: r.get(3)?,
-                });
-        }
-    }
+    let stored_attributes = super::sites::load_histories(tx)?;
     let mut new_sites: Vec<&ArchiveSite> = Vec::new();
     for s in &data.sites {
         if let Some((name, lat, lon)) = stored_place.get(&s.code) {

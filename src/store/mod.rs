@@ -263,6 +263,29 @@ mod tests {
         assert_eq!(fk, 1);
     }
 
+    /// The tables of sites, sampling and counts and their batches.
+    const SAMPLING_TABLES: [&str; 6] = [
+        "import_batch",
+        "site",
+        "protocol",
+        "taxon",
+        "event",
+        "count",
+    ];
+
+    /// A new store file at `path` with the migrations up to `version` applied.
+    fn store_at_version(path: &Path, version: i32) -> Connection {
+        let mut c = Connection::open(path).unwrap();
+        c.pragma_update(None, "application_id", APPLICATION_ID)
+            .unwrap();
+        c.pragma_update(None, "foreign_keys", true).unwrap();
+        embedded::migrations::runner()
+            .set_target(refinery::Target::Version(version))
+            .run(&mut c)
+            .unwrap();
+        c
+    }
+
     /// Every row of `tables`, as text, table by table in id order.
     fn table_rows(c: &Connection, tables: &[&str]) -> Vec<String> {
         let mut out = Vec::new();
@@ -284,28 +307,9 @@ mod tests {
     fn the_v5_migration_keeps_every_batch_and_reference() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("v4.db");
-        let rows = |c: &Connection| {
-            table_rows(
-                c,
-                &[
-                    "import_batch",
-                    "site",
-                    "protocol",
-                    "taxon",
-                    "event",
-                    "count",
-                ],
-            )
-        };
+        let rows = |c: &Connection| table_rows(c, &SAMPLING_TABLES);
         let before = {
-            let mut c = Connection::open(&path).unwrap();
-            c.pragma_update(None, "application_id", APPLICATION_ID)
-                .unwrap();
-            c.pragma_update(None, "foreign_keys", true).unwrap();
-            embedded::migrations::runner()
-                .set_target(refinery::Target::Version(4))
-                .run(&mut c)
-                .unwrap();
+            let c = store_at_version(&path, 4);
             c.execute_batch(
                 "INSERT INTO import_batch(id, kind, file, content_sha256, imported_at, rows) VALUES \
                    (1, 'sites', 's.csv', printf('%064d', 1), '2024-01-01T00:00:00Z', 1), \
@@ -367,28 +371,9 @@ mod tests {
                (1, 'E1', 1, '2020-04-01', 1, 3, 2), (2, 'E2', 2, '2020-04-02', 1, 2, 2); \
              INSERT INTO count(event_id, taxon_id, value, import_batch_id) VALUES \
                (1, 1, 7, 2), (1, 2, 1, 2), (2, 2, 4, 2);";
-        let tables = |c: &Connection| {
-            table_rows(
-                c,
-                &[
-                    "import_batch",
-                    "site",
-                    "protocol",
-                    "taxon",
-                    "event",
-                    "count",
-                ],
-            )
-        };
+        let tables = |c: &Connection| table_rows(c, &SAMPLING_TABLES);
         let before = {
-            let mut c = Connection::open(&path).unwrap();
-            c.pragma_update(None, "application_id", APPLICATION_ID)
-                .unwrap();
-            c.pragma_update(None, "foreign_keys", true).unwrap();
-            embedded::migrations::runner()
-                .set_target(refinery::Target::Version(5))
-                .run(&mut c)
-                .unwrap();
+            let c = store_at_version(&path, 5);
             c.execute_batch(content).unwrap();
             tables(&c)
         };

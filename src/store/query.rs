@@ -21,9 +21,7 @@ use serde::{Deserialize, Serialize};
 
 use super::{Result, Store, StoreError};
 use crate::matrix::Unit;
-use crate::matrix::assemble::{
-    AssemblyOptions, AttributeValue, CountRecord, EventRecord, Records, TaxonRecord,
-};
+use crate::matrix::assemble::{AssemblyOptions, CountRecord, EventRecord, Records, TaxonRecord};
 
 /// A selection of the store and the shape of the matrix built from it.
 ///
@@ -466,18 +464,8 @@ impl Store {
         }
 
         let sites: HashSet<&str> = events.iter().map(|e| e.site.as_str()).collect();
-        let mut site_attributes: BTreeMap<String, BTreeMap<String, Vec<AttributeValue>>> =
-            BTreeMap::new();
-        for (code, key, value) in self.attribute_histories()? {
-            if sites.contains(code.as_str()) {
-                site_attributes
-                    .entry(code)
-                    .or_default()
-                    .entry(key)
-                    .or_default()
-                    .push(value);
-            }
-        }
+        let mut site_attributes = self.attribute_histories()?;
+        site_attributes.retain(|code, _| sites.contains(code.as_str()));
         Ok(Records {
             events,
             counts,

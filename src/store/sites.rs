@@ -11,7 +11,7 @@
 
 use std::collections::BTreeMap;
 
-use rusqlite::{OptionalExtension, Transaction, TransactionBehavior, params};
+use rusqlite::{Connection, OptionalExtension, Transaction, TransactionBehavior, params};
 use serde::Serialize;
 use serde_json::{Value, json};
 
@@ -19,7 +19,7 @@ use super::import::parse_date;
 use super::sheet::{FieldKind, clean_field};
 use super::taxa::{now, require_reason};
 use super::{Result, Store, StoreError};
-use crate::matrix::assemble::AttributeValue;
+use crate::matrix::assemble::{AttributeValue, History};
 
 /// One site as listed.
 #[derive(Debug, Clone, Serialize)]
@@ -387,29 +387,38 @@ fn checked(edit: &SiteEdit) -> Result<SiteEdit> {
     })
 }
 
+/// Every stored attribute history: site code → key → values sorted by date,
+/// "since always" (stored as '') first. Also read inside an import's
+/// transaction (`c` may be a `Transaction`).
+pub(crate) fn load_histories(c: &Connection) -> Result<BTreeMap<String, History>> {
+    let mut stmt = c.prepare(
+        "SELECT s.code, a.key, a.valid_from, a.value FROM site_attribute a \
+         JOIN site s ON s.id = a.site_id ORDER BY s.code, a.key, a.valid_from",
+    )?;
+    let mut out: BTreeMap<String, History> = BTreeMap::new();
+    let mut rows = stmt.query([])?;
+    while let Some(r) = rows.next()? {
+        let from: String = r.get(2)?;
+        out.entry(r.get(0)?)
+            .or_default()
+            .entry(r.get(1)?)
+            .or_default()
+            .push(AttributeValue {
+                from: (!from.is_empty()).then_some(from),
+                value: r.get(3)?,
+            });
+    }
+    Ok(out)
+}
+
 impl Store {
-    /// Every stored attribute value: (site code, key, value), by site, key and
-    /// date ("since always" first).
+    /// Every stored attribute history: site code → key → values sorted by
+    /// date, "since always" first.
     ///
     /// # Errors
     /// SQLite errors.
-    pub fn attribute_histories(&self) -> Result<Vec<(String, String, AttributeValue)>> {
-        let mut stmt = self.conn().prepare(
-            "SELECT s.code, a.key, a.valid_from, a.value FROM site_attribute a \
-             JOIN site s ON s.id = a.site_id ORDER BY s.code, a.key, a.valid_from",
-        )?;
-        let rows = stmt.query_map([], |r| {
-            let from: String = r.get(2)?;
-            Ok((
-                r.get::<_, String>(0)?,
-                r.get::<_, String>(1)?,
-                AttributeValue {
-                    from: (!from.is_empty()).then_some(from),
-                    value: r.get(3)?,
-                },
-            ))
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+    pub fn attribute_histories(&self) -> Result<BTreeMap<String, History>> {
+        load_histories(self.conn())
     }
 
     /// Every site with its latest attribute values and visits, by code.
@@ -440,13 +449,17 @@ impl Store {
         for (i, s) in out.iter().enumerate() {
             by_code.insert(s.code.clone(), i);
         }
-        for (code, key, value) in self.attribute_histories()? {
+        for (code, history) in self.attribute_histories()? {
             let s = &mut out[by_code[&code]];
-            if value.from.is_some() && !s.changing.contains(&key) {
-                s.changing.push(key.clone());
+            for (key, values) in history {
+                if values.iter().any(|v| v.from.is_some()) {
+                    s.changing.push(key.clone());
+                }
+                // Sorted by date: the last value of a key is the latest.
+                if let Some(latest) = values.last() {
+                    s.attributes.insert(key, latest.value.clone());
+                }
             }
-            // Sorted by date: the last value of a key is the latest.
-            s.attributes.insert(key, value.value);
         }
         Ok(out)
     }

@@ -197,12 +197,7 @@ fn a_row_pooling_both_sides_of_a_change_refuses_the_key() {
 fn a_correction_and_its_undo_leave_the_attributes_as_they_were() {
     let env = store();
     let attributes = attribute_rows;
-    let sites = |env: &TestEnv| -> String {
-        let d = env.dump();
-        let start = d.find("## site\n").unwrap();
-        let rest = &d[start + 3..];
-        d[start..start + 3 + rest.find("## ").unwrap()].to_string()
-    };
+    let sites = |env: &TestEnv| dump_section(env, "site");
     let (attrs0, sites0, events0) = (attributes(&env), sites(&env), event_labels(&env, &[]));
     // The works finished a month early: restored from 2014-05-01.
     let (code, _, err) = env.run([
@@ -315,11 +310,17 @@ fn bad_attribute_files_are_refused_with_the_store_unchanged() {
 
 /// The `site_attribute` section of a store dump.
 fn attribute_rows(env: &TestEnv) -> String {
+    dump_section(env, "site_attribute")
+}
+
+/// The section of one table in a store dump.
+fn dump_section(env: &TestEnv, table: &str) -> String {
     let d = env.dump();
-    let start = d.find("## site_attribute\n").unwrap();
-    let end = d[start + 3..]
+    let head = format!("## {table}\n");
+    let start = d.find(&head).unwrap();
+    let end = d[start + head.len()..]
         .find("## ")
-        .map_or(d.len(), |e| start + 3 + e);
+        .map_or(d.len(), |e| start + head.len() + e);
     d[start..end].to_string()
 }
 
@@ -374,6 +375,21 @@ fn undoing_the_history_batch_takes_its_values_out() {
     assert!(err.contains("no site has status = 'restored'"), "{err}");
 }
 
+/// S02 is re-assigned from control to degraded from 2015-01-01, a date
+/// between two visits.
+fn reassign_s02(env: &TestEnv) {
+    env.stdout([
+        "sites",
+        "set",
+        "S02",
+        "status=degraded",
+        "--from",
+        "2015-01-01",
+        "--reason",
+        "re-assigned",
+    ]);
+}
+
 /// The id of the newest stored run.
 fn last_run(env: &TestEnv) -> String {
     let v: serde_json::Value =
@@ -404,16 +420,7 @@ fn runs_verify_notices_a_changed_history() {
     let id = last_run(&env);
     let (code, out, err) = env.run(["runs", "verify", &id]);
     assert_eq!(code, 0, "{out}\n{err}");
-    env.stdout([
-        "sites",
-        "set",
-        "S02",
-        "status=degraded",
-        "--from",
-        "2015-01-01",
-        "--reason",
-        "re-assigned",
-    ]);
+    reassign_s02(&env);
     let (code, out, err) = env.run(["runs", "verify", &id]);
     assert_eq!(code, 1, "{out}\n{err}");
     assert!(
@@ -425,16 +432,7 @@ fn runs_verify_notices_a_changed_history() {
 #[test]
 fn an_archive_keeps_the_history() {
     let env = store();
-    env.stdout([
-        "sites",
-        "set",
-        "S02",
-        "status=degraded",
-        "--from",
-        "2015-01-01",
-        "--reason",
-        "re-assigned",
-    ]);
+    reassign_s02(&env);
     let zip = env.path("all.zip");
     env.stdout(["export", "dwca", zip.to_str().unwrap()]);
     let copy = TestEnv::new();
