@@ -54,6 +54,14 @@ fn chrono_free_date(y: usize, d: usize) -> String {
     format!("{y}-{:02}-{:02}", d / 25 + 1, d % 25 + 1)
 }
 
+/// The id of the newest import batch.
+fn last_batch(env: &TestEnv) -> i64 {
+    rusqlite::Connection::open(&env.db)
+        .unwrap()
+        .query_row("SELECT max(id) FROM import_batch", [], |r| r.get(0))
+        .unwrap()
+}
+
 fn counts(env: &TestEnv) -> i64 {
     rusqlite::Connection::open(&env.db)
         .unwrap()
@@ -67,6 +75,8 @@ fn an_import_killed_at_any_point_leaves_all_or_nothing() {
     let file = env.write("big.csv", &records(6_000));
     let rows = 6_000 * 20;
     let before = counts(&env);
+    // The batch a finished import of the file becomes.
+    let batch = (last_batch(&env) + 1).to_string();
     let bin = env!("CARGO_BIN_EXE_tally");
     // How long a whole import takes here, to spread the kills over it.
     let full = {
@@ -107,7 +117,8 @@ fn an_import_killed_at_any_point_leaves_all_or_nothing() {
         );
         if n != before {
             // It finished: undo it, so the next round starts from the same store.
-            let (code, _, err) = env.run(["batches", "undo", "5"]);
+            assert_eq!(last_batch(&env).to_string(), batch);
+            let (code, _, err) = env.run(["batches", "undo", &batch]);
             assert_eq!(code, 0, "{err}");
             assert_eq!(counts(&env), before);
         }
